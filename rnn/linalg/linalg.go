@@ -3,11 +3,51 @@
 // slices of float32 or float64.
 //
 // The engine in package rnn calls only the functions of this package, so a
-// faster kernel can replace a slower one without touching the cells. Every
-// function is deterministic: for the same inputs it returns the same bits
-// whatever the number of threads in the Pool, because work is split over
-// output elements and never over a reduction.
+// faster kernel can replace a slower one without touching the cells.
+//
+// # Matrix product
+//
+// [Gemm] follows Goto and van de Geijn (2008), "Anatomy of high-performance
+// matrix multiplication", ACM TOMS 34(3). The k dimension is cut into blocks
+// of KC, the columns of C into blocks of NC and the rows into blocks of MC.
+// For each (NC, KC) block, op(B) is packed into NR-wide column panels and,
+// inside it, each MC×KC block of op(A) into MR-high row panels, both
+// zero-padded to whole panels. A register-blocked micro-kernel then
+// multiplies one MR×KC panel of A by one KC×NR panel of B into an MR×NR tile
+// of C. Transposition is absorbed by the packing routines, so the four
+// combinations of tA and tB run the same micro-kernel at the same speed.
+//
+// The float32 micro-kernel is chosen once at start-up from the CPU's
+// features (golang.org/x/sys/cpu):
+//
+//	kernel    tile (MR×NR)  registers           MC   KC   NC    needs
+//	avx512    8×32          16 ZMM accumulators 192  256  2048  AVX-512F (amd64)
+//	avx2      6×16          12 YMM accumulators 120  256  2048  AVX2 and FMA (amd64)
+//	portable  4×4           16 scalar           128  256  1024  any platform, pure Go
+//
+// The amd64 kernels are Go assembly; packing uses an assembly 8×8 AVX
+// transpose where a panel is transposed and vector copies where it is not.
+// float64, used only by the gradient tests, always takes the portable path.
+//
+// # Determinism
+//
+// Every function returns the same bits for the same inputs whatever the
+// number of threads in the Pool. Gemm splits C over whole tiles, in row or
+// column ranges aligned to MR or NR, never over k; each element of C is
+// reduced over k in the same KC blocks, in increasing order, by the same
+// instructions whichever thread computes it. Results may differ between
+// kernels (between machines) in the last bits, as fused multiply-adds round
+// once where the portable kernel rounds twice.
+//
+// # Elementwise kernels
+//
+// For float32, [Exp], [Sigmoid], [Tanh] and [SoftmaxCrossEntropy] use
+// polynomial approximations evaluated in float32 (see exp32.go for the method,
+// its source and the measured error bounds); float64 instances call package
+// math.
 package linalg
+
+import "unsafe"
 
 // Float is the element type of every kernel: float32 for training, float64
 // for the gradient tests.
@@ -21,37 +61,27 @@ type Float interface {
 //
 // for row-major matrices, where op(X) is X or its transpose Xᵀ as tA and tB
 // say. op(A) is m×k, op(B) is k×n and C is m×n; lda, ldb and ldc are the row
-// strides of A, B and C as stored. When beta is zero, C is not read (NaNs in
-// it do not propagate). A nil pool runs on the calling goroutine.
+// strides of A, B and C as stored (A is stored k×m when tA is set, B is
+// stored n×k when tB is set). When beta is zero, C is not read (NaNs in it do
+// not propagate); when alpha is zero or k is zero, A and B are not read. A
+// nil pool runs on the calling goroutine; products too small to gain from
+// threads also run there. Shapes that do not fit the slices panic.
 func Gemm[T Float](p *Pool, tA, tB bool, m, n, k int, alpha T, a []T, lda int, b []T, ldb int, beta T, c []T, ldc int) {
-	gemmNaive(tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
+	if unsafe.Sizeof(alpha) == 4 {
+		gemmRun(p, kernel32(), tA, tB, m, n, k, float32(alpha), as32(a), lda, as32(b), ldb, float32(beta), as32(c), ldc)
+		return
+	}
+	gemmRun(p, portable64, tA, tB, m, n, k, float64(alpha), as64(a), lda, as64(b), ldb, float64(beta), as64(c), ldc)
 }
 
-// gemmNaive is the reference triple loop. Each element of C is reduced over
-// k in increasing order.
-func gemmNaive[T Float](tA, tB bool, m, n, k int, alpha T, a []T, lda int, b []T, ldb int, beta T, c []T, ldc int) {
-	for i := 0; i < m; i++ {
-		for j := 0; j < n; j++ {
-			var s T
-			for l := 0; l < k; l++ {
-				var av, bv T
-				if tA {
-					av = a[l*lda+i]
-				} else {
-					av = a[i*lda+l]
-				}
-				if tB {
-					bv = b[j*ldb+l]
-				} else {
-					bv = b[l*ldb+j]
-				}
-				s += av * bv
-			}
-			if beta == 0 {
-				c[i*ldc+j] = alpha * s
-			} else {
-				c[i*ldc+j] = alpha*s + beta*c[i*ldc+j]
-			}
-		}
-	}
+// as32 views a slice of a type whose underlying type is float32 as
+// []float32. It is called only when the element size is 4, which for Float
+// means the underlying type is float32.
+func as32[T Float](s []T) []float32 {
+	return unsafe.Slice((*float32)(unsafe.Pointer(unsafe.SliceData(s))), len(s))
+}
+
+// as64 is as32 for float64.
+func as64[T Float](s []T) []float64 {
+	return unsafe.Slice((*float64)(unsafe.Pointer(unsafe.SliceData(s))), len(s))
 }

@@ -1,0 +1,233 @@
+package linalg
+
+import (
+	"fmt"
+	"sync"
+	"unsafe"
+)
+
+// kernel is one micro-kernel with the block sizes and packing routines
+// around it. Kernels are package-level values, never copied.
+type kernel[T Float] struct {
+	name       string
+	mr, nr     int // register tile of C
+	mc, kc, nc int // cache blocks; mc is a multiple of mr, nc of nr
+
+	// micro sets the mr×nr tile c (row stride ldc) to alpha·Ap·Bp + beta·c,
+	// where ap holds kc rows of mr and bp kc rows of nr packed values. When
+	// beta is zero, c is not read.
+	micro func(kc int, ap, bp, c []T, ldc int, alpha, beta T)
+
+	// packA packs rows [i0, i0+rows) and columns [l0, l0+kc) of op(A) into
+	// dst as panels of mr rows, each stored k-major and zero-padded to mr.
+	packA func(dst []T, tA bool, a []T, lda, i0, rows, l0, kc, mr int)
+
+	// packB packs rows [l0, l0+kc) and columns [j0, j0+cols) of op(B) into
+	// dst as panels of nr columns, each stored k-major and zero-padded to nr.
+	packB func(dst []T, tB bool, b []T, ldb, l0, kc, j0, cols, nr int)
+
+	spaces sync.Pool // *workspace[T]
+	jobs   sync.Pool // *gemmJob[T]
+}
+
+// workspace holds one thread's packing buffers, aligned to 64 bytes.
+type workspace[T Float] struct {
+	a, b, tile []T
+}
+
+func (kern *kernel[T]) workspace() *workspace[T] {
+	if w, ok := kern.spaces.Get().(*workspace[T]); ok {
+		return w
+	}
+	return &workspace[T]{
+		a:    alignedSlice[T](kern.mc * kern.kc),
+		b:    alignedSlice[T](kern.kc * kern.nc),
+		tile: alignedSlice[T](kern.mr * kern.nr),
+	}
+}
+
+// alignedSlice returns a zeroed slice of n elements whose first element is
+// 64-byte aligned, with room for 16 more elements past its end (the AVX2
+// packing stores whole vectors).
+func alignedSlice[T Float](n int) []T {
+	var z T
+	per := 64 / int(unsafe.Sizeof(z))
+	s := make([]T, n+2*per)
+	off := 0
+	for uintptr(unsafe.Pointer(&s[off]))%64 != 0 {
+		off++
+	}
+	return s[off : off+n : off+n+per]
+}
+
+// parallelMinWork is the number of multiply-adds (m·n·k) below which a
+// product runs on the caller alone: waking a worker costs a few
+// microseconds, about what 2^20 multiply-adds take on one core.
+const parallelMinWork = 1 << 20
+
+// checkGemm panics when the shapes do not fit the slices.
+func checkGemm(tA, tB bool, m, n, k, la, lda, lb, ldb, lc, ldc int) {
+	if m < 0 || n < 0 || k < 0 {
+		panic(fmt.Sprintf("linalg: negative dimension m=%d n=%d k=%d", m, n, k))
+	}
+	check := func(name string, rows, cols, l, ld int) {
+		if cols > 0 && ld < cols {
+			panic(fmt.Sprintf("linalg: %s stride %d less than its %d columns", name, ld, cols))
+		}
+		if rows > 0 && cols > 0 && l < (rows-1)*ld+cols {
+			panic(fmt.Sprintf("linalg: %s has %d elements, needs %d for %d×%d with stride %d", name, l, (rows-1)*ld+cols, rows, cols, ld))
+		}
+	}
+	if tA {
+		check("A", k, m, la, lda)
+	} else {
+		check("A", m, k, la, lda)
+	}
+	if tB {
+		check("B", n, k, lb, ldb)
+	} else {
+		check("B", k, n, lb, ldb)
+	}
+	check("C", m, n, lc, ldc)
+}
+
+// gemmRun checks the arguments, handles the degenerate cases, and splits C
+// over the pool's threads in whole tiles.
+func gemmRun[T Float](p *Pool, kern *kernel[T], tA, tB bool, m, n, k int, alpha T, a []T, lda int, b []T, ldb int, beta T, c []T, ldc int) {
+	checkGemm(tA, tB, m, n, k, len(a), lda, len(b), ldb, len(c), ldc)
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return
+	}
+	j := kern.job()
+	*j = gemmJob[T]{kern: kern, tA: tA, tB: tB, m: m, n: n, k: k, alpha: alpha, a: a, lda: lda, b: b, ldb: ldb, beta: beta, c: c, ldc: ldc, parts: 1}
+	threads := p.Threads()
+	mt := (m + kern.mr - 1) / kern.mr
+	nt := (n + kern.nr - 1) / kern.nr
+	if threads > 1 && m*n*k >= parallelMinWork {
+		// Each thread packs the whole of the operand it shares, so split
+		// the other one: rows of C when op(A) is the larger, else columns.
+		switch {
+		case m > n && mt >= threads:
+			j.parts, j.splitRows, j.tiles = threads, true, mt
+		case nt >= threads:
+			j.parts, j.tiles = threads, nt
+		case mt >= threads:
+			j.parts, j.splitRows, j.tiles = threads, true, mt
+		}
+	}
+	p.run(j, j.parts)
+	*j = gemmJob[T]{}
+	kern.jobs.Put(j)
+}
+
+func (kern *kernel[T]) job() *gemmJob[T] {
+	if j, ok := kern.jobs.Get().(*gemmJob[T]); ok {
+		return j
+	}
+	return new(gemmJob[T])
+}
+
+// scaleC sets C = beta·C, or C = 0 when beta is zero.
+func scaleC[T Float](m, n int, beta T, c []T, ldc int) {
+	for i := 0; i < m; i++ {
+		row := c[i*ldc : i*ldc+n]
+		if beta == 0 {
+			clear(row)
+			continue
+		}
+		for j := range row {
+			row[j] *= beta
+		}
+	}
+}
+
+// gemmJob is one product split into parts, one per thread.
+type gemmJob[T Float] struct {
+	kern      *kernel[T]
+	tA, tB    bool
+	m, n, k   int
+	alpha     T
+	a         []T
+	lda       int
+	b         []T
+	ldb       int
+	beta      T
+	c         []T
+	ldc       int
+	parts     int
+	splitRows bool
+	tiles     int // tiles along the split dimension
+}
+
+// runPart computes part t of the job: a range of whole tiles along the
+// split dimension.
+func (j *gemmJob[T]) runPart(t int) {
+	kern := j.kern
+	i0, i1, j0, j1 := 0, j.m, 0, j.n
+	if j.parts > 1 {
+		lo, hi := t*j.tiles/j.parts, (t+1)*j.tiles/j.parts
+		if j.splitRows {
+			i0, i1 = lo*kern.mr, min(hi*kern.mr, j.m)
+		} else {
+			j0, j1 = lo*kern.nr, min(hi*kern.nr, j.n)
+		}
+	}
+	if i0 >= i1 || j0 >= j1 {
+		return
+	}
+	w := kern.workspace()
+	kern.block(w, j.tA, j.tB, i0, i1, j0, j1, j.k, j.alpha, j.a, j.lda, j.b, j.ldb, j.beta, j.c, j.ldc)
+	kern.spaces.Put(w)
+}
+
+// block computes rows [i0, i1) and columns [j0, j1) of C with the loop
+// nest of Goto and van de Geijn: NC columns, KC depth, MC rows, then NR and
+// MR register tiles. i0 and j0 are multiples of MR and NR, so every thread
+// sees the same tile grid and the same k blocks.
+func (kern *kernel[T]) block(w *workspace[T], tA, tB bool, i0, i1, j0, j1, k int, alpha T, a []T, lda int, b []T, ldb int, beta T, c []T, ldc int) {
+	mr, nr := kern.mr, kern.nr
+	for jc := j0; jc < j1; jc += kern.nc {
+		nc := min(kern.nc, j1-jc)
+		for pc := 0; pc < k; pc += kern.kc {
+			kc := min(kern.kc, k-pc)
+			kern.packB(w.b, tB, b, ldb, pc, kc, jc, nc, nr)
+			bet := beta
+			if pc > 0 {
+				bet = 1
+			}
+			for ic := i0; ic < i1; ic += kern.mc {
+				mc := min(kern.mc, i1-ic)
+				kern.packA(w.a, tA, a, lda, ic, mc, pc, kc, mr)
+				for jr := 0; jr < nc; jr += nr {
+					nn := min(nr, nc-jr)
+					bp := w.b[jr*kc : (jr+nr)*kc]
+					for ir := 0; ir < mc; ir += mr {
+						mm := min(mr, mc-ir)
+						ap := w.a[ir*kc : (ir+mr)*kc]
+						ci := (ic+ir)*ldc + jc + jr
+						if mm == mr && nn == nr {
+							kern.micro(kc, ap, bp, c[ci:], ldc, alpha, bet)
+							continue
+						}
+						kern.micro(kc, ap, bp, w.tile, nr, alpha, 0)
+						for i := 0; i < mm; i++ {
+							dst := c[ci+i*ldc : ci+i*ldc+nn]
+							src := w.tile[i*nr : i*nr+nn]
+							if bet == 0 {
+								copy(dst, src)
+								continue
+							}
+							for jj, v := range src {
+								dst[jj] = v + bet*dst[jj]
+							}
+						}
+					}
+				}
+			}
+		}
+	}
+}

@@ -1,0 +1,5 @@
+//go:build !openblas
+
+package linalg
+
+func kernelName() string { return kernel32().name }
