@@ -1,0 +1,96 @@
+package rnn
+
+import "weft/rnn/linalg"
+
+// lstmCell is the long short-term memory cell with forget gate of Gers,
+// Schmidhuber & Cummins (2000), without peepholes:
+//
+//	i_t = σ(W_i x_t + U_i h_{t−1} + b_i)
+//	f_t = σ(W_f x_t + U_f h_{t−1} + b_f)
+//	g_t = tanh(W_g x_t + U_g h_{t−1} + b_g)
+//	o_t = σ(W_o x_t + U_o h_{t−1} + b_o)
+//	c_t = f_t ⊙ c_{t−1} + i_t ⊙ g_t
+//	h_t = o_t ⊙ tanh(c_t)
+//
+// Gate layout: blocks i, f, g, o (the order general frameworks use).
+type lstmCell[T Float] struct{}
+
+func (c *lstmCell[T]) Name() string           { return "lstm" }
+func (c *lstmCell[T]) Gates() int             { return 4 }
+func (c *lstmCell[T]) hasCellState() bool     { return true }
+func (c *lstmCell[T]) hasRecurrentBias() bool { return false }
+func (c *lstmCell[T]) initBias(b []T, hid int, forgetBias float64) {
+	for j := hid; j < 2*hid; j++ {
+		b[j] = T(forgetBias)
+	}
+}
+
+func (c *lstmCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[T], steps, B int) {
+	H := lp.hid
+	G := 4 * H
+	n := B * H
+	for t := 0; t < steps; t++ {
+		hp := lw.h[t*n : (t+1)*n]
+		a := lw.xg[t*B*G : (t+1)*B*G]
+		linalg.Gemm(p, false, true, B, G, H, 1, hp, H, lp.wRec, H, 1, a, G)
+		for b := 0; b < B; b++ {
+			row := a[b*G : (b+1)*G]
+			linalg.Sigmoid(row[:2*H], row[:2*H])
+			linalg.Tanh(row[2*H:3*H], row[2*H:3*H])
+			linalg.Sigmoid(row[3*H:], row[3*H:])
+			i, f, g := row[:H], row[H:2*H], row[2*H:3*H]
+			cp := lw.c[t*n+b*H : t*n+(b+1)*H]
+			cn := lw.c[(t+1)*n+b*H : (t+1)*n+(b+1)*H]
+			for j := range cn {
+				cn[j] = f[j]*cp[j] + i[j]*g[j]
+			}
+		}
+		tc := lw.aux[t*n : (t+1)*n]
+		linalg.Tanh(tc, lw.c[(t+1)*n:(t+2)*n])
+		hn := lw.h[(t+1)*n : (t+2)*n]
+		for b := 0; b < B; b++ {
+			o := a[b*G+3*H : (b+1)*G]
+			tcb := tc[b*H : (b+1)*H]
+			hb := hn[b*H : (b+1)*H]
+			for j := range hb {
+				hb[j] = o[j] * tcb[j]
+			}
+		}
+	}
+}
+
+func (c *lstmCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[T], steps, B int) {
+	H := lp.hid
+	G := 4 * H
+	n := B * H
+	dnext, dc := lw.dnext[:n], lw.dcnext[:n]
+	clear(dnext)
+	clear(dc)
+	for t := steps - 1; t >= 0; t-- {
+		a := lw.xg[t*B*G : (t+1)*B*G]
+		d := lw.dxg[t*B*G : (t+1)*B*G]
+		for b := 0; b < B; b++ {
+			row := a[b*G : (b+1)*G]
+			i, f, g, o := row[:H], row[H:2*H], row[2*H:3*H], row[3*H:]
+			drow := d[b*G : (b+1)*G]
+			di, df, dg, do := drow[:H], drow[H:2*H], drow[2*H:3*H], drow[3*H:]
+			off := b * H
+			dh := lw.dh[t*n+off : t*n+off+H]
+			tc := lw.aux[t*n+off : t*n+off+H]
+			cp := lw.c[t*n+off : t*n+off+H]
+			dn := dnext[off : off+H]
+			dcb := dc[off : off+H]
+			for j := 0; j < H; j++ {
+				gh := dh[j] + dn[j]
+				dct := dcb[j] + gh*o[j]*(1-tc[j]*tc[j])
+				do[j] = gh * tc[j] * o[j] * (1 - o[j])
+				di[j] = dct * g[j] * i[j] * (1 - i[j])
+				dg[j] = dct * i[j] * (1 - g[j]*g[j])
+				df[j] = dct * cp[j] * f[j] * (1 - f[j])
+				dcb[j] = dct * f[j]
+			}
+		}
+		linalg.Gemm(p, false, false, B, H, G, 1, d, G, lp.wRec, H, 0, dnext, H)
+	}
+	linalg.Gemm(p, true, false, G, H, steps*B, 1, lw.dxg, G, lw.h, H, 1, lp.gwRec, H)
+}

@@ -1,0 +1,299 @@
+package rnn
+
+import (
+	"fmt"
+	"math"
+	"math/rand/v2"
+
+	"weft/rnn/linalg"
+)
+
+// Float is the element type of a model: float32 for training, float64 for
+// the gradient tests. The same code serves both.
+type Float = linalg.Float
+
+// Param is one parameter tensor of a model: its stable name (see the package
+// documentation for the table), its shape (row-major, outermost first) and
+// live views of its values and of the gradient the last backward pass left.
+// Writing to Value changes the model; this is how a checkpoint is restored.
+type Param[T Float] struct {
+	Name  string
+	Shape []int
+	Value []T
+	Grad  []T
+}
+
+// Tensor is a named piece of state other than a parameter (optimizer
+// moments, carried hidden state), as a live view: read Value to save it,
+// write it to restore it.
+type Tensor[T Float] struct {
+	Name  string
+	Shape []int
+	Value []T
+}
+
+// layerParams are the views of one recurrent layer's parameters and
+// gradients.
+type layerParams[T Float] struct {
+	in, hid, g int // input width, state width, gate width (gates·hid)
+
+	wIn, wRec, bias, bRec     []T // G×in, G×hid, G, hid (bRec: GRU reset_after only)
+	gwIn, gwRec, gBias, gbRec []T
+}
+
+// Model is a recurrent language model: an embedding (or one-hot input),
+// a stack of recurrent layers of one cell type, an optional projection and
+// a softmax output layer. Its parameters live in one flat slice. A Model is
+// safe for concurrent LogProbs calls and Streams as long as nothing trains
+// it or writes its parameters meanwhile.
+type Model[T Float] struct {
+	cfg   Config
+	vocab int
+	cell  Cell[T]
+
+	values, grads []T
+	params        []Param[T]
+
+	emb, gEmb         []T // V×E, nil for one-hot input
+	layers            []layerParams[T]
+	proj, gProj       []T // P×H, nil without projection
+	outW, gOutW       []T // V×outIn (the embedding when tied)
+	outB, gOutB       []T // V
+	outIn             int // width of the output layer's input
+	pool              *linalg.Pool
+	scoreS, scoreWarm int
+}
+
+// NewModel builds a model of the given shape for token ids 0..vocabSize-1
+// and initialises its parameters from a PCG generator seeded with seed (see
+// "Initialisation" in the package documentation). The same config, vocabulary
+// size and seed give bit-identical weights on every machine.
+func NewModel[T Float](cfg Config, vocabSize int, seed uint64) (*Model[T], error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, err
+	}
+	if vocabSize < 1 {
+		return nil, fmt.Errorf("vocabulary size must be at least 1, got %d", vocabSize)
+	}
+	if cfg.Activation == "" {
+		cfg.Activation = "tanh"
+	}
+	if cfg.GRUForm == "" {
+		cfg.GRUForm = "reset_after"
+	}
+	if cfg.RecurrentInit == "" {
+		cfg.RecurrentInit = cfg.Init
+	}
+	m := &Model[T]{cfg: cfg, vocab: vocabSize, cell: newCell[T](cfg), outIn: cfg.outputInput(), scoreS: 1}
+	m.build()
+	m.initialise(seed)
+	return m, nil
+}
+
+func newCell[T Float](cfg Config) Cell[T] {
+	switch cfg.Cell {
+	case "rnn":
+		return &vanillaCell[T]{relu: cfg.Activation == "relu"}
+	case "gru":
+		return &gruCell[T]{resetAfter: cfg.GRUForm != "reset_before"}
+	default:
+		return &lstmCell[T]{}
+	}
+}
+
+// build lays out every tensor in the flat slices, in the documented order.
+func (m *Model[T]) build() {
+	c, V, H := m.cfg, m.vocab, m.cfg.HiddenSize
+	G := m.cell.Gates() * H
+	type spec struct {
+		name  string
+		shape []int
+		val   *[]T
+		grad  *[]T
+	}
+	var specs []spec
+	add := func(name string, val, grad *[]T, shape ...int) {
+		specs = append(specs, spec{name, shape, val, grad})
+	}
+	if c.EmbeddingSize > 0 {
+		add("embedding.weight", &m.emb, &m.gEmb, V, c.EmbeddingSize)
+	}
+	m.layers = make([]layerParams[T], c.Layers)
+	for l := range m.layers {
+		lp := &m.layers[l]
+		lp.in, lp.hid, lp.g = H, H, G
+		if l == 0 {
+			lp.in = c.EmbeddingSize
+			if lp.in == 0 {
+				lp.in = V
+			}
+		}
+		p := fmt.Sprintf("layer.%d.", l)
+		add(p+"input_weight", &lp.wIn, &lp.gwIn, G, lp.in)
+		add(p+"recurrent_weight", &lp.wRec, &lp.gwRec, G, H)
+		add(p+"bias", &lp.bias, &lp.gBias, G)
+		if m.cell.hasRecurrentBias() {
+			add(p+"recurrent_bias", &lp.bRec, &lp.gbRec, H)
+		}
+	}
+	if c.ProjectionSize > 0 {
+		add("projection.weight", &m.proj, &m.gProj, c.ProjectionSize, H)
+	}
+	if !c.TieEmbeddings {
+		add("output.weight", &m.outW, &m.gOutW, V, m.outIn)
+	}
+	add("output.bias", &m.outB, &m.gOutB, V)
+
+	total := 0
+	for _, s := range specs {
+		total += size(s.shape)
+	}
+	m.values = make([]T, total)
+	m.grads = make([]T, total)
+	off := 0
+	for _, s := range specs {
+		n := size(s.shape)
+		*s.val = m.values[off : off+n : off+n]
+		*s.grad = m.grads[off : off+n : off+n]
+		m.params = append(m.params, Param[T]{Name: s.name, Shape: s.shape, Value: *s.val, Grad: *s.grad})
+		off += n
+	}
+	if c.TieEmbeddings {
+		m.outW, m.gOutW = m.emb, m.gEmb
+	}
+}
+
+func size(shape []int) int {
+	n := 1
+	for _, d := range shape {
+		n *= d
+	}
+	return n
+}
+
+// initialise fills the parameters, tensor by tensor in Params order, from
+// one PCG stream. Only integer arithmetic, +, −, ×, ÷ and √ (all exactly
+// rounded in IEEE 754) are used, and products are rounded before they are
+// added, so no fused multiply-add can change a bit between platforms.
+func (m *Model[T]) initialise(seed uint64) {
+	rng := rand.New(rand.NewPCG(seed, initStream))
+	c := m.cfg
+	uniform := func(dst []T, a float64) {
+		for i := range dst {
+			dst[i] = T(float64(a*float64(2*rng.Float64())) - a)
+		}
+	}
+	xavier := func(dst []T, fanIn, fanOut int) {
+		uniform(dst, math.Sqrt(6/float64(fanIn+fanOut)))
+	}
+	scheme := func(s string, dst []T, rows, cols int) {
+		if s == "uniform" {
+			uniform(dst, c.InitRange)
+		} else {
+			xavier(dst, cols, rows)
+		}
+	}
+	if m.emb != nil {
+		uniform(m.emb, c.InitRange)
+	}
+	for l := range m.layers {
+		lp := &m.layers[l]
+		H := lp.hid
+		gates := lp.g / H
+		// Fan-in and fan-out per gate block: each gate is its own map.
+		for k := 0; k < gates; k++ {
+			scheme(c.Init, lp.wIn[k*H*lp.in:(k+1)*H*lp.in], H, lp.in)
+		}
+		for k := 0; k < gates; k++ {
+			blk := lp.wRec[k*H*H : (k+1)*H*H]
+			if c.RecurrentInit == "orthogonal" {
+				orthogonal(blk, H, rng)
+			} else {
+				scheme(c.RecurrentInit, blk, H, H)
+			}
+		}
+		clear(lp.bias)
+		m.cell.initBias(lp.bias, H, c.ForgetBias)
+		clear(lp.bRec)
+	}
+	if m.proj != nil {
+		scheme(c.Init, m.proj, c.ProjectionSize, c.HiddenSize)
+	}
+	if !c.TieEmbeddings {
+		scheme(c.Init, m.outW, m.vocab, m.outIn)
+	}
+	clear(m.outB)
+}
+
+// initStream is the PCG stream constant of weight initialisation; the
+// trainer's dropout generator uses trainStream, so the two never overlap.
+const (
+	initStream  = 0x77656674_696e6974 // "weftinit"
+	trainStream = 0x77656674_74726e21 // "wefttrn!"
+)
+
+// orthogonal fills the n×n row-major dst with an orthogonal matrix: modified
+// Gram–Schmidt (Golub & Van Loan, Matrix Computations, §5.2.8) on the rows of
+// a matrix of U(−1, 1) draws, in float64. A row that comes out (numerically)
+// dependent is redrawn.
+func orthogonal[T Float](dst []T, n int, rng *rand.Rand) {
+	q := make([]float64, n*n)
+	for i := 0; i < n; i++ {
+		row := q[i*n : (i+1)*n]
+		for {
+			for j := range row {
+				row[j] = float64(2*rng.Float64()) - 1
+			}
+			for k := 0; k < i; k++ {
+				prev := q[k*n : (k+1)*n]
+				var d float64
+				for j := range row {
+					d += float64(row[j] * prev[j])
+				}
+				for j := range row {
+					row[j] -= float64(d * prev[j])
+				}
+			}
+			var ss float64
+			for _, v := range row {
+				ss += float64(v * v)
+			}
+			norm := math.Sqrt(ss)
+			if norm > 1e-6 {
+				for j := range row {
+					row[j] /= norm
+				}
+				break
+			}
+		}
+	}
+	for i, v := range q {
+		dst[i] = T(v)
+	}
+}
+
+// Params lists the parameter tensors in their stable order (see the package
+// documentation). The views are live: they alias the model's storage.
+func (m *Model[T]) Params() []Param[T] { return m.params }
+
+// Config returns the model's resolved config (empty keys filled in).
+func (m *Model[T]) Config() Config { return m.cfg }
+
+// VocabSize is the number of token ids the model reads and predicts.
+func (m *Model[T]) VocabSize() int { return m.vocab }
+
+// Name is a short label such as "lstm-1x256".
+func (m *Model[T]) Name() string {
+	return fmt.Sprintf("%s-%dx%d", m.cell.Name(), m.cfg.Layers, m.cfg.HiddenSize)
+}
+
+// NumParams is the number of scalar parameters (a tied matrix counts once).
+func (m *Model[T]) NumParams() int { return len(m.values) }
+
+// SetPool sets the thread pool of LogProbs and of the Streams made after
+// the call; nil (the default) runs on the caller. Results do not depend on
+// it.
+func (m *Model[T]) SetPool(p *linalg.Pool) { m.pool = p }
+
+// ZeroGrad clears every gradient.
+func (m *Model[T]) ZeroGrad() { clear(m.grads) }
