@@ -1,0 +1,7 @@
+//go:build !(linux || darwin || freebsd || netbsd || openbsd || dragonfly)
+
+package checkpoint
+
+// lockDir uses the portable exclusive-create lock where flock(2) is not
+// available.
+func lockDir(dir string, me Holder) (*DirLock, error) { return lockExcl(dir, me) }
