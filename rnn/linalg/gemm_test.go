@@ -224,10 +224,18 @@ func TestGemmPanicsOnBadShape(t *testing.T) {
 		name string
 		f    func()
 	}{
-		{"short A", func() { Gemm(nil, false, false, 2, 2, 2, 1, make([]float32, 3), 2, make([]float32, 4), 2, 0, make([]float32, 4), 2) }},
-		{"short C", func() { Gemm(nil, false, false, 2, 2, 2, 1, make([]float32, 4), 2, make([]float32, 4), 2, 0, make([]float32, 3), 2) }},
-		{"stride below width", func() { Gemm(nil, false, true, 2, 3, 2, 1, make([]float32, 4), 2, make([]float32, 6), 1, 0, make([]float32, 6), 3) }},
-		{"negative m", func() { Gemm(nil, false, false, -1, 2, 2, 1, make([]float64, 4), 2, make([]float64, 4), 2, 0, make([]float64, 4), 2) }},
+		{"short A", func() {
+			Gemm(nil, false, false, 2, 2, 2, 1, make([]float32, 3), 2, make([]float32, 4), 2, 0, make([]float32, 4), 2)
+		}},
+		{"short C", func() {
+			Gemm(nil, false, false, 2, 2, 2, 1, make([]float32, 4), 2, make([]float32, 4), 2, 0, make([]float32, 3), 2)
+		}},
+		{"stride below width", func() {
+			Gemm(nil, false, true, 2, 3, 2, 1, make([]float32, 4), 2, make([]float32, 6), 1, 0, make([]float32, 6), 3)
+		}},
+		{"negative m", func() {
+			Gemm(nil, false, false, -1, 2, 2, 1, make([]float64, 4), 2, make([]float64, 4), 2, 0, make([]float64, 4), 2)
+		}},
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
