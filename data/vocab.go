@@ -1,0 +1,427 @@
+package data
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"sort"
+	"unicode/utf8"
+)
+
+// Names of the reserved vocabulary entries. They never collide with a
+// piece of text: the lookup of pieces skips the reserved ids.
+const (
+	UnknownPiece  = "<unk>"
+	LinePiece     = "<eol>"
+	DocumentPiece = "<eod>"
+)
+
+// A Vocab maps the pieces of one tokenizer to token ids and back. Id 0 is
+// the unknown entry; with a boundary, id 1 is the boundary entry; the other
+// ids follow in order of decreasing training count, ties broken by the
+// piece's bytes. A Vocab is built from the training split only and is
+// immutable: it is safe for concurrent use.
+type Vocab struct {
+	kind     Kind
+	lower    bool
+	boundary string // "", "line" or "document"
+	pieces   []string
+	counts   []int64
+	chars    []int32 // runes of the original text per piece
+	index    map[string]int32
+	runes    map[rune]int32
+	table    [256]int32 // char: ids of the ASCII runes; byte: ids of all bytes
+	bpe      *bpeModel
+}
+
+// VocabOptions are the settings that build a vocabulary; see Config for
+// their meaning and defaults.
+type VocabOptions struct {
+	Tokenizer     string
+	Lowercase     bool
+	BPEMerges     int
+	MinCount      int
+	MaxVocabulary int
+	Boundary      string
+}
+
+// vocabOptions returns the vocabulary settings of cfg.
+func (c Config) vocabOptions() VocabOptions {
+	return VocabOptions{Tokenizer: c.Tokenizer, Lowercase: c.Lowercase, BPEMerges: c.BPEMerges,
+		MinCount: c.MinCount, MaxVocabulary: c.MaxVocabulary, Boundary: c.Boundary}
+}
+
+// Len returns the number of entries, reserved ones included.
+func (v *Vocab) Len() int { return len(v.pieces) }
+
+// Kind returns the tokenizer.
+func (v *Vocab) Kind() Kind { return v.kind }
+
+// Lowercase reports whether pieces are lower-cased before lookup.
+func (v *Vocab) Lowercase() bool { return v.lower }
+
+// Unknown returns the id of the unknown entry (always 0).
+func (v *Vocab) Unknown() int { return 0 }
+
+// Boundary returns the id of the boundary entry, or -1 without one.
+func (v *Vocab) Boundary() int {
+	if v.boundary == "" {
+		return -1
+	}
+	return 1
+}
+
+// Piece returns the text of entry id: the piece's bytes (for the byte
+// tokenizer a single byte, possibly not UTF-8), or a reserved name such as
+// UnknownPiece.
+func (v *Vocab) Piece(id int) string { return v.pieces[id] }
+
+// Count returns how often entry id occurred in the training split.
+func (v *Vocab) Count(id int) int64 { return v.counts[id] }
+
+// Chars returns the number of characters (runes of the normalized text) a
+// token of entry id stands for: the rune count of its piece, 1 for the
+// unknown and line entries, 0 for the document entry and for a byte that
+// continues a UTF-8 sequence. A Split records the tokens whose text had a
+// different length (unknown words, lower-cased letters whose length
+// changed).
+func (v *Vocab) Chars(id int) int { return int(v.chars[id]) }
+
+// ID returns the id of a piece, and false when the piece has no entry.
+func (v *Vocab) ID(piece string) (int, bool) {
+	id, ok := v.index[piece]
+	return int(id), ok
+}
+
+// Merges returns the learned byte-pair merges in the order they apply
+// (nil unless the tokenizer is bpe).
+func (v *Vocab) Merges() [][2]string {
+	if v.bpe == nil {
+		return nil
+	}
+	out := make([][2]string, len(v.bpe.merges))
+	copy(out, v.bpe.merges)
+	return out
+}
+
+// counter counts the pieces of training text, streaming.
+type counter struct {
+	kind   Kind
+	ascii  [256]int64 // char: ASCII runes; byte: every byte
+	runes  map[rune]int64
+	pieces map[string]int64
+	sp     *splitter
+}
+
+func newCounter(kind Kind, lower bool) *counter {
+	c := &counter{kind: kind, runes: map[rune]int64{}, pieces: map[string]int64{}}
+	c.sp = newSplitter(kind, lower, func(p []byte, _ int) { c.pieces[string(p)]++ })
+	return c
+}
+
+func (c *counter) write(p []byte) {
+	switch c.kind {
+	case KindChar:
+		for i := 0; i < len(p); {
+			if b := p[i]; b < utf8.RuneSelf {
+				c.ascii[b]++
+				i++
+				continue
+			}
+			r, size := utf8.DecodeRune(p[i:])
+			c.runes[r]++
+			i += size
+		}
+	case KindByte:
+		for _, b := range p {
+			c.ascii[b]++
+		}
+	default:
+		c.sp.write(p)
+	}
+}
+
+// flush ends the current piece (at the end of a file or split).
+func (c *counter) flush() { c.sp.flush() }
+
+// counts returns the piece counts.
+func (c *counter) counts() map[string]int64 {
+	switch c.kind {
+	case KindChar:
+		m := make(map[string]int64, len(c.runes)+128)
+		for b, n := range c.ascii[:utf8.RuneSelf] {
+			if n > 0 {
+				m[string(rune(b))] = n
+			}
+		}
+		for r, n := range c.runes {
+			m[string(r)] += n
+		}
+		return m
+	case KindByte:
+		m := make(map[string]int64, 256)
+		for b, n := range c.ascii {
+			if n > 0 {
+				m[string([]byte{byte(b)})] = n
+			}
+		}
+		return m
+	}
+	return c.pieces
+}
+
+// LearnVocab reads training text from r (name is used in errors), counts
+// its pieces in bounded memory (the counts of distinct pieces), learns the
+// byte-pair merges for bpe, and builds the vocabulary.
+func LearnVocab(ctx context.Context, r io.Reader, name string, opts VocabOptions) (*Vocab, error) {
+	kind, ok := parseKind(opts.Tokenizer)
+	if !ok {
+		return nil, fmt.Errorf("data.tokenizer must be \"char\", \"byte\", \"word\", \"bpe\" or \"symbols\", got %q", opts.Tokenizer)
+	}
+	c := newCounter(kind, opts.Lowercase)
+	if err := readText(ctx, r, name, false, c.write); err != nil {
+		return nil, err
+	}
+	c.flush()
+	return buildVocab(kind, c.counts(), opts), nil
+}
+
+// readText streams the normalized text of r to fn.
+func readText(ctx context.Context, r io.Reader, name string, replace bool, fn func([]byte)) error {
+	n := newNormalizer(r, name, replace)
+	for {
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		p, err := n.next()
+		if err == io.EOF {
+			return nil
+		}
+		if err != nil {
+			return err
+		}
+		fn(p)
+	}
+}
+
+// buildVocab makes the vocabulary from piece counts (for bpe, the counts
+// of the word pieces, from which it learns the merges first).
+func buildVocab(kind Kind, counts map[string]int64, opts VocabOptions) *Vocab {
+	v := &Vocab{kind: kind, lower: opts.Lowercase, boundary: opts.Boundary}
+	if kind == KindBPE {
+		v.bpe = learnBPE(counts, opts.BPEMerges)
+		counts = v.bpe.symbolCounts(counts)
+	}
+	type entry struct {
+		piece string
+		n     int64
+	}
+	var bound int64
+	entries := make([]entry, 0, len(counts))
+	min := int64(opts.MinCount)
+	if min < 1 {
+		min = 1
+	}
+	for p, n := range counts {
+		if p == "\n" && opts.Boundary == "line" {
+			bound += n
+			continue
+		}
+		if n >= min {
+			entries = append(entries, entry{p, n})
+		}
+	}
+	sort.Slice(entries, func(i, j int) bool {
+		if entries[i].n != entries[j].n {
+			return entries[i].n > entries[j].n
+		}
+		return entries[i].piece < entries[j].piece
+	})
+	reserved := 1
+	if opts.Boundary != "" {
+		reserved = 2
+	}
+	if opts.MaxVocabulary > 0 && len(entries) > opts.MaxVocabulary-reserved {
+		entries = entries[:max(opts.MaxVocabulary-reserved, 0)]
+	}
+	v.add(UnknownPiece, 0, 1)
+	switch opts.Boundary {
+	case "line":
+		v.add(LinePiece, bound, 1)
+	case "document":
+		v.add(DocumentPiece, 0, 0)
+	}
+	for _, e := range entries {
+		chars := utf8.RuneCountInString(e.piece)
+		if kind == KindByte {
+			chars = byteChars(e.piece[0])
+		}
+		v.add(e.piece, e.n, chars)
+	}
+	v.index = v.makeIndex()
+	return v
+}
+
+func (v *Vocab) add(piece string, n int64, chars int) {
+	v.pieces = append(v.pieces, piece)
+	v.counts = append(v.counts, n)
+	v.chars = append(v.chars, int32(chars))
+}
+
+// makeIndex builds the lookup tables from the entries.
+func (v *Vocab) makeIndex() map[string]int32 {
+	reserved := 1
+	if v.boundary != "" {
+		reserved = 2
+	}
+	index := make(map[string]int32, len(v.pieces))
+	for id := reserved; id < len(v.pieces); id++ {
+		index[v.pieces[id]] = int32(id)
+	}
+	if v.boundary == "line" {
+		index["\n"] = 1
+	}
+	v.runes = map[rune]int32{}
+	for i := range v.table {
+		v.table[i] = 0
+	}
+	switch v.kind {
+	case KindChar:
+		for p, id := range index {
+			r, _ := utf8.DecodeRuneInString(p)
+			if r < utf8.RuneSelf {
+				v.table[r] = id
+			} else {
+				v.runes[r] = id
+			}
+		}
+	case KindByte:
+		for p, id := range index {
+			v.table[p[0]] = id
+		}
+	case KindBPE:
+		v.bpe.link(index)
+	}
+	return index
+}
+
+// lookup returns the id of a piece, or the unknown id.
+func (v *Vocab) lookup(p []byte) int {
+	if id, ok := v.index[string(p)]; ok {
+		return int(id)
+	}
+	return 0
+}
+
+// encoder turns streamed normalized text into token ids.
+type encoder struct {
+	v    *Vocab
+	emit func(id, chars int)
+	sp   *splitter
+	buf  []int32
+}
+
+func (v *Vocab) newEncoder(emit func(id, chars int)) *encoder {
+	e := &encoder{v: v, emit: emit}
+	e.sp = newSplitter(v.kind, v.lower, e.piece)
+	return e
+}
+
+func (e *encoder) piece(p []byte, chars int) {
+	if e.v.kind != KindBPE {
+		e.emit(e.v.lookup(p), chars)
+		return
+	}
+	e.buf = e.v.bpe.encode(e.buf[:0], p)
+	last := len(e.buf) - 1
+	for _, id := range e.buf[:last] {
+		n := int(e.v.chars[id])
+		chars -= n
+		e.emit(int(id), n)
+	}
+	// The last token takes what is left: lower-casing may have changed the
+	// rune count, and the text's count is what the split must sum to.
+	e.emit(int(e.buf[last]), chars)
+}
+
+func (e *encoder) write(p []byte) {
+	v := e.v
+	switch v.kind {
+	case KindChar:
+		for i := 0; i < len(p); {
+			if b := p[i]; b < utf8.RuneSelf {
+				e.emit(int(v.table[b]), 1)
+				i++
+				continue
+			}
+			r, size := utf8.DecodeRune(p[i:])
+			e.emit(int(v.runes[r]), 1)
+			i += size
+		}
+	case KindByte:
+		for _, b := range p {
+			e.emit(int(v.table[b]), byteChars(b))
+		}
+	default:
+		e.sp.write(p)
+	}
+}
+
+func (e *encoder) flush() { e.sp.flush() }
+
+// Encode appends the ids of text, which must be normalized (valid UTF-8,
+// "\n" line ends), to dst.
+func (v *Vocab) Encode(dst []int, text string) []int {
+	e := v.newEncoder(func(id, _ int) { dst = append(dst, id) })
+	e.write([]byte(text))
+	e.flush()
+	return dst
+}
+
+// EncodeReader streams the text of r (name is used in errors) through the
+// normalizer and the tokenizer, calling emit for each token with its id and
+// the number of characters of the text it covers. Memory stays bounded
+// whatever the size of r (except for a single piece longer than memory).
+func (v *Vocab) EncodeReader(ctx context.Context, r io.Reader, name string, emit func(id, chars int)) error {
+	e := v.newEncoder(emit)
+	if err := readText(ctx, r, name, false, e.write); err != nil {
+		return err
+	}
+	e.flush()
+	return nil
+}
+
+// Decode returns the text of ids: the pieces joined (for symbols, with one
+// space between the symbols of a line), the unknown entry as U+FFFD, the
+// line entry as "\n", the document entry as nothing.
+func (v *Vocab) Decode(ids []int) string { return string(v.AppendDecode(nil, ids)) }
+
+// AppendDecode appends the text of ids to dst; see Decode.
+func (v *Vocab) AppendDecode(dst []byte, ids []int) []byte {
+	prevSymbol := false
+	for _, id := range ids {
+		var p string
+		switch {
+		case id == 0:
+			p = "\uFFFD"
+		case id == 1 && v.boundary == "line":
+			p = "\n"
+		case id == 1 && v.boundary == "document":
+			p = ""
+		default:
+			p = v.pieces[id]
+		}
+		if v.kind == KindSymbols {
+			if p == "\n" || p == "" {
+				prevSymbol = false
+			} else {
+				if prevSymbol {
+					dst = append(dst, ' ')
+				}
+				prevSymbol = true
+			}
+		}
+		dst = append(dst, p...)
+	}
+	return dst
+}
