@@ -68,10 +68,38 @@ type Float interface {
 // threads also run there. Shapes that do not fit the slices panic.
 func Gemm[T Float](p *Pool, tA, tB bool, m, n, k int, alpha T, a []T, lda int, b []T, ldb int, beta T, c []T, ldc int) {
 	if unsafe.Sizeof(alpha) == 4 {
+		if blasGemm32 != nil {
+			blasRun(p, blasGemm32, tA, tB, m, n, k, float32(alpha), as32(a), lda, as32(b), ldb, float32(beta), as32(c), ldc)
+			return
+		}
 		gemmRun(p, kernel32(), tA, tB, m, n, k, float32(alpha), as32(a), lda, as32(b), ldb, float32(beta), as32(c), ldc)
 		return
 	}
+	if blasGemm64 != nil {
+		blasRun(p, blasGemm64, tA, tB, m, n, k, float64(alpha), as64(a), lda, as64(b), ldb, float64(beta), as64(c), ldc)
+		return
+	}
 	gemmRun(p, portable64, tA, tB, m, n, k, float64(alpha), as64(a), lda, as64(b), ldb, float64(beta), as64(c), ldc)
+}
+
+// blasGemm32 and blasGemm64 are set in builds with the openblas tag.
+var (
+	blasGemm32 func(p *Pool, tA, tB bool, m, n, k int, alpha float32, a []float32, lda int, b []float32, ldb int, beta float32, c []float32, ldc int)
+	blasGemm64 func(p *Pool, tA, tB bool, m, n, k int, alpha float64, a []float64, lda int, b []float64, ldb int, beta float64, c []float64, ldc int)
+)
+
+// blasRun checks the shapes and the degenerate cases as gemmRun does, then
+// calls an external BLAS.
+func blasRun[T Float](p *Pool, f func(*Pool, bool, bool, int, int, int, T, []T, int, []T, int, T, []T, int), tA, tB bool, m, n, k int, alpha T, a []T, lda int, b []T, ldb int, beta T, c []T, ldc int) {
+	checkGemm(tA, tB, m, n, k, len(a), lda, len(b), ldb, len(c), ldc)
+	if m == 0 || n == 0 {
+		return
+	}
+	if k == 0 || alpha == 0 {
+		scaleC(m, n, beta, c, ldc)
+		return
+	}
+	f(p, tA, tB, m, n, k, alpha, a, lda, b, ldb, beta, c, ldc)
 }
 
 // as32 views a slice of a type whose underlying type is float32 as
