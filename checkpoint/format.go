@@ -303,7 +303,7 @@ func Decode(data []byte) (*File, error) {
 	h.Write([]byte(strings.Repeat("0", checksumLen)))
 	h.Write(data[sumAt+checksumLen:])
 	if got := hex.EncodeToString(h.Sum(nil)); got != sum {
-		return nil, corruptf("checksum mismatch: file says %s, content hashes to %s", sum, got)
+		return nil, corruptf("checksum mismatch: content hashes to %.12s..., the file says %.12s...", got, sum)
 	}
 	if version < MinVersion || version > MaxVersion {
 		if version > MaxVersion {

@@ -104,16 +104,16 @@ func writeAtomic(path string, data []byte) (err error) {
 	}()
 	n, err := tmp.Write(data)
 	if err != nil {
-		return describe("write "+filepath.Base(tmp.Name()), err)
+		return describe("write temporary file", err)
 	}
 	if n != len(data) {
-		return fmt.Errorf("write %s: %d of %d bytes written: %w", filepath.Base(tmp.Name()), n, len(data), io.ErrShortWrite)
+		return fmt.Errorf("write %s: %d of %d bytes written: %w", tmp.Name(), n, len(data), io.ErrShortWrite)
 	}
 	if err := tmp.Sync(); err != nil {
-		return describe("sync "+filepath.Base(tmp.Name()), err)
+		return describe("sync temporary file", err)
 	}
 	if err := tmp.Close(); err != nil {
-		return describe("close "+filepath.Base(tmp.Name()), err)
+		return describe("close temporary file", err)
 	}
 	if err := rename(tmp.Name(), path); err != nil {
 		return describe("rename temporary file", err)
