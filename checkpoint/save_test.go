@@ -139,7 +139,9 @@ func TestSaveFaults(t *testing.T) {
 			if err := Save(p, old); err != nil {
 				t.Fatal(err)
 			}
-			defer func(c func(string, string) (tempFile, error), r func(string, string) error) { createTemp, rename = c, r }(createTemp, rename)
+			defer func(c func(string, string) (tempFile, error), r func(string, string) error) {
+				createTemp, rename = c, r
+			}(createTemp, rename)
 			if tc.file != nil {
 				createTemp = func(dir, base string) (tempFile, error) {
 					f, err := createTempFile(dir, base)
