@@ -1,0 +1,130 @@
+#!/usr/bin/python3
+"""Reference forward values and gradients for weft's recurrent cells, from
+PyTorch (Debian python3-torch 1.13.1, which reports its version as
+1.13.0a0; CPU, float64).
+
+Run from this folder with /usr/bin/python3 torch_reference.py; it writes
+torch_reference.json, which rnn/reference_test.go embeds. The network is
+embedding (V=5, E=3) -> 2 recurrent layers (H=4) -> linear output (V=5),
+with the mean cross-entropy over T=3 steps of B=2 streams, started from a
+non-zero carried state. Every weight is set deterministically:
+
+    W[r, c] = 0.1 * sin(1 + r + 0.5 c + k)
+
+with k the tensor's index in the order below (so no two tensors are equal).
+The JSON holds each tensor under weft's name and layout (the mapping is the
+one in rnn's package documentation):
+
+    weft layer.L.input_weight      = torch weight_ih_lL  (gate blocks in torch order)
+    weft layer.L.recurrent_weight  = torch weight_hh_lL
+    weft layer.L.bias              = bias_ih_lL + bias_hh_lL   (rnn, lstm)
+                                   = [b_ir+b_hr, b_iz+b_hz, b_in]  (gru)
+    weft layer.L.recurrent_bias    = b_hn                          (gru only)
+"""
+import json
+import math
+
+import torch
+
+torch.set_default_dtype(torch.float64)
+
+V, E, H, L, T, B = 5, 3, 4, 2, 3, 2
+INPUTS = [[0, 3], [4, 1], [2, 2]]   # [t][b]
+TARGETS = [[1, 4], [0, 2], [3, 1]]  # [t][b]
+
+
+def det(shape, k):
+    if len(shape) == 1:
+        return torch.tensor([0.1 * math.sin(1 + r + k) for r in range(shape[0])])
+    rows, cols = shape
+    return torch.tensor([[0.1 * math.sin(1 + r + 0.5 * c + k) for c in range(cols)] for r in range(rows)])
+
+
+def case(kind, nonlinearity="tanh"):
+    emb = torch.nn.Embedding(V, E)
+    if kind == "rnn":
+        net = torch.nn.RNN(E, H, num_layers=L, nonlinearity=nonlinearity)
+    elif kind == "lstm":
+        net = torch.nn.LSTM(E, H, num_layers=L)
+    else:
+        net = torch.nn.GRU(E, H, num_layers=L)
+    out = torch.nn.Linear(H, V)
+    k = 0
+    with torch.no_grad():
+        for p in [emb.weight] + [p for _, p in net.named_parameters()] + [out.weight, out.bias]:
+            p.copy_(det(tuple(p.shape), k))
+            k += 1
+        # Scale the weights up so the nonlinearities are not near-linear.
+        for _, p in net.named_parameters():
+            p.mul_(5)
+    h0 = torch.stack([det((B, H), 50 + l)[:, :] * 3 for l in range(L)])
+    c0 = torch.stack([det((B, H), 60 + l)[:, :] * 3 for l in range(L)])
+    x = emb(torch.tensor(INPUTS))
+    if kind == "lstm":
+        y, (hT, cT) = net(x, (h0, c0))
+    else:
+        y, hT = net(x, h0)
+        cT = None
+    logits = out(y)  # T x B x V
+    loss = torch.nn.functional.cross_entropy(logits.reshape(T * B, V), torch.tensor(TARGETS).reshape(T * B))
+    loss.backward()
+
+    def flat(t):
+        return [float(v) for v in t.detach().reshape(-1)]
+
+    tensors = {}
+
+    def put(name, value, grad):
+        tensors[name] = {"shape": list(value.shape), "value": flat(value), "grad": flat(grad)}
+
+    put("embedding.weight", emb.weight, emb.weight.grad)
+    for l in range(L):
+        wi, wh = getattr(net, f"weight_ih_l{l}"), getattr(net, f"weight_hh_l{l}")
+        bi, bh = getattr(net, f"bias_ih_l{l}"), getattr(net, f"bias_hh_l{l}")
+        put(f"layer.{l}.input_weight", wi, wi.grad)
+        put(f"layer.{l}.recurrent_weight", wh, wh.grad)
+        if kind == "gru":
+            b = torch.cat([bi[:2 * H] + bh[:2 * H], bi[2 * H:]])
+            # d/d(b_ir) = d/d(b_hr), so either grad is weft's bias grad.
+            assert torch.allclose(bi.grad[:2 * H], bh.grad[:2 * H], rtol=0, atol=1e-15)
+            put(f"layer.{l}.bias", b.detach(), bi.grad)
+            put(f"layer.{l}.recurrent_bias", bh[2 * H:].detach(), bh.grad[2 * H:])
+        else:
+            assert torch.allclose(bi.grad, bh.grad, rtol=0, atol=1e-15)
+            put(f"layer.{l}.bias", (bi + bh).detach(), bi.grad)
+    put("output.weight", out.weight, out.weight.grad)
+    put("output.bias", out.bias, out.bias.grad)
+    res = {
+        "loss": float(loss),
+        "logits": flat(logits),
+        "h0": flat(h0),
+        "final_h": flat(hT),
+        "tensors": tensors,
+    }
+    if kind == "lstm":
+        res["c0"] = flat(c0)
+        res["final_c"] = flat(cT)
+    return res
+
+
+def main():
+    torch.manual_seed(0)  # nothing random is drawn; set for good measure
+    ref = {
+        "source": "PyTorch %s, torch_reference.py" % torch.__version__,
+        "V": V, "E": E, "H": H, "layers": L, "T": T, "B": B,
+        "inputs": [v for row in INPUTS for v in row],
+        "targets": [v for row in TARGETS for v in row],
+        "cases": {
+            "rnn-tanh": case("rnn", "tanh"),
+            "rnn-relu": case("rnn", "relu"),
+            "lstm": case("lstm"),
+            "gru-reset-after": case("gru"),
+        },
+    }
+    with open("torch_reference.json", "w") as f:
+        json.dump(ref, f, indent=1)
+        f.write("\n")
+
+
+if __name__ == "__main__":
+    main()
