@@ -1,0 +1,813 @@
+package eval
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"math/rand/v2"
+	"sync"
+)
+
+// MaxHMMStates is the largest number of hidden states accepted.
+const MaxHMMStates = 4096
+
+// HMM is a discrete hidden Markov model with N states over V symbols:
+//
+//	P(s_1 = i)           = π_i
+//	P(s_t = j | s_t-1 = i) = a_ij
+//	P(o_t = k | s_t = i)   = b_i(k)
+//
+// As a language model it predicts the next token from the filtered state
+// distribution (the scaled forward algorithm, Rabiner 1989 §V.A), so all
+// it remembers of the past fits in a state of log2 N bits (StateBits). A
+// boundary token ends a document: the token after it starts again from π.
+// It is safe for concurrent use except during training.
+type HMM struct {
+	n, v     int
+	boundary int
+	pi       []float64 // π_i
+	a        []float64 // a[i*n+j] = a_ij
+	bt       []float64 // bt[k*n+i] = b_i(k), symbol-major
+	// floor is the emission floor ε: scoring uses (1-ε)·b_i(k) + ε/V so
+	// that a symbol never seen in training keeps a nonzero probability.
+	floor float64
+
+	// LogLik holds the training log-likelihood in nats before each
+	// Baum-Welch iteration and after the last one.
+	LogLik []float64
+}
+
+// NewHMM returns the model with start probabilities pi (n), transitions a
+// (n×n, row i the distribution after state i) and emissions b (n×v, row i
+// the distribution of state i's symbols), all row-major. Rows must be
+// distributions within 1e-9. The model has no boundary token and no
+// emission floor.
+func NewHMM(pi, a, b []float64, n, v int) (*HMM, error) {
+	if n < 1 || v < 1 || len(pi) != n || len(a) != n*n || len(b) != n*v {
+		return nil, fmt.Errorf("hmm: shapes π %d, a %d, b %d do not fit %d states and %d symbols", len(pi), len(a), len(b), n, v)
+	}
+	rows := [][]float64{pi}
+	for i := range n {
+		rows = append(rows, a[i*n:(i+1)*n], b[i*v:(i+1)*v])
+	}
+	for _, r := range rows {
+		s := 0.0
+		for _, p := range r {
+			if !(p >= 0) {
+				return nil, errors.New("hmm: negative or NaN probability")
+			}
+			s += p
+		}
+		if math.Abs(s-1) > 1e-9 {
+			return nil, fmt.Errorf("hmm: a distribution sums to %g, not 1", s)
+		}
+	}
+	h := &HMM{n: n, v: v, boundary: NoBoundary}
+	h.pi = append([]float64(nil), pi...)
+	h.a = append([]float64(nil), a...)
+	h.bt = make([]float64, v*n)
+	for i := range n {
+		for k := range v {
+			h.bt[k*n+i] = b[i*v+k]
+		}
+	}
+	return h, nil
+}
+
+// States is N.
+func (h *HMM) States() int { return h.n }
+
+// VocabSize is V.
+func (h *HMM) VocabSize() int { return h.v }
+
+// StateBits is log2 N, the memory the model's state can hold.
+func (h *HMM) StateBits() float64 { return math.Log2(float64(h.n)) }
+
+// Name is "hmm-N".
+func (h *HMM) Name() string { return fmt.Sprintf("hmm-%d", h.n) }
+
+// Kind is "hmm".
+func (h *HMM) Kind() string { return "hmm" }
+
+// Start is π_i.
+func (h *HMM) Start(i int) float64 { return h.pi[i] }
+
+// Transition is a_ij.
+func (h *HMM) Transition(i, j int) float64 { return h.a[i*h.n+j] }
+
+// Emission is b_i(k).
+func (h *HMM) Emission(i, k int) float64 { return h.bt[k*h.n+i] }
+
+func (h *HMM) checkObs(obs []int) error {
+	for t, o := range obs {
+		if o < 0 || o >= h.v {
+			return fmt.Errorf("%s: symbol %d at position %d outside 0..%d", h.Name(), o, t, h.v-1)
+		}
+	}
+	return nil
+}
+
+// Forward writes the unscaled forward trellis of obs to dst (len(obs)·N,
+// dst[t*N+i] = α_t(i) = P(o_1..o_t, s_t = i)) and returns P(o_1..o_T) =
+// Σ_i α_T(i) (Rabiner 1989, eq. 19-21). The values underflow on long
+// sequences: it is meant for short ones; LogProbs scales. Boundary tokens
+// and the emission floor are ignored.
+func (h *HMM) Forward(dst []float64, obs []int) (float64, error) {
+	n := h.n
+	if len(dst) != len(obs)*n {
+		panic("eval: Forward: len(dst) != len(obs)*States()")
+	}
+	if len(obs) == 0 {
+		return 1, nil
+	}
+	if err := h.checkObs(obs); err != nil {
+		return 0, err
+	}
+	for i := range n {
+		dst[i] = h.pi[i] * h.bt[obs[0]*n+i]
+	}
+	for t := 1; t < len(obs); t++ {
+		prev, cur := dst[(t-1)*n:t*n], dst[t*n:(t+1)*n]
+		vecMat(cur, prev, h.a, n)
+		b := h.bt[obs[t]*n : (obs[t]+1)*n]
+		for j := range cur {
+			cur[j] *= b[j]
+		}
+	}
+	p := 0.0
+	for _, x := range dst[(len(obs)-1)*n:] {
+		p += x
+	}
+	return p, nil
+}
+
+// Viterbi returns the most probable state path for obs and the natural
+// log of its joint probability with obs, max over paths of
+// P(o_1..o_T, s_1..s_T) (Rabiner 1989, eq. 30-35, in log space). Ties go
+// to the lower state. Boundary tokens and the emission floor are ignored.
+func (h *HMM) Viterbi(obs []int) ([]int, float64, error) {
+	if len(obs) == 0 {
+		return nil, 0, nil
+	}
+	if err := h.checkObs(obs); err != nil {
+		return nil, 0, err
+	}
+	n := h.n
+	delta := make([]float64, n)
+	next := make([]float64, n)
+	back := make([]int32, len(obs)*n)
+	for i := range n {
+		delta[i] = math.Log(h.pi[i]) + math.Log(h.bt[obs[0]*n+i])
+	}
+	for t := 1; t < len(obs); t++ {
+		for j := range n {
+			best, arg := math.Inf(-1), 0
+			for i := range n {
+				if s := delta[i] + math.Log(h.a[i*n+j]); s > best {
+					best, arg = s, i
+				}
+			}
+			next[j] = best + math.Log(h.bt[obs[t]*n+j])
+			back[t*n+j] = int32(arg)
+		}
+		delta, next = next, delta
+	}
+	best, arg := math.Inf(-1), 0
+	for i, d := range delta {
+		if d > best {
+			best, arg = d, i
+		}
+	}
+	path := make([]int, len(obs))
+	path[len(obs)-1] = arg
+	for t := len(obs) - 1; t > 0; t-- {
+		path[t-1] = int(back[t*n+path[t]])
+	}
+	return path, best, nil
+}
+
+// Posteriors writes P(s_t = i | o_1..o_T) to dst[t*N+i] by the scaled
+// forward-backward algorithm (Rabiner 1989, eq. 27) with the same
+// conventions as Forward, and returns ln P(o_1..o_T).
+func (h *HMM) Posteriors(dst []float64, obs []int) (float64, error) {
+	n := h.n
+	if len(dst) != len(obs)*n {
+		panic("eval: Posteriors: len(dst) != len(obs)*States()")
+	}
+	if err := h.checkObs(obs); err != nil {
+		return 0, err
+	}
+	acc := newBWAcc(n, h.v)
+	fb := newFB(n, len(obs))
+	ll := fb.run(h, obs, acc, dst)
+	return ll, nil
+}
+
+// LogProbs writes ln P(seq[i] | seq[:i]) by the scaled forward algorithm
+// with the emission floor, restarting from π after each boundary token.
+func (h *HMM) LogProbs(ctx context.Context, dst []float64, seq []int) error {
+	if len(dst) != len(seq) {
+		panic("eval: LogProbs: len(dst) != len(seq)")
+	}
+	if err := h.checkObs(seq); err != nil {
+		return err
+	}
+	n := h.n
+	alpha := make([]float64, n)
+	pred := make([]float64, n)
+	start := true
+	eps := h.floor / float64(h.v)
+	for t, o := range seq {
+		if t%1024 == 0 {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+		}
+		if start {
+			copy(pred, h.pi)
+		} else {
+			vecMat(pred, alpha, h.a, n)
+		}
+		b := h.bt[o*n : (o+1)*n]
+		var p float64
+		for i := range n {
+			alpha[i] = pred[i] * ((1-h.floor)*b[i] + eps)
+			p += alpha[i]
+		}
+		dst[t] = math.Log(p)
+		if p > 0 {
+			inv := 1 / p
+			for i := range alpha {
+				alpha[i] *= inv
+			}
+		}
+		start = o == h.boundary
+	}
+	return nil
+}
+
+// Distribution writes P(w | history) for every symbol w.
+func (h *HMM) Distribution(dst []float64, history []int) error {
+	if len(dst) != h.v {
+		panic("eval: Distribution: len(dst) != VocabSize()")
+	}
+	if err := h.checkObs(history); err != nil {
+		return err
+	}
+	n := h.n
+	pred := append([]float64(nil), h.pi...)
+	alpha := make([]float64, n)
+	eps := h.floor / float64(h.v)
+	for _, o := range history {
+		b := h.bt[o*n : (o+1)*n]
+		var p float64
+		for i := range n {
+			alpha[i] = pred[i] * ((1-h.floor)*b[i] + eps)
+			p += alpha[i]
+		}
+		for i := range alpha {
+			alpha[i] /= p
+		}
+		if o == h.boundary {
+			copy(pred, h.pi)
+		} else {
+			vecMat(pred, alpha, h.a, n)
+		}
+	}
+	for w := range dst {
+		b := h.bt[w*n : (w+1)*n]
+		var p float64
+		for i := range n {
+			p += pred[i] * ((1-h.floor)*b[i] + eps)
+		}
+		dst[w] = p
+	}
+	return nil
+}
+
+// HMMOptions sets up TrainHMM.
+type HMMOptions struct {
+	// States is N, 2..MaxHMMStates.
+	States int
+	// MaxIterations caps the Baum-Welch iterations, at least 1.
+	MaxIterations int
+	// Tolerance stops training when an iteration raises the
+	// log-likelihood by less than Tolerance·|log-likelihood|; zero runs
+	// all MaxIterations.
+	Tolerance float64
+	// Seed seeds the initial parameters.
+	Seed uint64
+	// Boundary is the token id that ends a document, or NoBoundary.
+	Boundary int
+	// EmissionFloor is the weight ε of the uniform distribution mixed into
+	// the emissions when scoring, (1-ε)·b_i(k) + ε/V, in 0..1. Training
+	// itself is plain maximum likelihood. Zero means 1e-6; a negative value
+	// means none.
+	EmissionFloor float64
+	// Threads is the number of goroutines sharing the transition counts,
+	// at least 1. Zero means 2.
+	Threads int
+	// Progress hears about each iteration (stage "baum-welch").
+	Progress ProgressFunc
+}
+
+// TrainHMM fits an HMM to the training tokens train (ids below vocab) by
+// Baum-Welch (Baum et al. 1970; Rabiner 1989 §III.C), each document (the
+// stretch up to and including a boundary token) an independent sequence.
+//
+// Initialisation, from a generator seeded by opts.Seed: π and every row
+// of a are uniform times a factor 1+u (u uniform on [0,1)), normalised;
+// row i of b is the training unigram distribution with add-one, times
+// 1+u a symbol, normalised, so states start near the unigram model but
+// apart from each other.
+//
+// Each iteration runs the scaled forward-backward algorithm over every
+// document. It keeps the scaled forward vectors only at every 256th
+// position and recomputes them a block at a time in the backward sweep, so
+// memory is O(N·256 + T) whatever T, for about 8·N²·T floating-point
+// operations an iteration: 2·N²·T for each of the forward pass, its
+// recomputation, the backward pass and the expected transition counts.
+func TrainHMM(ctx context.Context, train []int, vocab int, opts HMMOptions) (*HMM, error) {
+	n := opts.States
+	if n < 2 || n > MaxHMMStates {
+		return nil, fmt.Errorf("hmm: %d states outside 2..%d", n, MaxHMMStates)
+	}
+	if opts.MaxIterations < 1 {
+		return nil, fmt.Errorf("hmm: %d iterations, want at least 1", opts.MaxIterations)
+	}
+	if vocab < 1 || len(train) == 0 {
+		return nil, errors.New("hmm: no training tokens")
+	}
+	if opts.Boundary < NoBoundary || opts.Boundary >= vocab {
+		return nil, fmt.Errorf("hmm: boundary token %d outside 0..%d", opts.Boundary, vocab-1)
+	}
+	floor := opts.EmissionFloor
+	switch {
+	case floor == 0:
+		floor = 1e-6
+	case floor < 0:
+		floor = 0
+	case floor > 1:
+		return nil, fmt.Errorf("hmm: emission floor %g above 1", floor)
+	}
+	h := &HMM{n: n, v: vocab, boundary: opts.Boundary, floor: floor}
+	for i, o := range train {
+		if o < 0 || o >= vocab {
+			return nil, fmt.Errorf("hmm: token %d at position %d outside 0..%d", o, i, vocab-1)
+		}
+	}
+	h.initRandom(train, opts.Seed)
+	prev := math.Inf(-1)
+	for it := range opts.MaxIterations {
+		opts.Progress.report("baum-welch", it, opts.MaxIterations)
+		ll, err := h.Iterate(ctx, train, opts.Threads)
+		if err != nil {
+			return nil, err
+		}
+		if opts.Tolerance > 0 && it > 0 && ll-prev < opts.Tolerance*math.Abs(ll) {
+			break
+		}
+		prev = ll
+	}
+	final, err := h.logLikelihood(ctx, train)
+	if err != nil {
+		return nil, err
+	}
+	h.LogLik = append(h.LogLik, final)
+	opts.Progress.report("baum-welch", opts.MaxIterations, opts.MaxIterations)
+	return h, nil
+}
+
+func (h *HMM) initRandom(train []int, seed uint64) {
+	n, v := h.n, h.v
+	rng := rand.New(rand.NewPCG(seed, 0x51ed_27a0_b3c4_9d11))
+	h.pi = make([]float64, n)
+	h.a = make([]float64, n*n)
+	h.bt = make([]float64, v*n)
+	randRow := func(dst []float64, base func(k int) float64) {
+		s := 0.0
+		for k := range dst {
+			dst[k] = base(k) * (1 + rng.Float64())
+			s += dst[k]
+		}
+		for k := range dst {
+			dst[k] /= s
+		}
+	}
+	one := func(int) float64 { return 1 }
+	randRow(h.pi, one)
+	for i := range n {
+		randRow(h.a[i*n:(i+1)*n], one)
+	}
+	freq := TokenCounts(train, v)
+	row := make([]float64, v)
+	for i := range n {
+		randRow(row, func(k int) float64 { return float64(freq[k] + 1) })
+		for k := range v {
+			h.bt[k*n+i] = row[k]
+		}
+	}
+}
+
+// segments calls f for every document of seq.
+func (h *HMM) segments(seq []int, f func(seg []int) error) error {
+	start := 0
+	for t, o := range seq {
+		if o == h.boundary {
+			if err := f(seq[start : t+1]); err != nil {
+				return err
+			}
+			start = t + 1
+		}
+	}
+	if start < len(seq) {
+		return f(seq[start:])
+	}
+	return nil
+}
+
+func (h *HMM) logLikelihood(ctx context.Context, seq []int) (float64, error) {
+	lp := make([]float64, len(seq))
+	saved := h.floor
+	h.floor = 0
+	err := h.LogProbs(ctx, lp, seq)
+	h.floor = saved
+	var s float64
+	for _, x := range lp {
+		s += x
+	}
+	return s, err
+}
+
+// Iterate runs one Baum-Welch iteration on seq (re-estimating π, a and b
+// in place) with the given number of goroutines (zero: 2) and returns the
+// log-likelihood in nats of seq under the parameters before the update,
+// which it also appends to LogLik. By the EM property (Dempster, Laird &
+// Rubin 1977) the next iteration's value is never lower.
+func (h *HMM) Iterate(ctx context.Context, seq []int, threads int) (float64, error) {
+	if threads <= 0 {
+		threads = 2
+	}
+	if err := h.checkObs(seq); err != nil {
+		return 0, err
+	}
+	n, v := h.n, h.v
+	acc := newBWAcc(n, v)
+	acc.threads = threads
+	var fb *fbWork
+	ll := 0.0
+	err := h.segments(seq, func(seg []int) error {
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		if fb == nil || cap(fb.scale) < len(seg) {
+			fb = newFB(n, len(seg))
+		}
+		ll += fb.run(h, seg, acc, nil)
+		return nil
+	})
+	if err != nil {
+		return 0, err
+	}
+	h.LogLik = append(h.LogLik, ll)
+	h.mstep(acc)
+	return ll, nil
+}
+
+// mstep sets the parameters to the normalised expected counts; a state
+// never visited keeps its rows.
+func (h *HMM) mstep(acc *bwAcc) {
+	n, v := h.n, h.v
+	if s := sum(acc.pi); s > 0 {
+		for i := range n {
+			h.pi[i] = acc.pi[i] / s
+		}
+	}
+	for i := range n {
+		row := acc.x[i*n : (i+1)*n]
+		arow := h.a[i*n : (i+1)*n]
+		s := 0.0
+		for j := range row {
+			row[j] *= arow[j] // expected transitions a_ij·Σ_t α̂_t(i)·u_t+1(j)
+			s += row[j]
+		}
+		if s > 0 {
+			for j := range row {
+				arow[j] = row[j] / s
+			}
+		}
+	}
+	for i := range n {
+		if acc.gamma[i] <= 0 {
+			continue
+		}
+		inv := 1 / acc.gamma[i]
+		for k := range v {
+			h.bt[k*n+i] = acc.b[k*n+i] * inv
+		}
+	}
+}
+
+func sum(x []float64) float64 {
+	s := 0.0
+	for _, v := range x {
+		s += v
+	}
+	return s
+}
+
+// bwAcc holds the expected counts of one Baum-Welch iteration.
+type bwAcc struct {
+	n, v    int
+	threads int
+	pi      []float64 // Σ over documents of γ_1(i)
+	x       []float64 // x[i*n+j] = Σ_t α̂_t(i)·u_t+1(j)
+	b       []float64 // b[k*n+i] = Σ_{t: o_t=k} γ_t(i)
+	gamma   []float64 // Σ_t γ_t(i)
+}
+
+func newBWAcc(n, v int) *bwAcc {
+	return &bwAcc{n: n, v: v, threads: 1,
+		pi: make([]float64, n), x: make([]float64, n*n),
+		b: make([]float64, v*n), gamma: make([]float64, n)}
+}
+
+// fbBlock is the number of positions between stored forward vectors.
+const fbBlock = 256
+
+// fbWork is the scratch space of one scaled forward-backward pass.
+type fbWork struct {
+	n     int
+	scale []float64 // c_t, the forward scale factors
+	ckpt  []float64 // α̂ at the start of every block
+	alpha []float64 // α̂_t of the current block, position-major
+	u     []float64 // u_t(j) = b_j(o_t)·β̂_t(j)/c_t of the current block
+	aT    []float64 // alpha transposed (state-major)
+	uT    []float64 // u shifted by one position, transposed
+	beta  []float64
+	tmp   []float64
+}
+
+func newFB(n, T int) *fbWork {
+	return &fbWork{n: n,
+		scale: make([]float64, T),
+		ckpt:  make([]float64, ((T+fbBlock-1)/fbBlock)*n),
+		alpha: make([]float64, fbBlock*n), u: make([]float64, (fbBlock+1)*n),
+		aT: make([]float64, fbBlock*n), uT: make([]float64, fbBlock*n),
+		beta: make([]float64, n), tmp: make([]float64, n)}
+}
+
+// forwardStep computes α̂_t from α̂_t-1 (prev, or π when prev is nil) and
+// returns c_t = Σ_j (prev·A)_j·b_j(o).
+func (h *HMM) forwardStep(cur, prev []float64, o int) float64 {
+	n := h.n
+	if prev == nil {
+		copy(cur, h.pi)
+	} else {
+		vecMat(cur, prev, h.a, n)
+	}
+	b := h.bt[o*n : (o+1)*n]
+	c := 0.0
+	for j := range cur {
+		cur[j] *= b[j]
+		c += cur[j]
+	}
+	if c > 0 {
+		inv := 1 / c
+		for j := range cur {
+			cur[j] *= inv
+		}
+	}
+	return c
+}
+
+// run does forward-backward on one document, adds the expected counts to
+// acc, writes the posteriors γ_t to post when it is not nil, and returns
+// ln P(obs).
+func (fb *fbWork) run(h *HMM, obs []int, acc *bwAcc, post []float64) float64 {
+	n, T := h.n, len(obs)
+	if T == 0 {
+		return 0
+	}
+	scale := fb.scale[:T]
+	// Forward pass, keeping the first vector of every block.
+	cur, prev := fb.beta, fb.tmp
+	ll := 0.0
+	for t, o := range obs {
+		var p []float64
+		if t > 0 {
+			p = prev
+		}
+		scale[t] = h.forwardStep(cur, p, o)
+		ll += math.Log(scale[t])
+		if t%fbBlock == 0 {
+			copy(fb.ckpt[(t/fbBlock)*n:], cur)
+		}
+		cur, prev = prev, cur
+	}
+	if math.IsInf(ll, -1) {
+		return ll // impossible under the model: nothing to learn
+	}
+	// Backward sweep, a block at a time from the last.
+	beta := fb.beta
+	for i := range beta {
+		beta[i] = 1
+	}
+	nb := (T + fbBlock - 1) / fbBlock
+	for blk := nb - 1; blk >= 0; blk-- {
+		t0 := blk * fbBlock
+		t1 := min(T, t0+fbBlock)
+		L := t1 - t0
+		copy(fb.alpha[:n], fb.ckpt[blk*n:(blk+1)*n])
+		for t := t0 + 1; t < t1; t++ {
+			h.forwardStep(fb.alpha[(t-t0)*n:(t-t0+1)*n], fb.alpha[(t-t0-1)*n:(t-t0)*n], obs[t])
+		}
+		// fb.u[L*n:] holds u_t1 from the previous (later) block.
+		for t := t1 - 1; t >= t0; t-- {
+			k := t - t0
+			if t < T-1 {
+				matVec(beta, h.a, fb.u[(k+1)*n:(k+2)*n], n) // β̂_t = A·u_t+1
+			}
+			a := fb.alpha[k*n : (k+1)*n]
+			o := obs[t]
+			b := h.bt[o*n : (o+1)*n]
+			bacc := acc.b[o*n : (o+1)*n]
+			inv := 1 / scale[t]
+			u := fb.u[k*n : (k+1)*n]
+			for i := range n {
+				g := a[i] * beta[i]
+				bacc[i] += g
+				acc.gamma[i] += g
+				u[i] = b[i] * beta[i] * inv
+			}
+			if post != nil {
+				for i := range n {
+					post[t*n+i] = a[i] * beta[i]
+				}
+			}
+			if t == 0 {
+				for i := range n {
+					acc.pi[i] += a[i] * beta[i]
+				}
+			}
+		}
+		// Expected transitions between positions t and t+1 of the block
+		// (the last position pairs with u_t1 of the next block).
+		pairs := L
+		if t1 == T {
+			pairs = L - 1
+		}
+		if pairs > 0 {
+			transpose(fb.aT, fb.alpha[:pairs*n], pairs, n)
+			transpose(fb.uT, fb.u[n:(pairs+1)*n], pairs, n)
+			gemmNT(acc.x, fb.aT, fb.uT, n, pairs, acc.threads)
+		}
+		// The earlier block (always full) reads u_t0 at its index L.
+		copy(fb.u[fbBlock*n:(fbBlock+1)*n], fb.u[:n])
+	}
+	return ll
+}
+
+// transpose writes the rows×cols matrix src (row-major) to dst as
+// cols×rows.
+func transpose(dst, src []float64, rows, cols int) {
+	for r := range rows {
+		row := src[r*cols : (r+1)*cols]
+		for c, x := range row {
+			dst[c*rows+r] = x
+		}
+	}
+}
+
+// vecMat sets dst[j] = Σ_i x[i]·m[i*n+j].
+func vecMat(dst, x, m []float64, n int) {
+	clear(dst)
+	for i, xi := range x {
+		if xi == 0 {
+			continue
+		}
+		row := m[i*n : (i+1)*n]
+		axpy(dst[:n], xi, row)
+	}
+}
+
+func axpy(dst []float64, a float64, x []float64) {
+	x = x[:len(dst)]
+	j := 0
+	for ; j+4 <= len(dst); j += 4 {
+		d := dst[j : j+4 : j+4]
+		s := x[j : j+4 : j+4]
+		d[0] += a * s[0]
+		d[1] += a * s[1]
+		d[2] += a * s[2]
+		d[3] += a * s[3]
+	}
+	for ; j < len(dst); j++ {
+		dst[j] += a * x[j]
+	}
+}
+
+// matVec sets dst[i] = Σ_j m[i*n+j]·x[j].
+func matVec(dst, m, x []float64, n int) {
+	for i := range dst {
+		dst[i] = dot(m[i*n:(i+1)*n], x)
+	}
+}
+
+func dot(a, b []float64) float64 {
+	b = b[:len(a)]
+	var s0, s1, s2, s3 float64
+	j := 0
+	for ; j+4 <= len(a); j += 4 {
+		x := a[j : j+4 : j+4]
+		y := b[j : j+4 : j+4]
+		s0 += x[0] * y[0]
+		s1 += x[1] * y[1]
+		s2 += x[2] * y[2]
+		s3 += x[3] * y[3]
+	}
+	for ; j < len(a); j++ {
+		s0 += a[j] * b[j]
+	}
+	return (s0 + s1) + (s2 + s3)
+}
+
+// gemmNT adds a·bᵀ to c, with a and b both n×k row-major and c n×n, in
+// 4×4 register tiles, the rows of c split over threads goroutines.
+func gemmNT(c, a, b []float64, n, k, threads int) {
+	if threads <= 1 || n < 32 {
+		gemmNTRows(c, a, b, n, k, 0, n)
+		return
+	}
+	var wg sync.WaitGroup
+	step := (n/threads + 3) &^ 3
+	for lo := 0; lo < n; lo += step {
+		hi := min(n, lo+step)
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			gemmNTRows(c, a, b, n, k, lo, hi)
+		}()
+	}
+	wg.Wait()
+}
+
+func gemmNTRows(c, a, b []float64, n, k, lo, hi int) {
+	i := lo
+	for ; i+4 <= hi; i += 4 {
+		a0, a1, a2, a3 := a[i*k:(i+1)*k], a[(i+1)*k:(i+2)*k], a[(i+2)*k:(i+3)*k], a[(i+3)*k:(i+4)*k]
+		j := 0
+		for ; j+4 <= n; j += 4 {
+			b0, b1, b2, b3 := b[j*k:(j+1)*k], b[(j+1)*k:(j+2)*k], b[(j+2)*k:(j+3)*k], b[(j+3)*k:(j+4)*k]
+			var c00, c01, c02, c03, c10, c11, c12, c13, c20, c21, c22, c23, c30, c31, c32, c33 float64
+			for t := range k {
+				x0, x1, x2, x3 := a0[t], a1[t], a2[t], a3[t]
+				y0, y1, y2, y3 := b0[t], b1[t], b2[t], b3[t]
+				c00 += x0 * y0
+				c01 += x0 * y1
+				c02 += x0 * y2
+				c03 += x0 * y3
+				c10 += x1 * y0
+				c11 += x1 * y1
+				c12 += x1 * y2
+				c13 += x1 * y3
+				c20 += x2 * y0
+				c21 += x2 * y1
+				c22 += x2 * y2
+				c23 += x2 * y3
+				c30 += x3 * y0
+				c31 += x3 * y1
+				c32 += x3 * y2
+				c33 += x3 * y3
+			}
+			r0, r1, r2, r3 := c[i*n+j:i*n+j+4], c[(i+1)*n+j:(i+1)*n+j+4], c[(i+2)*n+j:(i+2)*n+j+4], c[(i+3)*n+j:(i+3)*n+j+4]
+			r0[0] += c00
+			r0[1] += c01
+			r0[2] += c02
+			r0[3] += c03
+			r1[0] += c10
+			r1[1] += c11
+			r1[2] += c12
+			r1[3] += c13
+			r2[0] += c20
+			r2[1] += c21
+			r2[2] += c22
+			r2[3] += c23
+			r3[0] += c30
+			r3[1] += c31
+			r3[2] += c32
+			r3[3] += c33
+		}
+		for ; j < n; j++ {
+			for r := range 4 {
+				c[(i+r)*n+j] += dot(a[(i+r)*k:(i+r+1)*k], b[j*k:(j+1)*k])
+			}
+		}
+	}
+	for ; i < hi; i++ {
+		for j := range n {
+			c[i*n+j] += dot(a[i*k:(i+1)*k], b[j*k:(j+1)*k])
+		}
+	}
+}
