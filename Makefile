@@ -1,0 +1,60 @@
+# weft's build, test and demo targets. `make demo` and `make test` are the two
+# set-up commands of the README: each installs what it needs (Go modules; the
+# real test corpora into .cache/corpora) or says exactly what is missing.
+
+GO        ?= go
+BIN       := bin/weft
+VERSION   ?= $(shell git describe --tags --always --dirty 2>/dev/null || echo dev)
+LDFLAGS   := -X main.version=$(VERSION)
+# Packages that run goroutines of their own: tested again under the race detector.
+RACE_PKGS := ./rnn/linalg/... ./checkpoint/... ./cmd/...
+FUZZTIME  ?= 10s
+
+.PHONY: all build test demo bench bench-peer fuzz lint docs references corpora clean check-go
+
+all: build
+
+check-go:
+	@command -v $(GO) >/dev/null 2>&1 || { echo "make: Go is not installed (weft needs Go 1.26 or newer: https://go.dev/dl)" >&2; exit 1; }
+
+build: check-go
+	$(GO) build -ldflags "$(LDFLAGS)" -o $(BIN) ./cmd/weft
+
+corpora:
+	@./testdata/fetch-corpora.sh
+
+test: check-go corpora
+	$(GO) mod download
+	$(GO) vet ./...
+	$(GO) test -count=1 ./...
+	$(GO) test -count=1 -race -short $(RACE_PKGS)
+
+demo: build
+	./$(BIN) demo
+
+bench: check-go corpora
+	$(GO) test -run '^$$' -bench . -benchmem -benchtime 3x ./...
+
+bench-peer: build
+	./testdata/bench-peer.sh
+
+fuzz: check-go
+	@set -e; for pkg in $$($(GO) list ./...); do \
+		for f in $$($(GO) test -list '^Fuzz' $$pkg | grep '^Fuzz' || true); do \
+			echo "fuzz $$pkg $$f ($(FUZZTIME))"; \
+			$(GO) test -run '^$$' -fuzz "^$$f$$" -fuzztime $(FUZZTIME) $$pkg; \
+		done; \
+	done
+
+lint: check-go
+	@out=$$(gofmt -l $$(git ls-files '*.go')); if [ -n "$$out" ]; then echo "gofmt needed:"; echo "$$out"; exit 1; fi
+	$(GO) vet ./...
+
+docs: check-go
+	$(GO) run ./configs/keydoc -w README.md
+
+references:
+	./testdata/references.sh
+
+clean:
+	rm -rf bin .cache
