@@ -2,6 +2,7 @@ package linalg
 
 import (
 	"fmt"
+	"math"
 	"math/rand/v2"
 	"testing"
 )
@@ -78,5 +79,81 @@ func BenchmarkSgemm(b *testing.B) {
 				})
 			}
 		}
+	}
+}
+
+var sinkF64 float64
+
+// BenchmarkElementwise compares the float32 kernels with the loop over
+// package math they replace, per element (ns/op is per slice of n).
+func BenchmarkElementwise(b *testing.B) {
+	const n = 4096
+	rng := rand.New(rand.NewPCG(2, 2))
+	x := make([]float32, n)
+	for i := range x {
+		x[i] = float32(rng.NormFloat64() * 3)
+	}
+	dst := make([]float32, n)
+	mathLoop := func(f func(float64) float64) func(dst, x []float32) {
+		return func(dst, x []float32) {
+			for i, v := range x {
+				dst[i] = float32(f(float64(v)))
+			}
+		}
+	}
+	sigmoid64 := func(v float64) float64 { return 1 / (1 + math.Exp(-v)) }
+	cases := []struct {
+		fn, impl string
+		f        func(dst, x []float32)
+	}{
+		{"exp", "kernel", Exp[float32]},
+		{"exp", "math", mathLoop(math.Exp)},
+		{"sigmoid", "kernel", Sigmoid[float32]},
+		{"sigmoid", "math", mathLoop(sigmoid64)},
+		{"tanh", "kernel", Tanh[float32]},
+		{"tanh", "math", mathLoop(math.Tanh)},
+	}
+	for _, tc := range cases {
+		b.Run(fmt.Sprintf("fn=%s/impl=%s/n=%d", tc.fn, tc.impl, n), func(b *testing.B) {
+			b.ReportAllocs()
+			for i := 0; i < b.N; i++ {
+				tc.f(dst, x)
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/n, "ns/element")
+			sinkF32 = dst[0]
+		})
+	}
+	// Softmax cross-entropy over the output layer of ENGINE.md's model:
+	// 32 rows of V=96, and a large vocabulary, V=10000.
+	for _, v := range []int{96, 10000} {
+		const rows = 32
+		logits := make([]float32, rows*v)
+		for i := range logits {
+			logits[i] = float32(rng.NormFloat64() * 2)
+		}
+		targets := make([]int, rows)
+		for i := range targets {
+			targets[i] = rng.IntN(v)
+		}
+		grad := make([]float32, len(logits))
+		logits64 := make([]float64, len(logits))
+		grad64 := make([]float64, len(logits))
+		for i, l := range logits {
+			logits64[i] = float64(l)
+		}
+		b.Run(fmt.Sprintf("fn=softmaxce/impl=kernel/n=%dx%d", rows, v), func(b *testing.B) {
+			b.ReportAllocs()
+			for i := 0; i < b.N; i++ {
+				sinkF64 = SoftmaxCrossEntropy(grad, logits, targets, rows, v, 1)
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(rows*v), "ns/element")
+		})
+		b.Run(fmt.Sprintf("fn=softmaxce/impl=math/n=%dx%d", rows, v), func(b *testing.B) {
+			b.ReportAllocs()
+			for i := 0; i < b.N; i++ {
+				sinkF64 = SoftmaxCrossEntropy(grad64, logits64, targets, rows, v, 1)
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/float64(rows*v), "ns/element")
+		})
 	}
 }

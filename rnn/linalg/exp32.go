@@ -1,0 +1,134 @@
+package linalg
+
+import "math"
+
+// float32 exp, sigmoid and tanh.
+//
+// Method (Cody and Waite range reduction with a minimax polynomial, as in
+// S. L. Moshier's Cephes library, files expf.c and tanhf.c, "Methods and
+// Programs for Mathematical Functions", 1989; coefficients quoted from
+// Cephes from memory, checked by the tests below against package math):
+//
+//	exp(x)  = 2^n · exp(r),  n = round(x·log2 e),  r = x − n·C1 − n·C2
+//	          with C1 + C2 = ln 2 split so that n·C1 is exact, and
+//	exp(r) ≈ 1 + r + r²·P(r), P of degree 5, for |r| ≤ ln2/2;
+//	tanh(x) = x + x³·Q(x²), Q of degree 4, for |x| < 0.625,
+//	        = sign(x)·(1 − 2/(exp(2|x|) + 1)) otherwise;
+//	σ(x)    = 1/(1 + exp(−x)).
+//
+// All arithmetic is float32. Measured over a dense sweep of float32 inputs
+// (exp32_test.go), the relative error is at most expMaxRelErr for exp where
+// the result is normal, and the absolute error at most actMaxAbsErr for
+// sigmoid and tanh (their relative error is bounded by actMaxRelErr).
+// Special values: exp(+Inf) = +Inf, exp(−Inf) = 0, results beyond the float32
+// range overflow to +Inf or underflow to 0 (subnormal results are computed
+// through float64), NaN gives NaN; σ(±Inf) = 1 or 0, tanh(±Inf) = ±1,
+// tanh(±0) = ±0, and NaN gives NaN.
+
+const (
+	log2e32 = 1.44269504088896341
+	expC1   = 0.693359375       // ln 2 to 9 bits: n·C1 is exact for |n| < 2^15
+	expC2   = -2.12194440e-4    // ln 2 − C1
+	expP0   = 1.9875691500e-4   // Cephes expf.c coefficients
+	expP1   = 1.3981999507e-3   //
+	expP2   = 8.3334519073e-3   //
+	expP3   = 4.1665795894e-2   //
+	expP4   = 1.6666665459e-1   //
+	expP5   = 5.0000001201e-1   //
+	tanhQ0  = -5.70498872745e-3 // Cephes tanhf.c coefficients
+	tanhQ1  = 2.06390887954e-2  //
+	tanhQ2  = -5.37397155531e-2 //
+	tanhQ3  = 1.33314422036e-1  //
+	tanhQ4  = -3.33332819422e-1 //
+
+	// expHi and expLo bound the inputs whose exp is a normal float32:
+	// exp(88.37) < 2^127.5 and exp(−87.33) > 2^−126 (2^−126 = exp(−87.336)).
+	expHi = 88.37
+	expLo = -87.33
+)
+
+// exp32 returns e^x in float32; see the comment at the top of this file.
+func exp32(x float32) float32 {
+	if !(x >= expLo && x <= expHi) {
+		return expSlow(x)
+	}
+	t := x*log2e32 + 0.5
+	n := int32(t)
+	if float32(n) > t {
+		n-- // floor for negative t
+	}
+	fn := float32(n)
+	r := x - fn*expC1
+	r -= fn * expC2
+	p := ((((expP0*r+expP1)*r+expP2)*r+expP3)*r+expP4)*r + expP5
+	p = p*(r*r) + r + 1
+	return p * math.Float32frombits(uint32(n+127)<<23)
+}
+
+// expSlow handles the inputs outside [expLo, expHi]: NaN, overflow,
+// underflow and subnormal results.
+func expSlow(x float32) float32 {
+	switch {
+	case x != x:
+		return x
+	case x > 88.73: // exp(88.7228) is the largest float32
+		return float32(math.Inf(1))
+	case x < -104: // exp(−104) < 2^−150 rounds to 0
+		return 0
+	}
+	return float32(math.Exp(float64(x)))
+}
+
+// sigmoid32 returns 1/(1 + e^−x) in float32.
+func sigmoid32(x float32) float32 {
+	return 1 / (1 + exp32(-x))
+}
+
+// tanh32 returns tanh(x) in float32.
+func tanh32(x float32) float32 {
+	ax := x
+	if ax < 0 {
+		ax = -ax
+	}
+	if ax < 0x1p-12 { // x³/3 is below half an ulp of x: tanh(x) rounds to x (keeps −0)
+		return x
+	}
+	if ax < 0.625 {
+		z := x * x
+		q := (((tanhQ0*z+tanhQ1)*z+tanhQ2)*z+tanhQ3)*z + tanhQ4
+		return x + x*z*q
+	}
+	if ax > 9.1 { // 1 − tanh(9.1) < 2^−25: rounds to 1
+		if x != x {
+			return x
+		}
+		return math.Float32frombits(math.Float32bits(x)&0x80000000 | 0x3f800000)
+	}
+	y := 1 - 2/(exp32(2*ax)+1)
+	if x < 0 {
+		y = -y
+	}
+	return y
+}
+
+// expSlice32, sigmoidSlice32 and tanhSlice32 are the float32 slice loops.
+func expSlice32(dst, x []float32) {
+	dst = dst[:len(x)]
+	for i, v := range x {
+		dst[i] = exp32(v)
+	}
+}
+
+func sigmoidSlice32(dst, x []float32) {
+	dst = dst[:len(x)]
+	for i, v := range x {
+		dst[i] = sigmoid32(v)
+	}
+}
+
+func tanhSlice32(dst, x []float32) {
+	dst = dst[:len(x)]
+	for i, v := range x {
+		dst[i] = tanh32(v)
+	}
+}
