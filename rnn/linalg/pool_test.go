@@ -1,0 +1,121 @@
+package linalg
+
+import (
+	"math"
+	"math/rand/v2"
+	"sync"
+	"testing"
+)
+
+// TestGemmThreadsBitIdentical checks the determinism guarantee: the same
+// product gives the same bits with 1, 2, 3 and 4 threads, for every kernel
+// and transpose, on shapes large enough to be split (m·n·k ≥
+// parallelMinWork) and split both ways (tall: rows, wide: columns).
+func TestGemmThreadsBitIdentical(t *testing.T) {
+	shapes := [][3]int{{67, 300, 129}, {33, 1030, 40}, {300, 17, 257}, {8, 4096, 33}}
+	pools := []*Pool{NewPool(2), NewPool(3), NewPool(4)}
+	defer func() {
+		for _, p := range pools {
+			p.Close()
+		}
+	}()
+	rng := rand.New(rand.NewPCG(21, 22))
+	for _, kern := range kernels32 {
+		for _, s := range shapes {
+			if s[0]*s[1]*s[2] < parallelMinWork {
+				t.Fatalf("shape %v below parallelMinWork: the test would not split it", s)
+			}
+			for op := 0; op < 4; op++ {
+				tc := gemmCase{tA: op&1 != 0, tB: op&2 != 0, m: s[0], n: s[1], k: s[2], padA: 1, padC: 3, alpha: 0.75, beta: -1.5}
+				o := newOperands[float32](tc, rng)
+				want := append([]float32(nil), o.c...)
+				gemmRun(nil, kern, tc.tA, tc.tB, tc.m, tc.n, tc.k, float32(tc.alpha), o.a, o.lda, o.b, o.ldb, float32(tc.beta), want, o.ldc)
+				for _, p := range pools {
+					got := append([]float32(nil), o.c...)
+					gemmRun(p, kern, tc.tA, tc.tB, tc.m, tc.n, tc.k, float32(tc.alpha), o.a, o.lda, o.b, o.ldb, float32(tc.beta), got, o.ldc)
+					for i := range got {
+						if math.Float32bits(got[i]) != math.Float32bits(want[i]) {
+							t.Fatalf("%s %v threads=%d: C[%d] got %x want %x (1 thread)", kern.name, tc, p.Threads(), i, math.Float32bits(got[i]), math.Float32bits(want[i]))
+						}
+					}
+				}
+				// The threaded result is also the right product.
+				checkGemmResult(t, tc, o, want, eps32)
+			}
+		}
+	}
+}
+
+// TestPoolConcurrentCallers shares one pool between goroutines: calls take
+// turns and each gets its own correct result.
+func TestPoolConcurrentCallers(t *testing.T) {
+	p := NewPool(2)
+	defer p.Close()
+	const m, n, k = 64, 256, 128
+	a := make([]float32, m*k)
+	b := make([]float32, k*n)
+	for i := range a {
+		a[i] = float32(i%7) - 3
+	}
+	for i := range b {
+		b[i] = float32(i%5) - 2
+	}
+	want := make([]float32, m*n)
+	Gemm(nil, false, false, m, n, k, 1, a, k, b, n, 0, want, n)
+	var wg sync.WaitGroup
+	errs := make(chan string, 4)
+	for g := 0; g < 4; g++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			c := make([]float32, m*n)
+			for rep := 0; rep < 20; rep++ {
+				Gemm(p, false, false, m, n, k, 1, a, k, b, n, 0, c, n)
+				for i := range c {
+					if c[i] != want[i] {
+						errs <- "concurrent Gemm on a shared pool gave a different result"
+						return
+					}
+				}
+			}
+		}()
+	}
+	wg.Wait()
+	close(errs)
+	for e := range errs {
+		t.Fatal(e)
+	}
+}
+
+func TestPoolThreadsAndClose(t *testing.T) {
+	var nilPool *Pool
+	if got := nilPool.Threads(); got != 1 {
+		t.Errorf("nil pool Threads: got %d want 1", got)
+	}
+	nilPool.Close() // must not panic
+	for _, tc := range []struct{ n, want int }{{-1, 1}, {0, 1}, {1, 1}, {3, 3}} {
+		p := NewPool(tc.n)
+		if got := p.Threads(); got != tc.want {
+			t.Errorf("NewPool(%d).Threads: got %d want %d", tc.n, got, tc.want)
+		}
+		p.Close()
+		p.Close() // a second Close does nothing
+	}
+}
+
+// TestGemmNoAllocs checks that a steady-state product allocates nothing,
+// single- and multi-threaded (the engine calls Gemm every time step).
+func TestGemmNoAllocs(t *testing.T) {
+	p := NewPool(2)
+	defer p.Close()
+	const m, n, k = 32, 1024, 256
+	a, b, c := make([]float32, m*k), make([]float32, k*n), make([]float32, m*n)
+	for _, pool := range []*Pool{nil, p} {
+		allocs := testing.AllocsPerRun(20, func() {
+			Gemm(pool, false, true, m, n, k, 1, a, k, b, k, 0, c, n)
+		})
+		if allocs != 0 {
+			t.Errorf("threads=%d: got %v allocations per Gemm, want 0", pool.Threads(), allocs)
+		}
+	}
+}
