@@ -140,6 +140,7 @@ and lives in a run directory (--run DIR).`,
 	root.SetVersionTemplate("weft {{.Version}}\n")
 	root.AddCommand(
 		newConfigCmd(d, nil),
+		newPrepareCmd(d, nil),
 	)
 	return root
 }
