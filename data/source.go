@@ -15,6 +15,15 @@ type source struct {
 	Path  string // path as opened; "-" for standard input
 	Size  int64
 	MTime int64 // modification time, Unix nanoseconds
+
+	display string // name in messages when not Path ("-" for spooled standard input)
+}
+
+func (s source) name() string {
+	if s.display != "" {
+		return s.display
+	}
+	return s.Path
 }
 
 // resolveSources expands cfg.Files into the files to read, in order.
