@@ -249,3 +249,91 @@ func TestHMMLearnsStructure(t *testing.T) {
 		t.Errorf("state bits of 2 states: got %g, want 1", h.StateBits())
 	}
 }
+
+func TestBaumWelchStepMatchesDirect(t *testing.T) {
+	// Reference: the re-estimation formulas of Rabiner (1989), eq. 40a-c,
+	// computed directly in the test from fully stored scaled forward and
+	// backward trellises (no checkpointing, no tiles), on a sequence that
+	// spans several blocks of the checkpointed sweep.
+	rng := rand.New(rand.NewPCG(21, 22))
+	const N, V = 5, 4
+	seq := make([]int, 2*fbBlock+70)
+	for i := range seq {
+		seq[i] = rng.IntN(V)
+	}
+	h := &HMM{n: N, v: V, boundary: NoBoundary}
+	h.initRandom(seq, 3)
+	pi0, a0, b0 := append([]float64(nil), h.pi...), append([]float64(nil), h.a...), append([]float64(nil), h.bt...)
+
+	T := len(seq)
+	alpha := make([]float64, T*N)
+	beta := make([]float64, T*N)
+	c := make([]float64, T)
+	for t, o := range seq {
+		for j := range N {
+			var p float64
+			if t == 0 {
+				p = pi0[j]
+			} else {
+				for i := range N {
+					p += alpha[(t-1)*N+i] * a0[i*N+j]
+				}
+			}
+			alpha[t*N+j] = p * b0[o*N+j]
+			c[t] += alpha[t*N+j]
+		}
+		for j := range N {
+			alpha[t*N+j] /= c[t]
+		}
+	}
+	for i := range N {
+		beta[(T-1)*N+i] = 1
+	}
+	for t := T - 2; t >= 0; t-- {
+		for i := range N {
+			var s float64
+			for j := range N {
+				s += a0[i*N+j] * b0[seq[t+1]*N+j] * beta[(t+1)*N+j]
+			}
+			beta[t*N+i] = s / c[t+1]
+		}
+	}
+	wantA := make([]float64, N*N)
+	wantB := make([]float64, V*N)
+	gsum := make([]float64, N)
+	for t := range T {
+		for i := range N {
+			g := alpha[t*N+i] * beta[t*N+i]
+			wantB[seq[t]*N+i] += g
+			gsum[i] += g
+			if t < T-1 {
+				for j := range N {
+					wantA[i*N+j] += alpha[t*N+i] * a0[i*N+j] * b0[seq[t+1]*N+j] * beta[(t+1)*N+j] / c[t+1]
+				}
+			}
+		}
+	}
+	wantLL := 0.0
+	for _, x := range c {
+		wantLL += math.Log(x)
+	}
+
+	ll, err := h.Iterate(context.Background(), seq, 2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, "log-likelihood", ll, wantLL, 1e-12)
+	for i := range N {
+		checkClose(t, "π", h.pi[i], alpha[i]*beta[i], 1e-12)
+		rs := 0.0
+		for j := range N {
+			rs += wantA[i*N+j]
+		}
+		for j := range N {
+			checkClose(t, "a", h.a[i*N+j], wantA[i*N+j]/rs, 1e-12)
+		}
+		for k := range V {
+			checkClose(t, "b", h.bt[k*N+i], wantB[k*N+i]/gsum[i], 1e-12)
+		}
+	}
+}

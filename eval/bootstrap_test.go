@@ -1,0 +1,111 @@
+package eval
+
+import (
+	"math"
+	"math/rand/v2"
+	"testing"
+)
+
+// noisyScores returns per-character log-probabilities of a made-up model
+// whose bits per character are about mean, with runs of correlated
+// difficulty.
+func noisyScores(rng *rand.Rand, n int, mean float64) []float64 {
+	lp := make([]float64, n)
+	hard := 0.0
+	for i := range lp {
+		if i%50 == 0 {
+			hard = rng.Float64() - 0.5
+		}
+		bits := max(0.01, mean+hard+0.5*(rng.Float64()-0.5))
+		lp[i] = -bits * math.Ln2
+	}
+	return lp
+}
+
+func TestBootstrap(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	cfg := BootstrapConfig{Samples: 400, BlockChars: 200, Level: 0.95, Seed: 42}
+	a := noisyScores(rng, 20000, 2.0)
+	b := noisyScores(rng, 20000, 2.2)
+	series := []Series{{LogProbs: a}, {LogProbs: b}}
+	bpc, diff, err := Bootstrap(series, 1, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for s, iv := range bpc {
+		r := NewResult("x", "test", "test", series[s].LogProbs, len(series[s].LogProbs))
+		checkClose(t, "point estimate is the text's bits per char", iv.Estimate, r.BitsPerChar, 1e-12)
+		if !(iv.Low <= iv.Estimate && iv.Estimate <= iv.High) {
+			t.Errorf("series %d: interval [%g, %g] does not contain %g", s, iv.Low, iv.High, iv.Estimate)
+		}
+	}
+	// Paired difference of the reference with itself: exactly zero.
+	if d := diff[1]; d.Estimate != 0 || d.Low != 0 || d.High != 0 {
+		t.Errorf("reference minus itself: got %+v, want all zero", d)
+	}
+	if !(diff[0].High < 0) {
+		t.Errorf("a is better by about 0.2 bits: difference interval %+v should lie below 0", diff[0])
+	}
+	// Deterministic for a seed, different for another.
+	bpc2, _, _ := Bootstrap(series, 1, cfg)
+	if bpc2[0] != bpc[0] {
+		t.Errorf("same seed: got %+v and %+v", bpc[0], bpc2[0])
+	}
+	cfg3 := cfg
+	cfg3.Seed = 43
+	bpc3, _, _ := Bootstrap(series, 1, cfg3)
+	if bpc3[0] == bpc[0] {
+		t.Errorf("another seed gave the identical interval %+v", bpc3[0])
+	}
+	// More data narrows the interval: 16 times the text, about a quarter
+	// of the width (width ∝ 1/sqrt(blocks)); require at least halving.
+	long := noisyScores(rng, 320000, 2.0)
+	bl, _, err := Bootstrap([]Series{{LogProbs: long}}, 0, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	w, wl := bpc[0].High-bpc[0].Low, bl[0].High-bl[0].Low
+	if !(wl < w/2) {
+		t.Errorf("interval width with 16× the data: got %g, want below half of %g", wl, w)
+	}
+	// Pairing: a model that is the reference plus a constant 0.1 bits per
+	// character has a difference interval of exactly that constant.
+	shift := make([]float64, len(b))
+	for i := range b {
+		shift[i] = b[i] - 0.1*math.Ln2
+	}
+	_, d, err := Bootstrap([]Series{{LogProbs: shift}, {LogProbs: b}}, 1, cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, "paired shift low", d[0].Low, 0.1, 1e-9)
+	checkClose(t, "paired shift high", d[0].High, 0.1, 1e-9)
+}
+
+func TestBootstrapAcrossTokenizations(t *testing.T) {
+	// A word model and a character model of the same 12 characters; blocks
+	// are in characters, so both can be resampled together.
+	word := Series{LogProbs: []float64{-1, -2, -3, -0.5}, Chars: []int{3, 4, 4, 1}}
+	char := Series{LogProbs: make([]float64, 12)}
+	for i := range char.LogProbs {
+		char.LogProbs[i] = -0.5
+	}
+	bpc, _, err := Bootstrap([]Series{word, char}, 1, BootstrapConfig{Samples: 50, BlockChars: 4, Level: 0.9, Seed: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, "word bpc", bpc[0].Estimate, 6.5/math.Ln2/12, 1e-14)
+	bad := Series{LogProbs: []float64{-1}, Chars: []int{5}}
+	if _, _, err := Bootstrap([]Series{word, bad}, 0, BootstrapConfig{Samples: 5, BlockChars: 4, Level: 0.9}); err == nil {
+		t.Error("series of different lengths in characters gave no error")
+	}
+	// An infinite row keeps infinite bounds.
+	inf := Series{LogProbs: []float64{math.Inf(-1), -1, -1, -1}, Chars: []int{3, 4, 4, 1}}
+	bpc, _, err = Bootstrap([]Series{inf, word}, 1, BootstrapConfig{Samples: 20, BlockChars: 4, Level: 0.9, Seed: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !math.IsInf(bpc[0].Estimate, 1) || !math.IsInf(bpc[0].High, 1) {
+		t.Errorf("infinite series: got %+v", bpc[0])
+	}
+}
