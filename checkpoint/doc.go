@@ -16,8 +16,8 @@
 //	0           8     N, unsigned 64-bit: length of the header in bytes
 //	8           N     header: a JSON object, UTF-8, padded with spaces (0x20)
 //	                  so that 8+N is a multiple of 8
-//	8+N         D     data buffer: every tensor's elements, row-major, each
-//	                  tensor's bytes contiguous, tensors in header order
+//	8+N         D     data buffer: each tensor's elements, row-major and
+//	                  contiguous, at its data_offsets
 //
 // The header maps "__metadata__" to an object of string values and each
 // tensor name to its entry:

@@ -16,8 +16,8 @@ import (
 )
 
 // Format versions. A weft checkpoint records its version under
-// MetaVersion; Decode accepts MinVersion through MaxVersion and writes
-// CurrentVersion unless told otherwise.
+// MetaVersion; Decode accepts MinVersion through MaxVersion, and Encode
+// writes CurrentVersion unless File.Version says otherwise.
 const (
 	MinVersion     = 1
 	MaxVersion     = 1
@@ -42,9 +42,10 @@ const (
 	StatePrefix = "state." // other trainer state (carried hidden state, RNG words, ...)
 )
 
-// MaxHeaderBytes caps the JSON header a decoder accepts (100 MiB, the limit
-// of the reference safetensors implementation), so that a damaged length
-// field cannot make it allocate or scan a huge buffer.
+// MaxHeaderBytes caps the JSON header a decoder accepts (100 MiB; the
+// reference safetensors implementation has a cap of the same order, 100 MB,
+// from memory), so that a damaged length field cannot make it allocate or
+// scan a huge buffer.
 const MaxHeaderBytes = 100 << 20
 
 const (

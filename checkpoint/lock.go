@@ -80,6 +80,9 @@ type DirLock struct {
 // that can be taken is stale by definition. Elsewhere the lock file is
 // created exclusively and a leftover one counts as stale only when it names
 // this host and a process that no longer exists.
+//
+// The lock is only as good as the file system's flock: local disks are
+// fine; a network file system without lock support would let two hosts in.
 func Lock(dir string) (*DirLock, error) {
 	me := Holder{PID: os.Getpid(), Started: time.Now().UTC().Truncate(time.Second)}
 	me.Host, _ = os.Hostname()
