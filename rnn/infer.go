@@ -1,0 +1,137 @@
+package rnn
+
+import (
+	"context"
+	"fmt"
+	"math"
+)
+
+// scoreChunk is the number of steps LogProbs runs per forward pass.
+const scoreChunk = 64
+
+// SetScoring sets how LogProbs splits a long sequence to score it faster:
+// into streams continuous pieces scored side by side, each piece after the
+// first warmed up by running over the warmup tokens before it (not scored)
+// from a zero state. streams = 1 (the default) is exact: the state runs
+// through the whole sequence. With streams > 1 the piece boundaries are
+// approximated: the state at a piece start is the one warmup tokens of
+// context give, not the whole history. Pieces are never shorter than
+// warmup tokens; LogProbs uses fewer streams when the sequence is short.
+func (m *Model[T]) SetScoring(streams, warmup int) error {
+	if streams < 1 {
+		return fmt.Errorf("scoring streams must be at least 1, got %d", streams)
+	}
+	if warmup < 0 {
+		return fmt.Errorf("scoring warm-up must be 0 or more tokens, got %d", warmup)
+	}
+	m.scoreS, m.scoreWarm = streams, warmup
+	return nil
+}
+
+// LogProbs writes to dst[i] the natural logarithm of P(seq[i] | seq[:i])
+// under the model, for every i, forward only and with dropout off. The
+// history before seq[0] is the start of a document: a zero state, whose
+// output distribution is softmax(output.bias). len(dst) must equal
+// len(seq). See SetScoring for the exact default and the faster
+// approximation. It checks ctx between passes.
+func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error {
+	if len(dst) != len(seq) {
+		return fmt.Errorf("LogProbs: %d destinations for %d tokens", len(dst), len(seq))
+	}
+	for i, tok := range seq {
+		if tok < 0 || tok >= m.vocab {
+			return fmt.Errorf("LogProbs: token %d at position %d outside the vocabulary 0..%d", tok, i, m.vocab-1)
+		}
+	}
+	n := len(seq)
+	if n == 0 {
+		return nil
+	}
+	dst[0] = logSoftmaxAt(m.outB, seq[0])
+	P := n - 1 // positions 1..n-1 remain
+	if P == 0 {
+		return nil
+	}
+	S, W := m.scoreS, m.scoreWarm
+	L := (P + S - 1) / S
+	for S > 1 && L < W {
+		S--
+		L = (P + S - 1) / S
+	}
+	if S == 1 {
+		W = 0
+	}
+	B := S
+	w := newWork(m, B, min(scoreChunk, max(L, W)), false)
+	in := make([]int, w.max*B)
+	// Warm-up: stream k ≥ 1 reads seq[kL−W .. kL−1]; stream 0 reads
+	// anything and is reset afterwards.
+	for t0 := 0; t0 < W; t0 += w.max {
+		c := min(w.max, W-t0)
+		for t := 0; t < c; t++ {
+			for k := 0; k < B; k++ {
+				tok := 0
+				if k > 0 {
+					tok = seq[k*L-W+t0+t]
+				}
+				in[t*B+k] = tok
+			}
+		}
+		w.forward(m.pool, in, c, false)
+		w.carry(c)
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+	}
+	if W > 0 {
+		w.resetStreams([]bool{true})
+	}
+	// Scoring: at step t stream k reads seq[kL+t] and predicts seq[kL+t+1].
+	V := m.vocab
+	for t0 := 0; t0 < L; t0 += w.max {
+		c := min(w.max, L-t0)
+		for t := 0; t < c; t++ {
+			for k := 0; k < B; k++ {
+				i := k*L + t0 + t
+				tok := 0
+				if i+1 < n {
+					tok = seq[i]
+				}
+				in[t*B+k] = tok
+			}
+		}
+		w.forward(m.pool, in, c, false)
+		for t := 0; t < c; t++ {
+			for k := 0; k < B; k++ {
+				pos := k*L + t0 + t + 1
+				if pos < n && pos <= (k+1)*L {
+					r := t*B + k
+					dst[pos] = logSoftmaxAt(w.logits[r*V:(r+1)*V], seq[pos])
+				}
+			}
+		}
+		w.carry(c)
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// logSoftmaxAt returns ln softmax(row)[j] = row[j] − ln Σ exp(row), in
+// float64 with the maximum subtracted first.
+func logSoftmaxAt[T Float](row []T, j int) float64 {
+	return float64(row[j]) - logSumExp(row)
+}
+
+func logSumExp[T Float](row []T) float64 {
+	mx := math.Inf(-1)
+	for _, v := range row {
+		mx = math.Max(mx, float64(v))
+	}
+	var s float64
+	for _, v := range row {
+		s += math.Exp(float64(v) - mx)
+	}
+	return mx + math.Log(s)
+}

@@ -1,0 +1,178 @@
+package rnn
+
+import (
+	"context"
+	"math"
+	"testing"
+)
+
+// inferTol bounds float64 differences between two evaluation orders of the
+// same model (chunked passes against one token at a time).
+const inferTol = 1e-12
+
+func inferModel(t *testing.T, cell string) *Model[float64] {
+	t.Helper()
+	c := DefaultConfig()
+	c.Cell, c.Layers, c.HiddenSize, c.EmbeddingSize, c.ProjectionSize = cell, 2, 12, 6, 5
+	c.Init, c.InitRange, c.RecurrentInit = "uniform", 0.4, "uniform"
+	m, err := NewModel[float64](c, 9, 3)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range m.outB { // a non-uniform start-of-document distribution
+		m.outB[i] = 0.1 * float64(i)
+	}
+	return m
+}
+
+func TestLogProbsMatchesStream(t *testing.T) {
+	seq := randomTokens(150, 9, 8) // more than two scoring chunks
+	for _, cell := range []string{"rnn", "gru", "lstm"} {
+		t.Run(cell, func(t *testing.T) {
+			m := inferModel(t, cell)
+			got := make([]float64, len(seq))
+			if err := m.LogProbs(context.Background(), got, seq); err != nil {
+				t.Fatal(err)
+			}
+			s := m.NewStream(1)
+			dist := make([]float64, 9)
+			for i, tok := range seq {
+				s.LogProbs(dist)
+				// A distribution: probabilities sum to 1 (fact of the trade).
+				var sum float64
+				for _, v := range dist {
+					sum += math.Exp(v)
+				}
+				if !closeTo(sum, 1, 1e-12) {
+					t.Fatalf("position %d: probabilities sum to %v", i, sum)
+				}
+				if !closeTo(got[i], dist[tok], inferTol) {
+					t.Fatalf("position %d: LogProbs %v, stream %v", i, got[i], dist[tok])
+				}
+				if err := s.Feed([]int{tok}); err != nil {
+					t.Fatal(err)
+				}
+			}
+			// The first position is scored from the zero state:
+			// softmax(output.bias).
+			if want := logSoftmaxAt(m.outB, seq[0]); got[0] != want {
+				t.Errorf("position 0: got %v, want %v", got[0], want)
+			}
+			// The mean of −LogProbs over positions 1.. is the training loss of
+			// the same sequence as one window from a zero state.
+			w := newWork(m, 1, len(seq)-1, true)
+			w.forward(nil, seq[:len(seq)-1], len(seq)-1, false)
+			total, n := w.loss(seq[1:])
+			var sum float64
+			for _, v := range got[1:] {
+				sum -= v
+			}
+			if !closeTo(sum/float64(len(seq)-1), total/float64(n), 1e-12) {
+				t.Errorf("mean −ln p %v, window loss %v", sum/float64(len(seq)-1), total/float64(n))
+			}
+		})
+	}
+}
+
+func TestLogProbsStreams(t *testing.T) {
+	seq := randomTokens(301, 9, 9)
+	m := inferModel(t, "lstm")
+	ctx := context.Background()
+	exact := make([]float64, len(seq))
+	if err := m.LogProbs(ctx, exact, seq); err != nil {
+		t.Fatal(err)
+	}
+	// 3 streams of L = 100 positions with a 40-token warm-up.
+	if err := m.SetScoring(3, 40); err != nil {
+		t.Fatal(err)
+	}
+	approx := make([]float64, len(seq))
+	if err := m.LogProbs(ctx, approx, seq); err != nil {
+		t.Fatal(err)
+	}
+	differ, meanDiff := 0, 0.0
+	for i := range seq {
+		switch {
+		case i <= 100: // stream 0 carries the true state from the start
+			if !closeTo(approx[i], exact[i], inferTol) {
+				t.Errorf("position %d (stream 0): got %v, want the exact %v", i, approx[i], exact[i])
+			}
+		default:
+			if !(approx[i] <= 0) || math.IsInf(approx[i], 0) {
+				t.Errorf("position %d: ln p = %v", i, approx[i])
+			}
+			if approx[i] != exact[i] {
+				differ++
+			}
+			meanDiff += math.Abs(approx[i]-exact[i]) / 200
+		}
+	}
+	// After a 40-token warm-up the state is close to the true one: a
+	// property of this small model (its memory fades), not a reference
+	// value; the bound is about 9x the 1.1e-4 observed.
+	if meanDiff > 1e-3 {
+		t.Errorf("warmed streams: mean |Δ ln p| %.3g, want below 1e-3", meanDiff)
+	}
+	t.Logf("3 streams, warm-up 40: mean |Δ ln p| = %.3g nats", meanDiff)
+	if differ == 0 {
+		t.Error("3 streams gave exactly the 1-stream values: the split did not happen")
+	}
+	// A warm-up longer than the pieces leaves one stream: exact again.
+	_ = m.SetScoring(4, 1000)
+	if err := m.LogProbs(ctx, approx, seq); err != nil {
+		t.Fatal(err)
+	}
+	for i := range seq {
+		if approx[i] != exact[i] {
+			t.Fatalf("position %d: got %v, want %v", i, approx[i], exact[i])
+		}
+	}
+	if err := m.LogProbs(ctx, approx[:3], seq); err == nil {
+		t.Error("LogProbs accepted a short destination")
+	}
+	if err := m.LogProbs(ctx, approx[:2], []int{0, 9}); err == nil || err.Error() != "LogProbs: token 9 at position 1 outside the vocabulary 0..8" {
+		t.Errorf("bad token: got %v", err)
+	}
+}
+
+func TestStreamSelectClone(t *testing.T) {
+	m := inferModel(t, "gru")
+	V := m.VocabSize()
+	s := m.NewStream(3)
+	for _, toks := range [][]int{{1, 2, 3}, {4, 5, 6}} {
+		if err := s.Feed(toks); err != nil {
+			t.Fatal(err)
+		}
+	}
+	before := make([]float64, 3*V)
+	s.LogProbs(before)
+	c := s.Clone()
+	if err := s.Select([]int{2, 2, 0}); err != nil {
+		t.Fatal(err)
+	}
+	after := make([]float64, 3*V)
+	s.LogProbs(after)
+	for i, from := range []int{2, 2, 0} {
+		for j := 0; j < V; j++ {
+			if after[i*V+j] != before[from*V+j] {
+				t.Fatalf("hypothesis %d after Select: token %d %v, want %v", i, j, after[i*V+j], before[from*V+j])
+			}
+		}
+	}
+	// Feeding the same token continues identically from copied states.
+	_ = s.Feed([]int{7, 7, 7})
+	s.LogProbs(after)
+	for j := 0; j < V; j++ {
+		if after[j] != after[V+j] {
+			t.Fatalf("hypotheses 0 and 1 diverged after the same token")
+		}
+	}
+	// The clone kept the state from before Select and Feed.
+	got := make([]float64, 3*V)
+	c.LogProbs(got)
+	for i := range got {
+		if got[i] != before[i] {
+			t.Fatalf("clone changed with its original: %d: %v vs %v", i, got[i], before[i])
+		}
+	}
+}
