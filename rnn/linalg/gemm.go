@@ -190,6 +190,27 @@ func (j *gemmJob[T]) runPart(t int) {
 // sees the same tile grid and the same k blocks.
 func (kern *kernel[T]) block(w *workspace[T], tA, tB bool, i0, i1, j0, j1, k int, alpha T, a []T, lda int, b []T, ldb int, beta T, c []T, ldc int) {
 	mr, nr := kern.mr, kern.nr
+	if i1-i0 <= kern.mc {
+		// One block of rows (the recurrent step: m = batch size): pack A
+		// once per k block and each B panel just before its tiles use it,
+		// so the panel is read from L1 rather than written out to L2 and
+		// read back.
+		mc := i1 - i0
+		for pc := 0; pc < k; pc += kern.kc {
+			kc := min(kern.kc, k-pc)
+			bet := beta
+			if pc > 0 {
+				bet = 1
+			}
+			kern.packA(w.a, tA, a, lda, i0, mc, pc, kc, mr)
+			for jr := j0; jr < j1; jr += nr {
+				nn := min(nr, j1-jr)
+				kern.packB(w.b, tB, b, ldb, pc, kc, jr, nn, nr)
+				kern.tiles(w, w.b[:nr*kc], kc, mc, nn, alpha, bet, c, i0*ldc+jr, ldc)
+			}
+		}
+		return
+	}
 	for jc := j0; jc < j1; jc += kern.nc {
 		nc := min(kern.nc, j1-jc)
 		for pc := 0; pc < k; pc += kern.kc {
@@ -204,29 +225,37 @@ func (kern *kernel[T]) block(w *workspace[T], tA, tB bool, i0, i1, j0, j1, k int
 				kern.packA(w.a, tA, a, lda, ic, mc, pc, kc, mr)
 				for jr := 0; jr < nc; jr += nr {
 					nn := min(nr, nc-jr)
-					bp := w.b[jr*kc : (jr+nr)*kc]
-					for ir := 0; ir < mc; ir += mr {
-						mm := min(mr, mc-ir)
-						ap := w.a[ir*kc : (ir+mr)*kc]
-						ci := (ic+ir)*ldc + jc + jr
-						if mm == mr && nn == nr {
-							kern.micro(kc, ap, bp, c[ci:], ldc, alpha, bet)
-							continue
-						}
-						kern.micro(kc, ap, bp, w.tile, nr, alpha, 0)
-						for i := 0; i < mm; i++ {
-							dst := c[ci+i*ldc : ci+i*ldc+nn]
-							src := w.tile[i*nr : i*nr+nn]
-							if bet == 0 {
-								copy(dst, src)
-								continue
-							}
-							for jj, v := range src {
-								dst[jj] = v + bet*dst[jj]
-							}
-						}
-					}
+					kern.tiles(w, w.b[jr*kc:(jr+nr)*kc], kc, mc, nn, alpha, bet, c, ic*ldc+jc+jr, ldc)
 				}
+			}
+		}
+	}
+}
+
+// tiles runs the micro-kernel down one packed B panel bp (nn <= nr valid
+// columns) against the mc rows of packed A in w.a, writing C from offset c0.
+// Edge tiles go through w.tile, so the micro-kernel always writes a whole
+// tile.
+func (kern *kernel[T]) tiles(w *workspace[T], bp []T, kc, mc, nn int, alpha, bet T, c []T, c0, ldc int) {
+	mr, nr := kern.mr, kern.nr
+	for ir := 0; ir < mc; ir += mr {
+		mm := min(mr, mc-ir)
+		ap := w.a[ir*kc : (ir+mr)*kc]
+		ci := c0 + ir*ldc
+		if mm == mr && nn == nr {
+			kern.micro(kc, ap, bp, c[ci:], ldc, alpha, bet)
+			continue
+		}
+		kern.micro(kc, ap, bp, w.tile, nr, alpha, 0)
+		for i := 0; i < mm; i++ {
+			dst := c[ci+i*ldc : ci+i*ldc+nn]
+			src := w.tile[i*nr : i*nr+nn]
+			if bet == 0 {
+				copy(dst, src)
+				continue
+			}
+			for jj, v := range src {
+				dst[jj] = v + bet*dst[jj]
 			}
 		}
 	}

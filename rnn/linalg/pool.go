@@ -1,6 +1,10 @@
 package linalg
 
-import "sync"
+import (
+	"runtime"
+	"sync"
+	"sync/atomic"
+)
 
 // Pool is a fixed set of worker goroutines that kernels split their output
 // over. A nil *Pool is valid and runs everything on the caller. A Pool may be
@@ -12,16 +16,30 @@ import "sync"
 type Pool struct {
 	threads int
 	mu      sync.Mutex // one kernel call at a time
-	work    []chan task
-	done    sync.WaitGroup
+	workers []*worker
+	pending atomic.Int64 // parts handed to workers and not yet done
 	once    sync.Once
 }
+
+// A worker spins for up to spinLimit polls after each part, so that the
+// back-to-back products of a time-step loop find it awake, then parks on its
+// wake channel.
+type worker struct {
+	seq      atomic.Uint64 // number of tasks posted
+	task     task          // written by the caller before seq is bumped
+	sleeping atomic.Bool
+	wake     chan struct{}
+}
+
+// spinLimit is the number of polls (about 50-100µs) a worker makes for its
+// next part before parking.
+const spinLimit = 1 << 16
 
 // runner is a kernel call split into numbered parts.
 type runner interface{ runPart(part int) }
 
 type task struct {
-	r    runner
+	r    runner // nil tells the worker to exit
 	part int
 }
 
@@ -30,19 +48,51 @@ func NewPool(n int) *Pool {
 	if n < 1 {
 		n = 1
 	}
-	p := &Pool{threads: n, work: make([]chan task, n-1)}
-	for i := range p.work {
-		ch := make(chan task)
-		p.work[i] = ch
-		go p.worker(ch)
+	p := &Pool{threads: n, workers: make([]*worker, n-1)}
+	for i := range p.workers {
+		w := &worker{wake: make(chan struct{}, 1)}
+		p.workers[i] = w
+		go p.loop(w)
 	}
 	return p
 }
 
-func (p *Pool) worker(ch chan task) {
-	for t := range ch {
+func (p *Pool) loop(w *worker) {
+	var last uint64
+	for {
+		for spins := 0; w.seq.Load() == last; spins++ {
+			if spins&1023 == 1023 {
+				runtime.Gosched()
+			}
+			if spins < spinLimit {
+				continue
+			}
+			w.sleeping.Store(true)
+			if w.seq.Load() != last {
+				if !w.sleeping.CompareAndSwap(true, false) {
+					<-w.wake // the caller saw us asleep and sent a token
+				}
+				break
+			}
+			<-w.wake
+			spins = 0
+		}
+		last++
+		t := w.task
+		if t.r == nil {
+			return
+		}
 		t.r.runPart(t.part)
-		p.done.Done()
+		p.pending.Add(-1)
+	}
+}
+
+// post hands a task to w and wakes it if it is parked.
+func (w *worker) post(t task) {
+	w.task = t
+	w.seq.Add(1)
+	if w.sleeping.Load() && w.sleeping.CompareAndSwap(true, false) {
+		w.wake <- struct{}{}
 	}
 }
 
@@ -63,8 +113,8 @@ func (p *Pool) Close() {
 	p.once.Do(func() {
 		p.mu.Lock()
 		defer p.mu.Unlock()
-		for _, ch := range p.work {
-			close(ch)
+		for _, w := range p.workers {
+			w.post(task{})
 		}
 	})
 }
@@ -84,10 +134,14 @@ func (p *Pool) run(r runner, parts int) {
 	}
 	p.mu.Lock()
 	defer p.mu.Unlock()
-	p.done.Add(parts - 1)
+	p.pending.Store(int64(parts - 1))
 	for i := 1; i < parts; i++ {
-		p.work[i-1] <- task{r: r, part: i}
+		p.workers[i-1].post(task{r: r, part: i})
 	}
 	r.runPart(0)
-	p.done.Wait()
+	for spins := 1; p.pending.Load() != 0; spins++ {
+		if spins&255 == 0 {
+			runtime.Gosched()
+		}
+	}
 }
