@@ -115,7 +115,7 @@ func PrepareEnv(ctx context.Context, cfg Config, env Env) (*Dataset, error) {
 			info.Damaged = err
 		}
 	}
-	ds, err := build(ctx, cfg, srcs)
+	ds, err := buildDataset(ctx, cfg, srcs)
 	if err != nil {
 		return nil, err
 	}
@@ -343,10 +343,10 @@ func (w *walker) run(ctx context.Context) error {
 	return nil
 }
 
-// build runs the passes: count the characters (for the contiguous cuts),
+// buildDataset runs the passes: count the characters (for the contiguous cuts),
 // count the training pieces and collect the test lines, learn the
 // vocabulary, then encode the three splits and count the leaked lines.
-func build(ctx context.Context, cfg Config, srcs []source) (*Dataset, error) {
+func buildDataset(ctx context.Context, cfg Config, srcs []source) (*Dataset, error) {
 	kind, _ := parseKind(cfg.Tokenizer)
 	nop := func(int) {}
 	w := &walker{cfg: cfg, srcs: srcs, cut1: math.MaxInt64, cut2: math.MaxInt64,

@@ -109,14 +109,25 @@ type counter struct {
 	kind   Kind
 	ascii  [256]int64 // char: ASCII runes; byte: every byte
 	runes  map[rune]int64
-	pieces map[string]int64
+	pieces map[string]int // piece -> index in n
+	n      []int64
 	sp     *splitter
 }
 
 func newCounter(kind Kind, lower bool) *counter {
-	c := &counter{kind: kind, runes: map[rune]int64{}, pieces: map[string]int64{}}
-	c.sp = newSplitter(kind, lower, func(p []byte, _ int) { c.pieces[string(p)]++ })
+	c := &counter{kind: kind, runes: map[rune]int64{}, pieces: map[string]int{}}
+	c.sp = newSplitter(kind, lower, c.addPiece)
 	return c
+}
+
+func (c *counter) addPiece(p []byte, _ int) {
+	// The lookup m[string(p)] does not allocate; only a new piece does.
+	if i, ok := c.pieces[string(p)]; ok {
+		c.n[i]++
+		return
+	}
+	c.pieces[string(p)] = len(c.n)
+	c.n = append(c.n, 1)
 }
 
 func (c *counter) write(p []byte) {
@@ -167,7 +178,11 @@ func (c *counter) counts() map[string]int64 {
 		}
 		return m
 	}
-	return c.pieces
+	m := make(map[string]int64, len(c.pieces))
+	for p, i := range c.pieces {
+		m[p] = c.n[i]
+	}
+	return m
 }
 
 // LearnVocab reads training text from r (name is used in errors), counts
