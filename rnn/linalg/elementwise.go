@@ -11,7 +11,7 @@ import (
 func Sigmoid[T Float](dst, x []T) {
 	dst = dst[:len(x)]
 	if isF32[T]() {
-		sigmoidSlice32(as32(dst), as32(x))
+		vec().sigmoid(as32(dst), as32(x))
 		return
 	}
 	for i, v := range x {
@@ -25,7 +25,7 @@ func Sigmoid[T Float](dst, x []T) {
 func Tanh[T Float](dst, x []T) {
 	dst = dst[:len(x)]
 	if isF32[T]() {
-		tanhSlice32(as32(dst), as32(x))
+		vec().tanh(as32(dst), as32(x))
 		return
 	}
 	for i, v := range x {
@@ -39,7 +39,7 @@ func Tanh[T Float](dst, x []T) {
 func Exp[T Float](dst, x []T) {
 	dst = dst[:len(x)]
 	if isF32[T]() {
-		expSlice32(as32(dst), as32(x))
+		vec().exp(as32(dst), as32(x))
 		return
 	}
 	for i, v := range x {
@@ -120,23 +120,11 @@ func softmaxCE32(grad, logits []float32, targets []int, rows, cols int, scale fl
 			panic("linalg: SoftmaxCrossEntropy target out of range")
 		}
 		xt := row[t]
-		mx := float32(math.Inf(-1))
-		for _, v := range row {
-			if v > mx {
-				mx = v
-			}
-		}
-		var sum float64
-		for j, v := range row {
-			e := exp32(v - mx)
-			g[j] = e
-			sum += float64(e)
-		}
+		v := vec()
+		mx := v.max(row)
+		sum := v.expShiftSum(g, row, mx)
 		total += float64(mx) + math.Log(sum) - float64(xt)
-		inv := scale / float32(sum)
-		for j := range g {
-			g[j] *= inv
-		}
+		v.scale(g, scale/float32(sum))
 		g[t] -= scale
 	}
 	return total

@@ -15,19 +15,28 @@ const (
 	actMaxAbsErr = 1e-7   // sigmoid32 and tanh32 absolute error
 )
 
-// sweep32 calls f for every stride-th float32 bit pattern, both signs, plus
-// the values next to each boundary of the kernels' branches.
-func sweep32(stride uint32, f func(x float32)) {
+// sweep32 calls check for every stride-th float32 bit pattern, both
+// signs, plus the values next to each boundary of the kernels' branches,
+// with the result of the slice kernel fn, evaluated in chunks of varied
+// length so that the vector tails are exercised too.
+func sweep32(stride uint32, fn func(dst, x []float32), check func(x, got float32)) {
+	var xs []float32
 	for bits := uint64(0); bits < 1<<31; bits += uint64(stride) {
 		x := math.Float32frombits(uint32(bits))
-		f(x)
-		f(-x)
+		xs = append(xs, x, -x)
 	}
 	for _, b := range []float32{expHi, expLo, 88.72, 88.73, -103.9, -104, 0.625, 9.1, 1e-30, 1e-45} {
 		for _, x := range []float32{b, math.Nextafter32(b, 0), math.Nextafter32(b, 1000)} {
-			f(x)
-			f(-x)
+			xs = append(xs, x, -x)
 		}
+	}
+	got := make([]float32, len(xs))
+	for lo, n := 0, 1; lo < len(xs); lo, n = lo+n, n%4099+1 {
+		hi := min(lo+n, len(xs))
+		fn(got[lo:hi], xs[lo:hi])
+	}
+	for i, x := range xs {
+		check(x, got[i])
 	}
 }
 
@@ -36,76 +45,108 @@ func sweep32(stride uint32, f func(x float32)) {
 const sweepStride = 509
 
 func TestExp32Accuracy(t *testing.T) {
-	var maxRel float64
-	var worst float32
-	sweep32(sweepStride, func(x float32) {
-		got := float64(exp32(x))
-		want := math.Exp(float64(x)) // reference: package math in float64
-		if math.IsNaN(float64(x)) {
-			return
-		}
-		if want > math.MaxFloat32*(1+0x1p-25) {
-			if !math.IsInf(got, 1) {
-				t.Fatalf("exp32(%g): got %g want +Inf (overflow)", x, got)
+	for _, impl := range vecImpls {
+		t.Run("impl="+impl.name, func(t *testing.T) {
+			var maxRel float64
+			var worst float32
+			sweep32(sweepStride, impl.exp, func(x, got32 float32) {
+				got := float64(got32)
+				want := math.Exp(float64(x)) // reference: package math in float64
+				if math.IsNaN(float64(x)) {
+					return
+				}
+				if want > math.MaxFloat32*(1+0x1p-25) {
+					if !math.IsInf(got, 1) {
+						t.Fatalf("exp(%g): got %g want +Inf (overflow)", x, got)
+					}
+					return
+				}
+				if want < 0x1p-126 { // subnormal or zero result: absolute check
+					if d := math.Abs(got - want); d > 0x1p-149 {
+						t.Fatalf("exp(%g): got %g want %g (subnormal, |diff| %g > 2^-149)", x, got, want, d)
+					}
+					return
+				}
+				if rel := math.Abs(got-want) / want; rel > maxRel {
+					maxRel, worst = rel, x
+				}
+			})
+			t.Logf("exp: max relative error %.3g at x=%g", maxRel, worst)
+			if maxRel > expMaxRelErr {
+				t.Errorf("exp: max relative error %g at x=%g, want <= %g", maxRel, worst, expMaxRelErr)
 			}
-			return
-		}
-		if want < 0x1p-126 { // subnormal or zero result: absolute check
-			if d := math.Abs(got - want); d > 0x1p-149 {
-				t.Fatalf("exp32(%g): got %g want %g (subnormal, |diff| %g > 2^-149)", x, got, want, d)
-			}
-			return
-		}
-		if rel := math.Abs(got-want) / want; rel > maxRel {
-			maxRel, worst = rel, x
-		}
-	})
-	t.Logf("exp32: max relative error %.3g at x=%g", maxRel, worst)
-	if maxRel > expMaxRelErr {
-		t.Errorf("exp32: max relative error %g at x=%g, want <= %g", maxRel, worst, expMaxRelErr)
+		})
 	}
 }
 
 func TestActivation32Accuracy(t *testing.T) {
-	cases := []struct {
-		name string
-		f    func(float32) float32
-		ref  func(float64) float64
-	}{
-		{"sigmoid", sigmoid32, func(x float64) float64 { return 1 / (1 + math.Exp(-x)) }}, // reference: definition in float64
-		{"tanh", tanh32, math.Tanh}, // reference: package math in float64
-	}
-	for _, tc := range cases {
-		t.Run(tc.name, func(t *testing.T) {
-			var maxAbs, maxRel float64
-			var worstAbs, worstRel float32
-			sweep32(sweepStride, func(x float32) {
-				if x != x {
-					return
-				}
-				got := float64(tc.f(x))
-				want := tc.ref(float64(x))
-				d := math.Abs(got - want)
-				if d > maxAbs {
-					maxAbs, worstAbs = d, x
-				}
-				if math.Abs(want) >= 0x1p-126 {
-					if rel := d / math.Abs(want); rel > maxRel {
-						maxRel, worstRel = rel, x
+	for _, impl := range vecImpls {
+		cases := []struct {
+			name string
+			f    func(dst, x []float32)
+			ref  func(float64) float64
+		}{
+			{"sigmoid", impl.sigmoid, func(x float64) float64 { return 1 / (1 + math.Exp(-x)) }}, // reference: definition in float64
+			{"tanh", impl.tanh, math.Tanh}, // reference: package math in float64
+		}
+		for _, tc := range cases {
+			t.Run("impl="+impl.name+"/fn="+tc.name, func(t *testing.T) {
+				var maxAbs, maxRel float64
+				var worstAbs, worstRel float32
+				sweep32(sweepStride, tc.f, func(x, got32 float32) {
+					if x != x {
+						return
 					}
-				} else if d > 0x1p-126 {
-					// Subnormal results may flush to zero (σ(x) for x < −88.72).
-					t.Fatalf("%s(%g): got %g want %g (|diff| %g > 2^-126)", tc.name, x, got, want, d)
+					got := float64(got32)
+					want := tc.ref(float64(x))
+					d := math.Abs(got - want)
+					if d > maxAbs {
+						maxAbs, worstAbs = d, x
+					}
+					if math.Abs(want) >= 0x1p-126 {
+						if rel := d / math.Abs(want); rel > maxRel {
+							maxRel, worstRel = rel, x
+						}
+					} else if d > 0x1p-126 {
+						// Subnormal results may flush to zero (σ(x) for x < −88.72).
+						t.Fatalf("%s(%g): got %g want %g (|diff| %g > 2^-126)", tc.name, x, got, want, d)
+					}
+				})
+				t.Logf("%s: max abs error %.3g at x=%g, max rel error %.3g at x=%g", tc.name, maxAbs, worstAbs, maxRel, worstRel)
+				if maxAbs > actMaxAbsErr {
+					t.Errorf("%s: max abs error %g at x=%g, want <= %g", tc.name, maxAbs, worstAbs, actMaxAbsErr)
+				}
+				if maxRel > actMaxRelErr {
+					t.Errorf("%s: max rel error %g at x=%g, want <= %g", tc.name, maxRel, worstRel, actMaxRelErr)
 				}
 			})
-			t.Logf("%s: max abs error %.3g at x=%g, max rel error %.3g at x=%g", tc.name, maxAbs, worstAbs, maxRel, worstRel)
-			if maxAbs > actMaxAbsErr {
-				t.Errorf("%s: max abs error %g at x=%g, want <= %g", tc.name, maxAbs, worstAbs, actMaxAbsErr)
+		}
+	}
+}
+
+// TestExpShiftSum checks the softmax helper of every implementation against
+// float64 sums of math.Exp, for lengths around the vector width.
+func TestExpShiftSum(t *testing.T) {
+	for _, impl := range vecImpls {
+		for _, n := range []int{0, 1, 15, 16, 17, 33, 1000} {
+			x := make([]float32, n)
+			for i := range x {
+				x[i] = float32(i%13) - 6.5
 			}
-			if maxRel > actMaxRelErr {
-				t.Errorf("%s: max rel error %g at x=%g, want <= %g", tc.name, maxRel, worstRel, actMaxRelErr)
+			dst := make([]float32, n)
+			got := impl.expShiftSum(dst, x, 2.5)
+			var want float64
+			for i, v := range x {
+				e := math.Exp(float64(v) - 2.5) // reference: package math
+				want += e
+				if math.Abs(float64(dst[i])-e) > expMaxRelErr*e*2 {
+					t.Fatalf("%s n=%d: dst[%d] got %g want %g", impl.name, n, i, dst[i], e)
+				}
 			}
-		})
+			if math.Abs(got-want) > 2*expMaxRelErr*want {
+				t.Errorf("%s n=%d: sum got %.9g want %.9g", impl.name, n, got, want)
+			}
+		}
 	}
 }
 
@@ -117,38 +158,43 @@ func TestElementwiseSpecialValues(t *testing.T) {
 	same := func(a, b float32) bool {
 		return math.Float32bits(a) == math.Float32bits(b) || (a != a && b != b)
 	}
+	type fn = func(dst, x []float32)
+	var exp, sigmoid, tanh fn
 	cases := []struct {
 		name string
-		f    func(dst, x []float32)
+		f    *fn
 		x    float32
 		want float32
 	}{
-		{"exp", Exp[float32], 0, 1},
-		{"exp", Exp[float32], negZero, 1},
-		{"exp", Exp[float32], inf, inf},
-		{"exp", Exp[float32], -inf, 0},
-		{"exp", Exp[float32], 89, inf},            // e^89 > MaxFloat32
-		{"exp", Exp[float32], -104, 0},            // e^-104 < 2^-150
-		{"exp", Exp[float32], 1, float32(math.E)}, // rounds to the nearest float32 of e
-		{"exp", Exp[float32], nan, nan},
-		{"sigmoid", Sigmoid[float32], 0, 0.5},
-		{"sigmoid", Sigmoid[float32], inf, 1},
-		{"sigmoid", Sigmoid[float32], -inf, 0},
-		{"sigmoid", Sigmoid[float32], 100, 1},
-		{"sigmoid", Sigmoid[float32], nan, nan},
-		{"tanh", Tanh[float32], 0, 0},
-		{"tanh", Tanh[float32], negZero, negZero},
-		{"tanh", Tanh[float32], inf, 1},
-		{"tanh", Tanh[float32], -inf, -1},
-		{"tanh", Tanh[float32], 20, 1},
-		{"tanh", Tanh[float32], -20, -1},
-		{"tanh", Tanh[float32], nan, nan},
+		{"exp", &exp, 0, 1},
+		{"exp", &exp, negZero, 1},
+		{"exp", &exp, inf, inf},
+		{"exp", &exp, -inf, 0},
+		{"exp", &exp, 89, inf},            // e^89 > MaxFloat32
+		{"exp", &exp, -104, 0},            // e^-104 < 2^-150
+		{"exp", &exp, 1, float32(math.E)}, // rounds to the nearest float32 of e
+		{"exp", &exp, nan, nan},
+		{"sigmoid", &sigmoid, 0, 0.5},
+		{"sigmoid", &sigmoid, inf, 1},
+		{"sigmoid", &sigmoid, -inf, 0},
+		{"sigmoid", &sigmoid, 100, 1},
+		{"sigmoid", &sigmoid, nan, nan},
+		{"tanh", &tanh, 0, 0},
+		{"tanh", &tanh, negZero, negZero},
+		{"tanh", &tanh, inf, 1},
+		{"tanh", &tanh, -inf, -1},
+		{"tanh", &tanh, 20, 1},
+		{"tanh", &tanh, -20, -1},
+		{"tanh", &tanh, nan, nan},
 	}
-	for _, tc := range cases {
-		dst := []float32{42}
-		tc.f(dst, []float32{tc.x})
-		if !same(dst[0], tc.want) {
-			t.Errorf("%s(%g): got %g want %g", tc.name, tc.x, dst[0], tc.want)
+	for _, impl := range vecImpls {
+		exp, sigmoid, tanh = impl.exp, impl.sigmoid, impl.tanh
+		for _, tc := range cases {
+			dst := []float32{42}
+			(*tc.f)(dst, []float32{tc.x})
+			if !same(dst[0], tc.want) {
+				t.Errorf("%s: %s(%g): got %g want %g", impl.name, tc.name, tc.x, dst[0], tc.want)
+			}
 		}
 	}
 }
@@ -301,5 +347,45 @@ func TestSoftmaxCrossEntropyNonFinite(t *testing.T) {
 	logits = []float32{0, float32(math.NaN()), 1}
 	if loss := SoftmaxCrossEntropy(make([]float32, 3), logits, []int{2}, 1, 3, 1); !math.IsNaN(loss) {
 		t.Errorf("loss with a NaN score: got %g want NaN", loss)
+	}
+}
+
+// TestMaxScale checks the softmax helpers of every implementation, for
+// lengths around the vector width, with the maximum at every position.
+func TestMaxScale(t *testing.T) {
+	nan := float32(math.NaN())
+	for _, impl := range vecImpls {
+		if got := impl.max(nil); !math.IsInf(float64(got), -1) {
+			t.Errorf("%s: max of nothing: got %g want -Inf", impl.name, got)
+		}
+		for _, n := range []int{1, 2, 15, 16, 17, 31, 32, 33, 47, 100} {
+			for at := 0; at < n; at++ {
+				x := make([]float32, n)
+				for i := range x {
+					x[i] = -float32(i % 7)
+				}
+				x[(at+1)%n] = nan // skipped
+				if n > 1 {
+					x[at] = 5
+				}
+				want := float32(5)
+				if n == 1 {
+					want = float32(math.Inf(-1)) // the only element is NaN
+				}
+				if got := impl.max(x); got != want {
+					t.Fatalf("%s n=%d max at %d: got %g want %g", impl.name, n, at, got, want)
+				}
+			}
+			x := make([]float32, n)
+			for i := range x {
+				x[i] = float32(i)
+			}
+			impl.scale(x, 0.5)
+			for i, v := range x {
+				if v != float32(i)*0.5 {
+					t.Fatalf("%s n=%d scale: x[%d] got %g want %g", impl.name, n, i, v, float32(i)*0.5)
+				}
+			}
+		}
 	}
 }

@@ -111,24 +111,75 @@ func tanh32(x float32) float32 {
 	return y
 }
 
-// expSlice32, sigmoidSlice32 and tanhSlice32 are the float32 slice loops.
-func expSlice32(dst, x []float32) {
+// vecImpl is one implementation of the float32 slice kernels.
+type vecImpl struct {
+	name               string
+	exp, sigmoid, tanh func(dst, x []float32)
+	expShiftSum        func(dst, x []float32, shift float32) float64 // dst = e^(x−shift), returns Σ dst in float64
+	max                func(x []float32) float32                     // largest element, NaNs skipped, −Inf if empty
+	scale              func(x []float32, s float32)                  // x *= s
+}
+
+// vecImpls lists the implementations this CPU can run, fastest first; the
+// pure-Go one is always last. The kernels use the first.
+var vecImpls = append(archVecImpls(), vecGo)
+
+func vec() *vecImpl { return vecImpls[0] }
+
+var vecGo = &vecImpl{
+	name:        "go",
+	exp:         expSliceGo,
+	sigmoid:     sigmoidSliceGo,
+	tanh:        tanhSliceGo,
+	expShiftSum: expShiftSumGo,
+	max:         maxGo,
+	scale:       scaleGo,
+}
+
+func maxGo(x []float32) float32 {
+	mx := float32(math.Inf(-1))
+	for _, v := range x {
+		if v > mx {
+			mx = v
+		}
+	}
+	return mx
+}
+
+func scaleGo(x []float32, s float32) {
+	for i := range x {
+		x[i] *= s
+	}
+}
+
+func expSliceGo(dst, x []float32) {
 	dst = dst[:len(x)]
 	for i, v := range x {
 		dst[i] = exp32(v)
 	}
 }
 
-func sigmoidSlice32(dst, x []float32) {
+func sigmoidSliceGo(dst, x []float32) {
 	dst = dst[:len(x)]
 	for i, v := range x {
 		dst[i] = sigmoid32(v)
 	}
 }
 
-func tanhSlice32(dst, x []float32) {
+func tanhSliceGo(dst, x []float32) {
 	dst = dst[:len(x)]
 	for i, v := range x {
 		dst[i] = tanh32(v)
 	}
+}
+
+func expShiftSumGo(dst, x []float32, shift float32) float64 {
+	dst = dst[:len(x)]
+	var sum float64
+	for i, v := range x {
+		e := exp32(v - shift)
+		dst[i] = e
+		sum += float64(e)
+	}
+	return sum
 }
