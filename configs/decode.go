@@ -436,6 +436,10 @@ func (t *Training) validate() error {
 		return fmt.Errorf("training.divergence_retries must not be negative, got %d", t.DivergenceRetries)
 	case !(t.DivergenceLRFactor > 0 && t.DivergenceLRFactor < 1):
 		return fmt.Errorf("training.divergence_lr_factor must be above 0 and below 1, got %g", t.DivergenceLRFactor)
+	case !(t.WindowVariation >= 0 && t.WindowVariation < 1):
+		return fmt.Errorf("training.window_variation must be from 0 to below 1, got %g", t.WindowVariation)
+	case t.WindowVariation > 0 && t.BPTTAdvanceSteps > 0:
+		return fmt.Errorf("training.window_variation needs training.bptt_advance_steps = 0 (replay windows have a fixed length)")
 	}
 	if t.MaxDuration != "" {
 		d, err := time.ParseDuration(t.MaxDuration)

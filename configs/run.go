@@ -62,6 +62,14 @@ type Training struct {
 	// DivergenceLRFactor multiplies the learning rate at each recovery from
 	// a divergence, from above 0 to below 1. Default 0.5.
 	DivergenceLRFactor float64 `toml:"divergence_lr_factor"`
+
+	// WindowVariation shortens training windows at random, as a fraction
+	// of unroll_steps from 0 to below 1: a window has between
+	// unroll_steps·(1−window_variation) (exclusive) and unroll_steps
+	// steps, drawn from training.seed, so that the gradient does not
+	// always cut the text at the same places. Zero means every window has
+	// unroll_steps steps. It needs bptt_advance_steps = 0. Default 0.
+	WindowVariation float64 `toml:"window_variation"`
 }
 
 // Evaluation is the [evaluation] section: when the run measures itself on
