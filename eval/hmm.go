@@ -543,8 +543,6 @@ type fbWork struct {
 	ckpt  []float64 // α̂ at the start of every block
 	alpha []float64 // α̂_t of the current block, position-major
 	u     []float64 // u_t(j) = b_j(o_t)·β̂_t(j)/c_t of the current block
-	aT    []float64 // alpha transposed (state-major)
-	uT    []float64 // u shifted by one position, transposed
 	beta  []float64
 	tmp   []float64
 }
@@ -554,7 +552,6 @@ func newFB(n, T int) *fbWork {
 		scale: make([]float64, T),
 		ckpt:  make([]float64, ((T+fbBlock-1)/fbBlock)*n),
 		alpha: make([]float64, fbBlock*n), u: make([]float64, (fbBlock+1)*n),
-		aT: make([]float64, fbBlock*n), uT: make([]float64, fbBlock*n),
 		beta: make([]float64, n), tmp: make([]float64, n)}
 }
 
@@ -659,9 +656,7 @@ func (fb *fbWork) run(h *HMM, obs []int, acc *bwAcc, post []float64) float64 {
 			pairs = L - 1
 		}
 		if pairs > 0 {
-			transpose(fb.aT, fb.alpha[:pairs*n], pairs, n)
-			transpose(fb.uT, fb.u[n:(pairs+1)*n], pairs, n)
-			gemmNT(acc.x, fb.aT, fb.uT, n, pairs, acc.threads)
+			gemmTN(acc.x, fb.alpha[:pairs*n], fb.u[n:(pairs+1)*n], n, pairs, acc.threads)
 		}
 		// The earlier block (always full) reads u_t0 at its index L.
 		copy(fb.u[fbBlock*n:(fbBlock+1)*n], fb.u[:n])
@@ -669,48 +664,52 @@ func (fb *fbWork) run(h *HMM, obs []int, acc *bwAcc, post []float64) float64 {
 	return ll
 }
 
-// transpose writes the rows×cols matrix src (row-major) to dst as
-// cols×rows.
-func transpose(dst, src []float64, rows, cols int) {
-	for r := range rows {
-		row := src[r*cols : (r+1)*cols]
-		for c, x := range row {
-			dst[c*rows+r] = x
+// vecMat sets dst[j] = Σ_i x[i]·m[i*n+j], four rows of m at a time.
+func vecMat(dst, x, m []float64, n int) {
+	dst = dst[:n]
+	clear(dst)
+	i := 0
+	for ; i+4 <= len(x); i += 4 {
+		x0, x1, x2, x3 := x[i], x[i+1], x[i+2], x[i+3]
+		r0 := m[i*n : (i+1)*n]
+		r1 := m[(i+1)*n : (i+2)*n]
+		r2 := m[(i+2)*n : (i+3)*n]
+		r3 := m[(i+3)*n : (i+4)*n]
+		for j := range dst {
+			dst[j] += x0*r0[j] + x1*r1[j] + x2*r2[j] + x3*r3[j]
 		}
 	}
-}
-
-// vecMat sets dst[j] = Σ_i x[i]·m[i*n+j].
-func vecMat(dst, x, m []float64, n int) {
-	clear(dst)
-	for i, xi := range x {
-		if xi == 0 {
-			continue
-		}
-		row := m[i*n : (i+1)*n]
-		axpy(dst[:n], xi, row)
+	for ; i < len(x); i++ {
+		axpy(dst, x[i], m[i*n:(i+1)*n])
 	}
 }
 
 func axpy(dst []float64, a float64, x []float64) {
 	x = x[:len(dst)]
-	j := 0
-	for ; j+4 <= len(dst); j += 4 {
-		d := dst[j : j+4 : j+4]
-		s := x[j : j+4 : j+4]
-		d[0] += a * s[0]
-		d[1] += a * s[1]
-		d[2] += a * s[2]
-		d[3] += a * s[3]
-	}
-	for ; j < len(dst); j++ {
+	for j := range dst {
 		dst[j] += a * x[j]
 	}
 }
 
-// matVec sets dst[i] = Σ_j m[i*n+j]·x[j].
+// matVec sets dst[i] = Σ_j m[i*n+j]·x[j], four rows of m at a time.
 func matVec(dst, m, x []float64, n int) {
-	for i := range dst {
+	x = x[:n]
+	i := 0
+	for ; i+4 <= len(dst); i += 4 {
+		r0 := m[i*n : (i+1)*n]
+		r1 := m[(i+1)*n : (i+2)*n]
+		r2 := m[(i+2)*n : (i+3)*n]
+		r3 := m[(i+3)*n : (i+4)*n]
+		var s0, s1, s2, s3 float64
+		for j, xj := range x {
+			s0 += r0[j] * xj
+			s1 += r1[j] * xj
+			s2 += r2[j] * xj
+			s3 += r3[j] * xj
+		}
+		dst[i], dst[i+1], dst[i+2], dst[i+3] = s0, s1, s2, s3
+	}
+	for ; i < len(dst); i++ {
 		dst[i] = dot(m[i*n:(i+1)*n], x)
 	}
 }
@@ -733,11 +732,12 @@ func dot(a, b []float64) float64 {
 	return (s0 + s1) + (s2 + s3)
 }
 
-// gemmNT adds a·bᵀ to c, with a and b both n×k row-major and c n×n, in
-// 4×4 register tiles, the rows of c split over threads goroutines.
-func gemmNT(c, a, b []float64, n, k, threads int) {
+// gemmTN adds aᵀ·b to c, with a and b both k×n row-major (k positions
+// of n states) and c n×n, in 4×4 register tiles, the rows of c split over
+// threads goroutines.
+func gemmTN(c, a, b []float64, n, k, threads int) {
 	if threads <= 1 || n < 32 {
-		gemmNTRows(c, a, b, n, k, 0, n)
+		gemmTNRows(c, a, b, n, k, 0, n)
 		return
 	}
 	var wg sync.WaitGroup
@@ -747,23 +747,24 @@ func gemmNT(c, a, b []float64, n, k, threads int) {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			gemmNTRows(c, a, b, n, k, lo, hi)
+			gemmTNRows(c, a, b, n, k, lo, hi)
 		}()
 	}
 	wg.Wait()
 }
 
-func gemmNTRows(c, a, b []float64, n, k, lo, hi int) {
+func gemmTNRows(c, a, b []float64, n, k, lo, hi int) {
+	a, b = a[:k*n], b[:k*n]
 	i := lo
 	for ; i+4 <= hi; i += 4 {
-		a0, a1, a2, a3 := a[i*k:(i+1)*k], a[(i+1)*k:(i+2)*k], a[(i+2)*k:(i+3)*k], a[(i+3)*k:(i+4)*k]
 		j := 0
 		for ; j+4 <= n; j += 4 {
-			b0, b1, b2, b3 := b[j*k:(j+1)*k], b[(j+1)*k:(j+2)*k], b[(j+2)*k:(j+3)*k], b[(j+3)*k:(j+4)*k]
 			var c00, c01, c02, c03, c10, c11, c12, c13, c20, c21, c22, c23, c30, c31, c32, c33 float64
-			for t := range k {
-				x0, x1, x2, x3 := a0[t], a1[t], a2[t], a3[t]
-				y0, y1, y2, y3 := b0[t], b1[t], b2[t], b3[t]
+			for t := 0; t < k*n; t += n {
+				x := a[t+i : t+i+4 : t+i+4]
+				y := b[t+j : t+j+4 : t+j+4]
+				x0, x1, x2, x3 := x[0], x[1], x[2], x[3]
+				y0, y1, y2, y3 := y[0], y[1], y[2], y[3]
 				c00 += x0 * y0
 				c01 += x0 * y1
 				c02 += x0 * y2
@@ -781,7 +782,10 @@ func gemmNTRows(c, a, b []float64, n, k, lo, hi int) {
 				c32 += x3 * y2
 				c33 += x3 * y3
 			}
-			r0, r1, r2, r3 := c[i*n+j:i*n+j+4], c[(i+1)*n+j:(i+1)*n+j+4], c[(i+2)*n+j:(i+2)*n+j+4], c[(i+3)*n+j:(i+3)*n+j+4]
+			r0 := c[i*n+j : i*n+j+4 : i*n+j+4]
+			r1 := c[(i+1)*n+j : (i+1)*n+j+4 : (i+1)*n+j+4]
+			r2 := c[(i+2)*n+j : (i+2)*n+j+4 : (i+2)*n+j+4]
+			r3 := c[(i+3)*n+j : (i+3)*n+j+4 : (i+3)*n+j+4]
 			r0[0] += c00
 			r0[1] += c01
 			r0[2] += c02
@@ -800,14 +804,22 @@ func gemmNTRows(c, a, b []float64, n, k, lo, hi int) {
 			r3[3] += c33
 		}
 		for ; j < n; j++ {
-			for r := range 4 {
-				c[(i+r)*n+j] += dot(a[(i+r)*k:(i+r+1)*k], b[j*k:(j+1)*k])
+			for r := i; r < i+4; r++ {
+				gemmTNOne(c, a, b, n, k, r, j)
 			}
 		}
 	}
 	for ; i < hi; i++ {
 		for j := range n {
-			c[i*n+j] += dot(a[i*k:(i+1)*k], b[j*k:(j+1)*k])
+			gemmTNOne(c, a, b, n, k, i, j)
 		}
 	}
+}
+
+func gemmTNOne(c, a, b []float64, n, k, i, j int) {
+	var s float64
+	for t := range k {
+		s += a[t*n+i] * b[t*n+j]
+	}
+	c[i*n+j] += s
 }

@@ -168,3 +168,36 @@ func TestMixture(t *testing.T) {
 		}
 	}
 }
+
+func TestScoreAndMarkov(t *testing.T) {
+	// Score fills kind and state bits from the model; a Markov chain is
+	// the add-k model of order k+1 (same probabilities) under its own name.
+	w, seq := samCorpus(t)
+	c, err := CountNGrams(seq, len(w.list), 3, w.id("</s>"), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	mc, err := NewMarkovChain(c, 1, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	r, lp, err := Score(context.Background(), mc, "test", seq, 50)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if r.Kind != "markov" || r.Model != "markov-1(add 1)" || len(lp) != len(seq) {
+		t.Errorf("markov row: got kind %q, model %q", r.Kind, r.Model)
+	}
+	// J&M ch. 3 add-one: P*(am | I) = (2+1)/(3+11).
+	checkClose(t, "markov P(am|I)", probOf(t, mc, w, "am", "I"), 3.0/14, tolExact)
+	h, _ := NewHMM([]float64{.5, .5, 0, 0}, []float64{.25, .25, .25, .25, .25, .25, .25, .25, .25, .25, .25, .25, .25, .25, .25, .25},
+		[]float64{.5, .5, .5, .5, .5, .5, .5, .5}, 4, 2)
+	r, _, err = Score(context.Background(), h, "test", []int{0, 1, 1}, 3)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Every symbol has probability 1/2 whatever the state: 1 bit each.
+	if r.StateBits != 2 || r.Kind != "hmm" || !close(r.BitsPerChar, 1, tolExact) {
+		t.Errorf("hmm row: got state bits %g, kind %q, bpc %g; want 2, hmm, 1", r.StateBits, r.Kind, r.BitsPerChar)
+	}
+}

@@ -1,7 +1,3 @@
-// Package eval scores language models on held-out text: cross-entropy,
-// perplexity and bits per character with bootstrap intervals, and the
-// classical baselines (n-gram smoothers, Markov chains and hidden Markov
-// models) that recurrent models are compared against.
 package eval
 
 import "context"
@@ -20,4 +16,47 @@ type LanguageModel interface {
 	// P(seq[i] | seq[:i]) for every i, where the history before seq[0] is
 	// the start of a document. len(dst) must equal len(seq).
 	LogProbs(ctx context.Context, dst []float64, seq []int) error
+}
+
+// Distributor is implemented by models that can give the whole
+// next-token distribution at once. Tests use it to check that every
+// distribution sums to 1; samplers draw from it.
+type Distributor interface {
+	// Distribution writes P(w | history) to dst[w] for every token id w,
+	// len(dst) == VocabSize(), with history read as a prefix of a
+	// LogProbs sequence (its start is the start of a document).
+	Distribution(dst []float64, history []int) error
+}
+
+// Kinder is implemented by models that name their family for the kind
+// column of a Result: "ngram", "markov", "hmm", "interpolated", "uniform".
+type Kinder interface {
+	Kind() string
+}
+
+// StateBitser is implemented by models with a finite state, the hidden
+// Markov models, reporting the memory that state can hold in bits.
+type StateBitser interface {
+	StateBits() float64
+}
+
+// Score runs m over the held-out tokens seq and summarises the scores as
+// a Result for the named split, with characters the length of the
+// held-out text. It returns the per-token log-probabilities too, for
+// Bootstrap, Marked and FrequencyBands. Kind and StateBits are filled in
+// when m reports them; "unknown" otherwise.
+func Score(ctx context.Context, m LanguageModel, split string, seq []int, characters int) (Result, []float64, error) {
+	lp := make([]float64, len(seq))
+	if err := m.LogProbs(ctx, lp, seq); err != nil {
+		return Result{}, nil, err
+	}
+	kind := "unknown"
+	if k, ok := m.(Kinder); ok {
+		kind = k.Kind()
+	}
+	r := NewResult(m.Name(), kind, split, lp, characters)
+	if s, ok := m.(StateBitser); ok {
+		r.StateBits = s.StateBits()
+	}
+	return r, lp, nil
 }

@@ -1,0 +1,145 @@
+// Package eval scores language models on held-out text: cross-entropy,
+// perplexity and bits per character with bootstrap intervals, and the
+// classical baselines (n-gram smoothers, Markov chains and hidden Markov
+// models) that recurrent models are compared against.
+//
+// # Models and units
+//
+// Every model satisfies LanguageModel: LogProbs writes the natural
+// logarithm of P(token | history) for each token, so scores are in nats
+// until a Result converts them. For a held-out split of T tokens spanning
+// C characters:
+//
+//	cross_entropy_nats = -Σ_t ln P(x_t | x_<t)        (a total, not a mean)
+//	cross_entropy_bits = cross_entropy_nats / ln 2
+//	bits_per_token     = cross_entropy_bits / T
+//	perplexity         = 2^bits_per_token              (per token)
+//	bits_per_char      = cross_entropy_bits / C
+//
+// Bits per character divides by the characters of the text whatever the
+// tokenization, so character, word and sub-word models share one scale,
+// provided each model's probabilities cover the whole text: a closed-
+// vocabulary word model whose unknown symbol stands for many strings does
+// not, and Result.SetUnknown marks such a row not comparable, with the
+// reason. A probability of zero gives ln 0 = -Inf and an infinite row;
+// rows keep their infinities, in tables and in JSON ("+Inf"), and are
+// never dropped.
+//
+// # Documents, boundaries and padding
+//
+// Baselines are fitted on training token ids 0..V-1. A boundary token id
+// may be given (NoBoundary for none): it ends a document, a line or a
+// sentence. It is itself predicted and counted like any other token, and
+// the context after it starts afresh, exactly as at the start of the
+// sequence. In n-gram counts the positions before the start of a document
+// are filled with a padding symbol (id V, never predicted), so the first
+// token of every document is counted after n-1 padding symbols (Jurafsky &
+// Martin's <s>), and the boundary token plays </s>.
+//
+// # n-gram smoothers
+//
+// CountNGrams counts once, at the largest order wanted; NewNGram builds a
+// model of any order up to it with one of these methods. Below, h is the
+// context (the n-1 tokens before w), h' is h without its earliest token,
+// c(h w) the count of h followed by w, c(h •) = Σ_w c(h w), N1+(h •) the
+// number of distinct tokens seen after h, and V the vocabulary size.
+//
+// Maximum likelihood, unsmoothed, on the longest context seen in training
+// (falling back to shorter ones only when the context never occurred):
+//
+//	P(w | h) = c(h w) / c(h •)
+//
+// Add-k (Lidstone 1920; k = 1 is Laplace's add-one, Jurafsky & Martin ch.
+// 3), on the full context only:
+//
+//	P(w | h) = (c(h w) + k) / (c(h •) + k·V)
+//
+// The other four interpolate recursively with the next shorter context
+// and, below the unigram level, with the base distribution
+//
+//	P_base(w) = 1/V,
+//
+// so that no token of the vocabulary ever gets probability zero. A
+// context never seen in training passes the shorter context's
+// distribution through unchanged.
+//
+// Witten-Bell (Witten & Bell 1991; interpolated form of Chen & Goodman
+// 1998, eq. 17):
+//
+//	P(w | h) = (c(h w) + N1+(h •)·P(w | h')) / (c(h •) + N1+(h •))
+//
+// Absolute discounting (Ney, Essen & Kneser 1994; Chen & Goodman eq. 20),
+// with D from 0 to 1:
+//
+//	P(w | h) = max(c(h w) - D, 0)/c(h •) + D·N1+(h •)/c(h •) · P(w | h')
+//
+// Interpolated Kneser-Ney (Kneser & Ney 1995; Chen & Goodman eq. 21-23):
+// absolute discounting at the highest order, and at every lower order the
+// counts replaced by continuation counts, the number of distinct tokens
+// seen before the n-gram, N1+(• h w), with totals Σ_w N1+(• h w).
+//
+// Modified Kneser-Ney (Chen & Goodman 1998, eq. 25-26): as Kneser-Ney, with
+// three discounts D(c) = D1, D2, D3+ for counts 1, 2 and 3 or more, and the
+// lower-order weight
+//
+//	γ(h) = [D1·N1(h •) + D2·N2(h •) + D3+·N3+(h •)] / Σ_w c(h w)
+//
+// where Nr(h •) counts the tokens seen exactly r (or at least 3) times
+// after h, under the counts of that order.
+//
+// Discounts are estimated for each order separately from its
+// count-of-counts n1..n4 (the number of n-grams of that order whose count,
+// raw at the top order and continuation below for the Kneser-Ney methods,
+// is 1..4): D = n1/(n1+2·n2) (Ney, Essen & Kneser 1994) and D1, D2, D3+ by
+// ModifiedDiscounts (Chen & Goodman 1998, eq. 26), unless fixed values are
+// given in Smoothing. Smoothing.NoFloor drops the uniform base, leaving
+// the plain unigram estimate (relative frequency, or continuation
+// frequency for the Kneser-Ney methods) at the bottom; it exists to
+// reproduce other implementations in tests.
+//
+// MarkovChain is the fixed-order chain of context length k with additive
+// smoothing, the add-k model of order k+1 under its own name.
+//
+// # Hidden Markov models
+//
+// HMM is a discrete hidden Markov model with N states trained by
+// Baum-Welch (TrainHMM): seeded initialisation, the scaled forward-
+// backward algorithm (Rabiner 1989), stopping on a relative log-likelihood
+// change below a tolerance or at an iteration cap. It scores by the
+// forward algorithm, carrying its filtered state distribution through the
+// text (resetting to π after a boundary token), so it remembers at most
+// log2 N bits of the past (StateBits). Viterbi and Posteriors decode.
+// Emissions are mixed with a small uniform floor when scoring, so unseen
+// symbols keep a probability.
+//
+// # Interpolation
+//
+// Mixture mixes two models linearly, λ·P_A + (1-λ)·P_B; TuneMixture fits
+// λ on validation log-probabilities by EM.
+//
+// # Breakdowns
+//
+// Marked scores a caller-given subset of positions (a per-token mask, see
+// MarkIndices) against the rest; FrequencyBands groups tokens by their
+// training count in decades (unseen, 1, 2-9, 10-99, ...). Both report bits
+// per character of the subset: its bits over the characters its tokens
+// span.
+//
+// # Bootstrap intervals
+//
+// Bootstrap gives percentile intervals for every model's bits per
+// character and for its difference from a reference model by a paired
+// block bootstrap: the held-out text is cut into contiguous blocks of
+// BlockChars characters (a token belongs to the block holding its first
+// character), each resample draws as many blocks with replacement, seeded,
+// and all models are scored on the same drawn blocks, so their difference
+// is measured on identical text.
+//
+// # Progress and files
+//
+// Long steps take an optional ProgressFunc; the package never prints.
+// SaveCounts and SaveHMM cache fitted baselines in a versioned file format
+// with a SHA-256 checksum (its layout is documented on FormatVersion);
+// loading damaged files
+// gives errors wrapping ErrCorrupt.
+package eval
