@@ -330,11 +330,15 @@ func (v *Vocab) lookup(p []byte) int {
 
 // encoder turns streamed normalized text into token ids.
 type encoder struct {
-	v    *Vocab
-	emit func(id, chars int)
-	sp   *splitter
-	buf  []int32
+	v     *Vocab
+	emit  func(id, chars int)
+	sp    *splitter
+	buf   []int32
+	cache map[string][]int32 // bpe: ids of recent pieces, at most bpeCacheSize
 }
+
+// bpeCacheSize bounds the pieces whose bpe encoding an encoder remembers.
+const bpeCacheSize = 1 << 15
 
 func (v *Vocab) newEncoder(emit func(id, chars int)) *encoder {
 	e := &encoder{v: v, emit: emit}
@@ -347,16 +351,24 @@ func (e *encoder) piece(p []byte, chars int) {
 		e.emit(e.v.lookup(p), chars)
 		return
 	}
-	e.buf = e.v.bpe.encode(e.buf[:0], p)
-	last := len(e.buf) - 1
-	for _, id := range e.buf[:last] {
+	ids, ok := e.cache[string(p)]
+	if !ok {
+		if e.cache == nil || len(e.cache) >= bpeCacheSize {
+			e.cache = make(map[string][]int32)
+		}
+		e.buf = e.v.bpe.encode(e.buf[:0], p)
+		ids = append([]int32(nil), e.buf...)
+		e.cache[string(p)] = ids
+	}
+	last := len(ids) - 1
+	for _, id := range ids[:last] {
 		n := int(e.v.chars[id])
 		chars -= n
 		e.emit(int(id), n)
 	}
 	// The last token takes what is left: lower-casing may have changed the
 	// rune count, and the text's count is what the split must sum to.
-	e.emit(int(e.buf[last]), chars)
+	e.emit(int(ids[last]), chars)
 }
 
 func (e *encoder) write(p []byte) {
