@@ -4,6 +4,8 @@ import (
 	"context"
 	"math"
 	"testing"
+
+	"weft/eval"
 )
 
 // inferTol bounds float64 differences between two evaluation orders of the
@@ -176,3 +178,6 @@ func TestStreamSelectClone(t *testing.T) {
 		}
 	}
 }
+
+// The model satisfies eval.LanguageModel, the interface every scorer uses.
+var _ eval.LanguageModel = (*Model[float32])(nil)

@@ -1,0 +1,183 @@
+// Package rnn is weft's recurrent engine: vanilla, GRU and LSTM language
+// models over token ids, trained by truncated backpropagation through time
+// on flat, preallocated buffers, with every matrix product going through
+// rnn/linalg.Gemm. One generic implementation serves float32 (training) and
+// float64 (the gradient tests).
+//
+// # The model
+//
+// A Model maps a token sequence x_1, x_2, … to next-token distributions:
+//
+//	e_t   = E[x_t]                       embedding row (or the one-hot vector when embedding_size = 0)
+//	h_t^1 = cell_1(D(e_t), h_{t−1}^1)    layer 1
+//	h_t^l = cell_l(D(h_t^{l−1}), h_{t−1}^l)
+//	p_t   = P D(h_t^N)                   optional linear projection (no bias)
+//	y_t   = softmax(W_o p_t + b_o)       P(x_{t+1} | x_≤t)
+//
+// where D is inverted dropout on the non-recurrent connections only
+// (Zaremba, Sutskever & Vinyals 2014): during training each unit is kept
+// with probability 1−p and scaled by 1/(1−p); at evaluation D is the
+// identity. With tie_embeddings the output matrix is the embedding matrix,
+// W_o = E (Press & Wolf 2017), which needs the output layer's input width to
+// equal embedding_size. All layers use the same cell:
+//
+// Vanilla (Elman 1990), φ = tanh or ReLU:
+//
+//	h_t = φ(W x_t + U h_{t−1} + b)
+//
+// GRU (Cho et al. 2014), z weighting the old state as in their eq. 7:
+//
+//	r_t = σ(W_r x_t + U_r h_{t−1} + b_r)
+//	z_t = σ(W_z x_t + U_z h_{t−1} + b_z)
+//	n_t = tanh(W_n x_t + b_n + r_t ⊙ (U_n h_{t−1} + b_hn))   gru_form = "reset_after" (default)
+//	n_t = tanh(W_n x_t + b_n + U_n (r_t ⊙ h_{t−1}))          gru_form = "reset_before" (Cho et al. eq. 8)
+//	h_t = (1 − z_t) ⊙ n_t + z_t ⊙ h_{t−1}
+//
+// The default is the reset-after form because general frameworks use it, so
+// weights move between them and weft unchanged.
+//
+// LSTM with forget gate (Gers, Schmidhuber & Cummins 2000), no peepholes,
+// forget bias initialised to forget_bias (default 1):
+//
+//	i_t = σ(W_i x_t + U_i h_{t−1} + b_i)
+//	f_t = σ(W_f x_t + U_f h_{t−1} + b_f)
+//	g_t = tanh(W_g x_t + U_g h_{t−1} + b_g)
+//	o_t = σ(W_o x_t + U_o h_{t−1} + b_o)
+//	c_t = f_t ⊙ c_{t−1} + i_t ⊙ g_t
+//	h_t = o_t ⊙ tanh(c_t)
+//
+// # Tensors
+//
+// Model.Params lists the tensors in this order, with these names and
+// row-major shapes (V vocabulary, E embedding_size, H hidden_size, P
+// projection_size, I the layer's input width: E, or V for one-hot input, for
+// layer 0 and H above it, K the output layer's input width: P when set,
+// else H; G = gates·H):
+//
+//	name                       shape   present
+//	embedding.weight           V×E     embedding_size > 0
+//	layer.L.input_weight       G×I     every layer L = 0, 1, …
+//	layer.L.recurrent_weight   G×H
+//	layer.L.bias               G
+//	layer.L.recurrent_bias     H       GRU reset_after only (b_hn)
+//	projection.weight          P×H     projection_size > 0
+//	output.weight              V×K     unless tie_embeddings
+//	output.bias                V
+//
+// Rows of the G-wide tensors are gate blocks of H rows each, in this order:
+//
+//	cell   gates  blocks
+//	rnn    1      (single block)
+//	gru    3      r, z, n
+//	lstm   4      i, f, g, o
+//
+// This is the layout of PyTorch's nn.RNN, nn.GRU and nn.LSTM (weight_ih_lL,
+// weight_hh_lL, same block order), so weights map directly:
+//
+//	weft                        PyTorch
+//	layer.L.input_weight        weight_ih_lL
+//	layer.L.recurrent_weight    weight_hh_lL
+//	layer.L.bias (rnn, lstm)    bias_ih_lL + bias_hh_lL
+//	layer.L.bias (gru)          [b_ir + b_hr, b_iz + b_hz, b_in]
+//	layer.L.recurrent_bias      b_hn (the last H entries of bias_hh_lL)
+//	output.weight, output.bias  nn.Linear weight, bias
+//
+// Going the other way, put weft's bias in bias_ih and zeros in bias_hh (for
+// GRU: b_hn in the n block of bias_hh). PyTorch has no reset-before GRU.
+// The mapping is tested against PyTorch's own outputs
+// (testdata/torch_reference.py).
+//
+// # Initialisation
+//
+// NewModel draws every parameter from one math/rand/v2 PCG stream seeded
+// with the seed argument, tensor by tensor in Params order, row-major.
+// Embeddings are U(−init_range, init_range). Input, projection and output
+// weights follow init: "uniform" (U(−init_range, init_range)) or "xavier"
+// (U(−a, a), a = √(6/(fan_in+fan_out)), Glorot & Bengio 2010, per gate block).
+// Recurrent weights follow recurrent_init: "orthogonal" makes each H×H gate
+// block orthogonal (Saxe, McClelland & Ganguli 2014) by modified
+// Gram–Schmidt on uniform draws. Biases are zero except the LSTM forget
+// gate. Only exactly rounded operations are used, with products rounded
+// before sums so that no fused multiply-add enters: the same seed gives
+// bit-identical weights on every platform.
+//
+// # Training
+//
+// A Trainer takes windows (Window: B streams × T steps, time-major) and for
+// each one runs the forward pass from the carried state, the mean
+// cross-entropy over the positions with a target ≥ 0, the backward pass
+// with the gradient cut at the window start (truncated BPTT), clipping, one
+// optimizer update, and carries the final state into the next window.
+// Window.Reset zeroes chosen streams first. With bptt_advance_steps = h′ <
+// unroll_steps = h it runs BPTT(h; h′) (Williams & Peng 1990): each window
+// brings h′ new tokens, the h−h′ tokens before them are replayed from a kept
+// state, gradients flow back h steps and only the new positions are scored.
+//
+// Clipping: first by global L2 norm, g ← g·c/‖g‖ when ‖g‖ > clip_norm
+// (Pascanu, Mikolov & Bengio 2013), then elementwise to ±clip_value. The
+// norm before clipping is reported in every StepInfo.
+//
+// Optimizers (optim.go, each with its update rule in its doc comment): SGD
+// with optional momentum or Nesterov momentum (Sutskever et al. 2013),
+// AdaGrad (Duchi, Hazan & Singer 2011), RMSprop (Tieleman & Hinton 2012),
+// Adam (Kingma & Ba 2015) and AdamW with decoupled weight decay (Loshchilov
+// & Hutter 2019). Schedules (schedule.go): constant, step decay, cosine with
+// linear warm-up, and divide-on-plateau driven by
+// Trainer.ReportValidation.
+//
+// Exact resume: the model's Params, Trainer.StateTensors (optimizer slots
+// "optim.<slot>.<parameter>", carried state "state.layer.L.h" and, for
+// LSTM, "state.layer.L.c") and the JSON-able TrainerState (step, tokens,
+// generator state, optimizer and schedule scalars, BPTT(h; h′) replay
+// tokens) are all a trainer has. Copy them into a fresh trainer of the same
+// configs and it continues bit for bit.
+//
+// # Determinism
+//
+// For a fixed config, seed and window sequence, training is bit-identical
+// run to run and whatever the number of threads: elementwise work runs on
+// one goroutine in a fixed order, and linalg.Gemm splits its work over
+// output elements only. Randomness comes only from explicitly seeded PCG
+// generators (initialisation and dropout use distinct streams).
+//
+// # Inference
+//
+// Model.LogProbs (the eval.LanguageModel method) scores a sequence exactly
+// by default, carrying the state through all of it; SetScoring trades
+// exactness at piece boundaries for speed (S parallel pieces, each warmed
+// by W tokens). The state before the first token is zero, whose
+// distribution is softmax(output.bias). A Stream runs n hypotheses one
+// token at a time for sampling and beam search (Feed, LogProbs, Select,
+// Clone), allocating nothing per token.
+//
+// # Memory
+//
+// Training one window of R = B·T positions stores, in elements of T:
+//
+//	2·N                          parameters and gradients (N = NumParams)
+//	+ k·N                        optimizer slots: k = 0 SGD, 1 momentum/AdaGrad/RMSprop, 2 Adam(W)
+//	+ R·(2E + V + 2P)            embedding rows and their gradient, logits, projection and its gradient
+//	+ Σ_l [ 2R·G                 gate activations and their gradient
+//	      + (T+1)·B·H·(1+c)      states h (and c for LSTM, c = 1)
+//	      + R·H·(1+a)            output gradient, and a = 1 for the GRU/LSTM auxiliary buffer
+//	      + R·G·r ]              r = 1 for the reset-after GRU's recurrent-gate gradient
+//	+ dropout: R·E + 2·R·H per layer (masks, dropped outputs)
+//
+// plus a few B×H scratch rows per layer and the matrix kernels' packing
+// workspace. At the reference shape (V=96, E=64, H=256, B=32, T=64, one
+// LSTM layer, Adam, float32) this is 32.9 MB; TestWindowMemory measures the
+// bytes allocated to build the model and trainer and run one window against
+// it (37.4 MB when written, within the 1.5× bound it enforces).
+//
+// # Checks
+//
+// The gradients are checked by central finite differences in float64 for
+// every tensor of every cell and form, one and two layers, tied and untied,
+// one-hot and with dropout, from a carried state (gradcheck_test.go),
+// against gorgonia's symbolic gradients of the same graphs
+// (gorgonia_test.go; gorgonia is imported by tests only) and against
+// PyTorch's forward values and gradients (reference_test.go). Optimizer
+// steps are checked against hand computations of their published rules,
+// and training must beat the unigram and bigram models of Moby-Dick
+// (learn_test.go).
+package rnn
