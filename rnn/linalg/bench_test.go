@@ -157,3 +157,34 @@ func BenchmarkElementwise(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkSgemmPacked is the recurrent step with the weights packed once
+// (PackB outside the loop), beside BenchmarkSgemm's unpacked figure.
+func BenchmarkSgemmPacked(b *testing.B) {
+	pools := map[int]*Pool{1: nil, 2: NewPool(2)}
+	defer pools[2].Close()
+	for _, s := range [][3]int{{32, 1024, 256}, {32, 256, 1024}} {
+		m, n, k := s[0], s[1], s[2]
+		rng := rand.New(rand.NewPCG(1, 1))
+		a, bm, c := make([]float32, m*k), make([]float32, k*n), make([]float32, m*n)
+		for i := range a {
+			a[i] = float32(rng.Float64())
+		}
+		for i := range bm {
+			bm[i] = float32(rng.Float64())
+		}
+		var pb PackedB
+		PackB(&pb, false, k, n, bm, n)
+		for _, threads := range []int{1, 2} {
+			b.Run(fmt.Sprintf("shape=%dx%dx%d/kernel=%s/threads=%d", m, n, k, kernel32().name, threads), func(b *testing.B) {
+				p := pools[threads]
+				b.ReportAllocs()
+				for i := 0; i < b.N; i++ {
+					GemmPacked(p, false, m, 1, a, k, &pb, 0, c, n)
+				}
+				b.ReportMetric(2*float64(m*n*k)*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
+				sinkF32 = c[0]
+			})
+		}
+	}
+}

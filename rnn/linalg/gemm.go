@@ -70,25 +70,28 @@ func checkGemm(tA, tB bool, m, n, k, la, lda, lb, ldb, lc, ldc int) {
 	if m < 0 || n < 0 || k < 0 {
 		panic(fmt.Sprintf("linalg: negative dimension m=%d n=%d k=%d", m, n, k))
 	}
-	check := func(name string, rows, cols, l, ld int) {
-		if cols > 0 && ld < cols {
-			panic(fmt.Sprintf("linalg: %s stride %d less than its %d columns", name, ld, cols))
-		}
-		if rows > 0 && cols > 0 && l < (rows-1)*ld+cols {
-			panic(fmt.Sprintf("linalg: %s has %d elements, needs %d for %d×%d with stride %d", name, l, (rows-1)*ld+cols, rows, cols, ld))
-		}
-	}
 	if tA {
-		check("A", k, m, la, lda)
+		checkMatrix("A", k, m, la, lda)
 	} else {
-		check("A", m, k, la, lda)
+		checkMatrix("A", m, k, la, lda)
 	}
 	if tB {
-		check("B", n, k, lb, ldb)
+		checkMatrix("B", n, k, lb, ldb)
 	} else {
-		check("B", k, n, lb, ldb)
+		checkMatrix("B", k, n, lb, ldb)
 	}
-	check("C", m, n, lc, ldc)
+	checkMatrix("C", m, n, lc, ldc)
+}
+
+// checkMatrix panics unless a slice of length l holds a rows×cols matrix
+// with row stride ld.
+func checkMatrix(name string, rows, cols, l, ld int) {
+	if cols > 0 && ld < cols {
+		panic(fmt.Sprintf("linalg: %s stride %d less than its %d columns", name, ld, cols))
+	}
+	if rows > 0 && cols > 0 && l < (rows-1)*ld+cols {
+		panic(fmt.Sprintf("linalg: %s has %d elements, needs %d for %d×%d with stride %d", name, l, (rows-1)*ld+cols, rows, cols, ld))
+	}
 }
 
 // gemmRun checks the arguments, handles the degenerate cases, and splits C
@@ -104,24 +107,30 @@ func gemmRun[T Float](p *Pool, kern *kernel[T], tA, tB bool, m, n, k int, alpha 
 	}
 	j := kern.job()
 	*j = gemmJob[T]{kern: kern, tA: tA, tB: tB, m: m, n: n, k: k, alpha: alpha, a: a, lda: lda, b: b, ldb: ldb, beta: beta, c: c, ldc: ldc, parts: 1}
-	threads := p.Threads()
-	mt := (m + kern.mr - 1) / kern.mr
-	nt := (n + kern.nr - 1) / kern.nr
-	if threads > 1 && m*n*k >= parallelMinWork {
-		// Each thread packs the whole of the operand it shares, so split
-		// the other one: rows of C when op(A) is the larger, else columns.
-		switch {
-		case m > n && mt >= threads:
-			j.parts, j.splitRows, j.tiles = threads, true, mt
-		case nt >= threads:
-			j.parts, j.tiles = threads, nt
-		case mt >= threads:
-			j.parts, j.splitRows, j.tiles = threads, true, mt
-		}
-	}
+	j.plan(p.Threads())
 	p.run(j, j.parts)
 	*j = gemmJob[T]{}
 	kern.jobs.Put(j)
+}
+
+// plan splits the job over up to threads parts, in whole tiles.
+func (j *gemmJob[T]) plan(threads int) {
+	j.parts = 1
+	mt := (j.m + j.kern.mr - 1) / j.kern.mr
+	nt := (j.n + j.kern.nr - 1) / j.kern.nr
+	if threads < 2 || j.m*j.n*j.k < parallelMinWork {
+		return
+	}
+	// Each thread packs the whole of the operand it shares, so split the
+	// other one: rows of C when op(A) is the larger, else columns.
+	switch {
+	case j.m > j.n && mt >= threads:
+		j.parts, j.splitRows, j.tiles = threads, true, mt
+	case nt >= threads:
+		j.parts, j.tiles = threads, nt
+	case mt >= threads:
+		j.parts, j.splitRows, j.tiles = threads, true, mt
+	}
 }
 
 func (kern *kernel[T]) job() *gemmJob[T] {
@@ -161,6 +170,7 @@ type gemmJob[T Float] struct {
 	parts     int
 	splitRows bool
 	tiles     int // tiles along the split dimension
+	packed    []T // op(B) packed by PackB, or nil
 }
 
 // runPart computes part t of the job: a range of whole tiles along the
@@ -180,6 +190,11 @@ func (j *gemmJob[T]) runPart(t int) {
 		return
 	}
 	w := kern.workspace()
+	if j.packed != nil {
+		kern.blockPacked(w, j.tA, i0, i1, j0, j1, j.n, j.k, j.alpha, j.a, j.lda, j.packed, j.beta, j.c, j.ldc)
+		kern.spaces.Put(w)
+		return
+	}
 	kern.block(w, j.tA, j.tB, i0, i1, j0, j1, j.k, j.alpha, j.a, j.lda, j.b, j.ldb, j.beta, j.c, j.ldc)
 	kern.spaces.Put(w)
 }

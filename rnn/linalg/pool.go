@@ -18,6 +18,8 @@ type Pool struct {
 	mu      sync.Mutex // one kernel call at a time
 	workers []*worker
 	pending atomic.Int64 // parts handed to workers and not yet done
+	waiting atomic.Bool  // the caller is parked on done
+	done    chan struct{}
 	once    sync.Once
 }
 
@@ -48,7 +50,7 @@ func NewPool(n int) *Pool {
 	if n < 1 {
 		n = 1
 	}
-	p := &Pool{threads: n, workers: make([]*worker, n-1)}
+	p := &Pool{threads: n, workers: make([]*worker, n-1), done: make(chan struct{}, 1)}
 	for i := range p.workers {
 		w := &worker{wake: make(chan struct{}, 1)}
 		p.workers[i] = w
@@ -83,7 +85,9 @@ func (p *Pool) loop(w *worker) {
 			return
 		}
 		t.r.runPart(t.part)
-		p.pending.Add(-1)
+		if p.pending.Add(-1) == 0 && p.waiting.Load() && p.waiting.CompareAndSwap(true, false) {
+			p.done <- struct{}{}
+		}
 	}
 }
 
@@ -139,9 +143,23 @@ func (p *Pool) run(r runner, parts int) {
 		p.workers[i-1].post(task{r: r, part: i})
 	}
 	r.runPart(0)
+	// Wait for the workers: spin (they usually finish within microseconds
+	// of the caller), then park until the last one signals.
 	for spins := 1; p.pending.Load() != 0; spins++ {
 		if spins&255 == 0 {
 			runtime.Gosched()
 		}
+		if spins < spinLimit {
+			continue
+		}
+		p.waiting.Store(true)
+		if p.pending.Load() == 0 {
+			if !p.waiting.CompareAndSwap(true, false) {
+				<-p.done // a worker saw us waiting and sent
+			}
+			break
+		}
+		<-p.done
+		break
 	}
 }

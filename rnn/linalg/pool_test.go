@@ -4,7 +4,9 @@ import (
 	"math"
 	"math/rand/v2"
 	"sync"
+	"sync/atomic"
 	"testing"
+	"time"
 )
 
 // TestGemmThreadsBitIdentical checks the determinism guarantee: the same
@@ -117,5 +119,37 @@ func TestGemmNoAllocs(t *testing.T) {
 		if allocs != 0 {
 			t.Errorf("threads=%d: got %v allocations per Gemm, want 0", pool.Threads(), allocs)
 		}
+	}
+}
+
+// sleepyRunner sleeps in the worker's part, so that the caller parks, and
+// records which parts ran.
+type sleepyRunner struct {
+	ran   []atomic.Bool
+	sleep time.Duration
+}
+
+func (r *sleepyRunner) runPart(i int) {
+	if i > 0 {
+		time.Sleep(r.sleep)
+	}
+	r.ran[i].Store(true)
+}
+
+// TestPoolParking exercises both parking paths: a caller that finishes
+// long before its worker, and workers idle long enough to park between
+// calls.
+func TestPoolParking(t *testing.T) {
+	p := NewPool(3)
+	defer p.Close()
+	for rep := 0; rep < 3; rep++ {
+		r := &sleepyRunner{ran: make([]atomic.Bool, 3), sleep: 5 * time.Millisecond}
+		p.run(r, 3)
+		for i := range r.ran {
+			if !r.ran[i].Load() {
+				t.Fatalf("rep %d: part %d did not run before run returned", rep, i)
+			}
+		}
+		time.Sleep(20 * time.Millisecond) // workers park
 	}
 }
