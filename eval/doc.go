@@ -140,6 +140,5 @@
 // Long steps take an optional ProgressFunc; the package never prints.
 // SaveCounts and SaveHMM cache fitted baselines in a versioned file format
 // with a SHA-256 checksum (its layout is documented on FormatVersion);
-// loading damaged files
-// gives errors wrapping ErrCorrupt.
+// loading a damaged file gives an error wrapping ErrCorrupt.
 package eval

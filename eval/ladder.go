@@ -1,0 +1,196 @@
+package eval
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"path/filepath"
+	"slices"
+)
+
+// Ladder is the set of baselines a Config asks for, fitted on one
+// training split: n-gram models of every configured order and smoother and
+// the Markov chains, all reading one Counts, and the hidden Markov models.
+type Ladder struct {
+	Counts *Counts
+	NGrams []*NGram
+	Markov []*MarkovChain
+	HMMs   []*HMM
+}
+
+// FitLadder fits the baselines of cfg on the training token ids train
+// (below vocab; boundary as for CountNGrams). The counts are taken once at
+// the largest order any model needs; HMMs train on the first
+// cfg.HMMMaxTokens tokens. progress, if not nil, hears about each stage.
+func FitLadder(ctx context.Context, train []int, vocab, boundary int, cfg Config, progress ProgressFunc) (*Ladder, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, fmt.Errorf("fit baselines: %w", err)
+	}
+	l := &Ladder{}
+	if err := l.fitCounts(train, vocab, boundary, cfg, progress); err != nil {
+		return nil, err
+	}
+	hmmTrain := train
+	if cfg.HMMMaxTokens > 0 && len(hmmTrain) > cfg.HMMMaxTokens {
+		hmmTrain = hmmTrain[:cfg.HMMMaxTokens]
+	}
+	for _, n := range cfg.HMMStates {
+		h, err := TrainHMM(ctx, hmmTrain, vocab, HMMOptions{
+			States: n, MaxIterations: cfg.HMMMaxIterations, Tolerance: cfg.HMMTolerance,
+			Seed: cfg.Seed, Boundary: boundary, Progress: progress,
+		})
+		if err != nil {
+			return nil, fmt.Errorf("fit baselines: %w", err)
+		}
+		l.HMMs = append(l.HMMs, h)
+	}
+	return l, nil
+}
+
+// maxOrder is the counts order the n-gram models and chains of cfg need.
+func maxOrder(cfg Config) int {
+	order := 0
+	if len(cfg.NgramSmoothers) > 0 {
+		for _, n := range cfg.NgramOrders {
+			order = max(order, n)
+		}
+	}
+	for _, k := range cfg.MarkovOrders {
+		order = max(order, k+1)
+	}
+	return order
+}
+
+func (l *Ladder) fitCounts(train []int, vocab, boundary int, cfg Config, progress ProgressFunc) error {
+	order := maxOrder(cfg)
+	if order == 0 {
+		return nil
+	}
+	if l.Counts == nil {
+		c, err := CountNGrams(train, vocab, order, boundary, progress)
+		if err != nil {
+			return fmt.Errorf("fit baselines: %w", err)
+		}
+		l.Counts = c
+	}
+	return l.build(cfg)
+}
+
+// build makes the n-gram models and chains of cfg from l.Counts.
+func (l *Ladder) build(cfg Config) error {
+	if l.Counts.Order() < maxOrder(cfg) {
+		return fmt.Errorf("baselines: counts of order %d, the configuration needs %d", l.Counts.Order(), maxOrder(cfg))
+	}
+	methods, err := cfg.Methods()
+	if err != nil {
+		return err
+	}
+	orders := slices.Clone(cfg.NgramOrders)
+	slices.Sort(orders)
+	orders = slices.Compact(orders)
+	for _, n := range orders {
+		for _, m := range methods {
+			s := Smoothing{Method: m}
+			if m == AddK {
+				s.K = cfg.AddK
+			}
+			g, err := NewNGram(l.Counts, n, s)
+			if err != nil {
+				return err
+			}
+			l.NGrams = append(l.NGrams, g)
+		}
+	}
+	for _, k := range cfg.MarkovOrders {
+		mc, err := NewMarkovChain(l.Counts, k, cfg.AddK)
+		if err != nil {
+			return err
+		}
+		l.Markov = append(l.Markov, mc)
+	}
+	return nil
+}
+
+// Models lists every baseline: n-grams, then chains, then HMMs.
+func (l *Ladder) Models() []LanguageModel {
+	var ms []LanguageModel
+	for _, m := range l.NGrams {
+		ms = append(ms, m)
+	}
+	for _, m := range l.Markov {
+		ms = append(ms, m)
+	}
+	for _, m := range l.HMMs {
+		ms = append(ms, m)
+	}
+	return ms
+}
+
+// Save writes the ladder into the folder dir (which must exist) as
+// "ngram-counts.bin" and "hmm-N.bin" files.
+func (l *Ladder) Save(dir string) error {
+	if l.Counts != nil {
+		if err := SaveCounts(filepath.Join(dir, "ngram-counts.bin"), l.Counts); err != nil {
+			return err
+		}
+	}
+	for _, h := range l.HMMs {
+		if err := SaveHMM(filepath.Join(dir, fmt.Sprintf("hmm-%d.bin", h.States())), h); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// LoadLadder reads a ladder saved by Save and rebuilds the models cfg
+// lists. A file cfg needs but dir lacks is an error wrapping
+// os.ErrNotExist, so the caller can fit afresh.
+func LoadLadder(dir string, cfg Config) (*Ladder, error) {
+	if err := cfg.Validate(); err != nil {
+		return nil, fmt.Errorf("load baselines: %w", err)
+	}
+	l := &Ladder{}
+	if maxOrder(cfg) > 0 {
+		c, err := LoadCounts(filepath.Join(dir, "ngram-counts.bin"))
+		if err != nil {
+			return nil, err
+		}
+		l.Counts = c
+		if err := l.build(cfg); err != nil {
+			return nil, fmt.Errorf("load baselines %q: %w", dir, err)
+		}
+	}
+	for _, n := range cfg.HMMStates {
+		h, err := LoadHMM(filepath.Join(dir, fmt.Sprintf("hmm-%d.bin", n)))
+		if err != nil {
+			return nil, err
+		}
+		l.HMMs = append(l.HMMs, h)
+	}
+	return l, nil
+}
+
+// BestBaseline returns the index of the row with the lowest finite bits
+// per character among the comparable rows of kinds "ngram", "markov" and
+// "hmm" (the reference for Bootstrap), or an error when there is none.
+func BestBaseline(rows []Result) (int, error) {
+	best := -1
+	for i, r := range rows {
+		switch r.Kind {
+		case "ngram", "markov", "hmm":
+		default:
+			continue
+		}
+		if !r.Comparable || math.IsInf(r.BitsPerChar, 0) || math.IsNaN(r.BitsPerChar) {
+			continue
+		}
+		if best < 0 || r.BitsPerChar < rows[best].BitsPerChar {
+			best = i
+		}
+	}
+	if best < 0 {
+		return -1, errors.New("no comparable baseline with a finite score")
+	}
+	return best, nil
+}
