@@ -188,3 +188,28 @@ func BenchmarkSgemmPacked(b *testing.B) {
 		}
 	}
 }
+
+// BenchmarkMicroKernel runs one micro-kernel on packed panels that stay in
+// L1 (KC=256): the ceiling the blocked product can approach.
+func BenchmarkMicroKernel(b *testing.B) {
+	for _, kern := range kernels32 {
+		b.Run("kernel="+kern.name, func(b *testing.B) {
+			const kc = 256
+			ap := make([]float32, kern.mr*kc)
+			bp := make([]float32, kern.nr*kc)
+			c := make([]float32, kern.mr*kern.nr)
+			for i := range ap {
+				ap[i] = 1e-3
+			}
+			for i := range bp {
+				bp[i] = 1e-3
+			}
+			b.ReportAllocs()
+			for i := 0; i < b.N; i++ {
+				kern.micro(kc, ap, bp, c, kern.nr, 1, 1)
+			}
+			b.ReportMetric(2*float64(kern.mr*kern.nr*kc)*float64(b.N)/b.Elapsed().Seconds()/1e9, "GFLOP/s")
+			sinkF32 = c[0]
+		})
+	}
+}

@@ -16,10 +16,12 @@ import "math"
 //	        = sign(x)·(1 − 2/(exp(2|x|) + 1)) otherwise;
 //	σ(x)    = 1/(1 + exp(−x)).
 //
-// All arithmetic is float32. Measured over a dense sweep of float32 inputs
-// (exp32_test.go), the relative error is at most expMaxRelErr for exp where
-// the result is normal, and the absolute error at most actMaxAbsErr for
-// sigmoid and tanh (their relative error is bounded by actMaxRelErr).
+// All arithmetic is float32; elementwise_amd64.s evaluates the same
+// formulas with fused multiply-adds and applies 2^n with VSCALEFPS.
+// Measured over a sweep of float32 inputs against package math
+// (elementwise_test.go, bounds expMaxRelErr, actMaxAbsErr, actMaxRelErr):
+// exp relative error ≤ 1.2e-7 where the result is normal; sigmoid and tanh
+// absolute error ≤ 1e-7 and relative error ≤ 2e-7.
 // Special values: exp(+Inf) = +Inf, exp(−Inf) = 0, results beyond the float32
 // range overflow to +Inf or underflow to 0 (subnormal results are computed
 // through float64), NaN gives NaN; σ(±Inf) = 1 or 0, tanh(±Inf) = ±1,

@@ -27,24 +27,53 @@
 //
 // The amd64 kernels are Go assembly; packing uses an assembly 8×8 AVX
 // transpose where a panel is transposed and vector copies where it is not.
-// float64, used only by the gradient tests, always takes the portable path.
+// When all rows of C fit one MC block (the recurrent step, m = batch size),
+// each B panel is packed just before its tiles use it, so it is read back
+// from L1. float64, used only by the gradient tests, always takes the
+// portable path. [KernelName] reports the choice.
 //
-// # Determinism
+// [PackB] and [GemmPacked] pack the second operand once for many products
+// (the recurrent weights across the T steps of a window); GemmPacked gives
+// the same bits as Gemm.
 //
-// Every function returns the same bits for the same inputs whatever the
-// number of threads in the Pool. Gemm splits C over whole tiles, in row or
-// column ranges aligned to MR or NR, never over k; each element of C is
-// reduced over k in the same KC blocks, in increasing order, by the same
-// instructions whichever thread computes it. Results may differ between
-// kernels (between machines) in the last bits, as fused multiply-adds round
-// once where the portable kernel rounds twice.
+// # Threads and determinism
+//
+// A [Pool] is a fixed set of worker goroutines; a product of at least 2^20
+// multiply-adds is split into one part per thread, over whole tiles of C
+// (rows when op(A) is the larger operand, else columns), never over k.
+// Workers spin briefly between parts, then park. Every function returns
+// the same bits for the same inputs whatever the number of threads: split
+// points are multiples of MR or NR, so each element of C is computed by the
+// same tile code, reduced over k in the same KC blocks in increasing order.
+// Results may differ between kernels (between machines) in the last bits,
+// as fused multiply-adds round once where the portable kernel rounds twice.
 //
 // # Elementwise kernels
 //
-// For float32, [Exp], [Sigmoid], [Tanh] and [SoftmaxCrossEntropy] use
-// polynomial approximations evaluated in float32 (see exp32.go for the method,
-// its source and the measured error bounds); float64 instances call package
-// math.
+// For float32, [Exp], [Sigmoid], [Tanh] and [SoftmaxCrossEntropy] use a
+// Cody–Waite range reduction and Cephes minimax polynomials (exp32.go), in
+// AVX-512 assembly where the CPU has it and in pure Go otherwise. Measured
+// against package math in float64 over a sweep of float32 inputs:
+//
+//	exp      relative error ≤ 1.2e-7 (about 1 ulp) where e^x is normal;
+//	         +Inf above 88.72, 0 below −103.97, NaN stays NaN
+//	sigmoid  absolute error ≤ 1e-7, relative ≤ 2e-7 where the result is
+//	         normal; σ(x) ≤ 2^−126 may flush to 0
+//	tanh     absolute error ≤ 1e-7, relative ≤ 2e-7; tanh(±0) = ±0
+//
+// SoftmaxCrossEntropy sums each row's exponentials and the loss in float64.
+// float64 instances call package math.
+//
+// # OpenBLAS yardstick
+//
+// Built with the openblas tag (cgo, libopenblas-dev), Gemm calls OpenBLAS's
+// cblas_sgemm and cblas_dgemm instead, with as many OpenBLAS threads as the
+// Pool has; the determinism guarantee then rests on OpenBLAS. The default
+// build is pure Go. Tests and side-by-side benchmarks:
+//
+//	go test -tags openblas ./rnn/linalg/
+//	env -u OPENBLAS_CORETYPE -u OPENBLAS_L2_SIZE \
+//	    go test -tags openblas -run '^$' -bench Sgemm -benchtime 20x -count 3 ./rnn/linalg/
 package linalg
 
 import "unsafe"
