@@ -241,6 +241,11 @@ func TestContiguousSplit(t *testing.T) {
 			t.Errorf("%s: got %d chars, %d lines, offset %d, %d tokens; want %d, %d, %d, %d",
 				c.s.Name, c.s.Characters, c.s.Lines, c.s.Offset, len(c.s.Tokens), c.chars, c.lines, c.offset, c.chars)
 		}
+		// One token per character: token i starts at character Offset+i.
+		offs, err := c.s.TokenOffsets(nil)
+		if err != nil || len(offs) == 0 || offs[0] != c.offset || offs[len(offs)-1] != c.offset+c.chars-1 {
+			t.Errorf("%s: token offsets %v…, %v", c.s.Name, offs[:min(3, len(offs))], err)
+		}
 	}
 }
 

@@ -105,3 +105,25 @@ func (s *Split) addToken(id, chars int) {
 	}
 	s.Tokens = append(s.Tokens, id)
 }
+
+// TokenOffsets sets dst[i] to the rune offset in the corpus of the first
+// character of token i (for a token of no characters, such as the document
+// boundary, the offset of the next character), and returns dst grown to
+// len(s.Tokens). It lets the evaluation look up positions such as the
+// demo corpus's marks. Only the contiguous split keeps the corpus order
+// needed; the hash splits give an error.
+func (s *Split) TokenOffsets(dst []int64) ([]int64, error) {
+	if s.Offset < 0 {
+		return nil, fmt.Errorf("%s split: token offsets need data.split = \"contiguous\"", s.Name)
+	}
+	if cap(dst) < len(s.Tokens) {
+		dst = make([]int64, len(s.Tokens))
+	}
+	dst = dst[:len(s.Tokens)]
+	at := s.Offset
+	for i, c := range s.TokenChars(nil) {
+		dst[i] = at
+		at += int64(c)
+	}
+	return dst, nil
+}
