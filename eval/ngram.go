@@ -2,9 +2,12 @@ package eval
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
+	"runtime"
 	"strconv"
+	"sync"
 )
 
 // Method names an n-gram smoothing method; the package documentation gives
@@ -302,23 +305,54 @@ func (m *NGram) walk(ctxs []int32, hist []int) []int32 {
 }
 
 // LogProbs writes ln P(seq[i] | seq[:i]) to dst[i]. A probability of zero
-// (possible only with MaxLikelihood or NoFloor) gives -Inf.
+// (possible only with MaxLikelihood or NoFloor) gives -Inf. Long
+// sequences are cut into pieces scored in parallel, each piece starting
+// from the history the tokens before it leave, so the result does not
+// depend on the cut.
 func (m *NGram) LogProbs(ctx context.Context, dst []float64, seq []int) error {
 	if len(dst) != len(seq) {
 		panic("eval: LogProbs: len(dst) != len(seq)")
 	}
 	V := m.counts.vocab
-	hist := newHistory(m.order-1, V, m.counts.boundary)
-	ctxs := make([]int32, 0, m.order)
 	for i, w := range seq {
-		if i%4096 == 0 {
+		if w < 0 || w >= V {
+			return fmt.Errorf("%s: token %d at position %d outside 0..%d", m.Name(), w, i, V-1)
+		}
+	}
+	const piece = 1 << 15
+	workers := min(runtime.GOMAXPROCS(0), 4, (len(seq)+piece-1)/piece)
+	if workers <= 1 {
+		return m.logProbs(ctx, dst, seq, 0, len(seq))
+	}
+	errs := make([]error, workers)
+	var wg sync.WaitGroup
+	step := (len(seq) + workers - 1) / workers
+	for k := range workers {
+		lo, hi := k*step, min(len(seq), (k+1)*step)
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			errs[k] = m.logProbs(ctx, dst, seq, lo, hi)
+		}()
+	}
+	wg.Wait()
+	return errors.Join(errs...)
+}
+
+// logProbs scores seq[lo:hi] into dst[lo:hi].
+func (m *NGram) logProbs(ctx context.Context, dst []float64, seq []int, lo, hi int) error {
+	hist, err := historyOf(seq[:lo], m.order-1, m.counts.vocab, m.counts.boundary)
+	if err != nil {
+		return err
+	}
+	ctxs := make([]int32, 0, m.order)
+	for i := lo; i < hi; i++ {
+		if (i-lo)%4096 == 0 {
 			if err := ctx.Err(); err != nil {
 				return err
 			}
 		}
-		if w < 0 || w >= V {
-			return fmt.Errorf("%s: token %d at position %d outside 0..%d", m.Name(), w, i, V-1)
-		}
+		w := seq[i]
 		ctxs = m.walk(ctxs, hist.toks)
 		dst[i] = math.Log(m.prob(ctxs, w))
 		hist.push(w)

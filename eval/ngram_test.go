@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"runtime"
 	"strings"
 	"testing"
 )
@@ -342,5 +343,39 @@ func TestAgainstNLTK(t *testing.T) {
 				checkClose(t, fmt.Sprintf("P(%s | %v)", r.Word, r.Context), got, r.P, tolRef)
 			}
 		})
+	}
+}
+
+func TestLogProbsPiecesInvariant(t *testing.T) {
+	// Scoring in parallel pieces must give exactly the single-pass values,
+	// whatever falls on a cut (boundaries included), as the tabwriter
+	// tests check chunking.
+	defer runtime.GOMAXPROCS(runtime.GOMAXPROCS(4))
+	rng := rand.New(rand.NewPCG(4, 4))
+	const V = 7
+	seq := make([]int, 3*(1<<15)+123)
+	for i := range seq {
+		seq[i] = rng.IntN(V)
+	}
+	c, err := CountNGrams(seq[:20000], V, 5, 3, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	m, err := NewNGram(c, 5, Smoothing{Method: ModifiedKneserNey})
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := make([]float64, len(seq))
+	want := make([]float64, len(seq))
+	if err := m.LogProbs(context.Background(), got, seq); err != nil {
+		t.Fatal(err)
+	}
+	if err := m.logProbs(context.Background(), want, seq, 0, len(seq)); err != nil {
+		t.Fatal(err)
+	}
+	for i := range got {
+		if got[i] != want[i] {
+			t.Fatalf("position %d: pieces %g, one pass %g", i, got[i], want[i])
+		}
 	}
 }
