@@ -47,7 +47,7 @@ func (n *normalizer) fill(min int) error {
 		m := copy(n.raw, n.raw[n.start:n.end])
 		n.start, n.end = 0, m
 	}
-	for !n.eof && n.end-n.start < min {
+	for empty := 0; !n.eof && n.end-n.start < min; {
 		k, err := n.r.Read(n.raw[n.end:])
 		n.end += k
 		if err == io.EOF {
@@ -55,8 +55,10 @@ func (n *normalizer) fill(min int) error {
 		} else if err != nil {
 			return err
 		}
-		if k == 0 && err == nil && n.end == len(n.raw) {
-			break
+		if k > 0 {
+			empty = 0
+		} else if empty++; empty >= 100 {
+			return io.ErrNoProgress
 		}
 	}
 	return nil
