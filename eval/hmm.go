@@ -298,7 +298,8 @@ type HMMOptions struct {
 	Tolerance float64
 	// Seed seeds the initial parameters.
 	Seed uint64
-	// Boundary is the token id that ends a document, or NoBoundary.
+	// Boundary is the token id that ends a document, or NoBoundary (-1).
+	// Mind the zero value: it makes token 0 the boundary.
 	Boundary int
 	// EmissionFloor is the weight ε of the uniform distribution mixed into
 	// the emissions when scoring, (1-ε)·b_i(k) + ε/V, in 0..1. Training

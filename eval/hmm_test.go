@@ -337,3 +337,24 @@ func TestBaumWelchStepMatchesDirect(t *testing.T) {
 		}
 	}
 }
+
+func TestBaumWelchStopsOnTolerance(t *testing.T) {
+	// With a relative tolerance of 0.5 the second iteration's gain is far
+	// below half the log-likelihood: training stops there, recording the
+	// likelihoods before iterations 1 and 2 and the final one.
+	rng := rand.New(rand.NewPCG(2, 2))
+	seq := make([]int, 500)
+	for i := range seq {
+		seq[i] = rng.IntN(4)
+	}
+	h, err := TrainHMM(context.Background(), seq, 4, HMMOptions{States: 3, MaxIterations: 50, Tolerance: 0.5, Seed: 1, Boundary: NoBoundary})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(h.LogLik) != 3 {
+		t.Errorf("recorded %d log-likelihoods, want 3 (stopped after the second iteration)", len(h.LogLik))
+	}
+	if _, err := TrainHMM(context.Background(), []int{0, 9}, 4, HMMOptions{States: 3, MaxIterations: 1, Boundary: NoBoundary}); err == nil {
+		t.Error("a token outside the vocabulary gave no error")
+	}
+}

@@ -379,3 +379,28 @@ func TestLogProbsPiecesInvariant(t *testing.T) {
 		}
 	}
 }
+
+func TestContinuationTypesEqualRawTypes(t *testing.T) {
+	// With full start padding every event below the top order has a
+	// longer event ending the same way, so the distinct tokens after a
+	// context are the same under raw and continuation counts: the
+	// Kneser-Ney weight D·N1+(h •)/Σ_w N1+(• h w) may read either (see
+	// Counts, Padding). Checked on a corpus with boundaries.
+	rng := rand.New(rand.NewPCG(6, 6))
+	seq := make([]int, 5000)
+	for i := range seq {
+		seq[i] = rng.IntN(5)
+	}
+	c, err := CountNGrams(seq, 5, 4, 2, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for h := range c.Contexts() {
+		if int(c.ctxDepth[h]) == c.Order()-1 {
+			continue
+		}
+		if c.raw.distinct[h] != c.cont.distinct[h] {
+			t.Fatalf("context %d (depth %d): %d raw types, %d continuation types", h, c.ctxDepth[h], c.raw.distinct[h], c.cont.distinct[h])
+		}
+	}
+}
