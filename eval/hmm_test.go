@@ -2,6 +2,7 @@ package eval
 
 import (
 	"context"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -255,8 +256,14 @@ func TestBaumWelchStepMatchesDirect(t *testing.T) {
 	// computed directly in the test from fully stored scaled forward and
 	// backward trellises (no checkpointing, no tiles), on a sequence that
 	// spans several blocks of the checkpointed sweep.
+	for _, N := range []int{5, 37} { // 37: the threaded 4×4 tiles and their edges
+		t.Run(fmt.Sprintf("states=%d", N), func(t *testing.T) { baumWelchDirect(t, N) })
+	}
+}
+
+func baumWelchDirect(t *testing.T, N int) {
+	const V = 4
 	rng := rand.New(rand.NewPCG(21, 22))
-	const N, V = 5, 4
 	seq := make([]int, 2*fbBlock+70)
 	for i := range seq {
 		seq[i] = rng.IntN(V)
