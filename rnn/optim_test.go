@@ -216,9 +216,16 @@ func TestSchedules(t *testing.T) {
 				t.Errorf("report %d: rate %v, want %v", i, got, st.rate)
 			}
 		}
+		// A scale multiplies the rate and is part of the state.
+		if err := s.SetScale(0.5); err != nil || s.Rate(0) != 0.125 {
+			t.Errorf("scaled rate: got %v (%v), want 0.125", s.Rate(0), err)
+		}
+		if err := s.SetScale(0); err == nil {
+			t.Error("SetScale(0) accepted")
+		}
 		// The state round-trips.
 		s2, _ := NewSchedule(c)
-		if err := s2.SetState(s.State()); err != nil || s2.Rate(0) != 0.25 || s2.State() != s.State() {
+		if err := s2.SetState(s.State()); err != nil || s2.Rate(0) != 0.125 || s2.State() != s.State() {
 			t.Errorf("restored schedule: rate %v state %+v err %v", s2.Rate(0), s2.State(), err)
 		}
 	})

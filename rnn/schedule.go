@@ -30,6 +30,10 @@ type ScheduleState struct {
 	Best      float64 `json:"best"`            // best validation loss, valid when HaveBest
 	HaveBest  bool    `json:"have_best"`       // a validation loss was reported
 	Bad       int     `json:"bad_validations"` // validations in a row without improvement
+	// Scale multiplies every rate the schedule gives (a caller lowers it
+	// after a divergence, say). Zero means 1, so that states saved before
+	// the field existed still load.
+	Scale float64 `json:"scale,omitempty"`
 }
 
 // NewSchedule returns the schedule of a validated cfg.
@@ -40,8 +44,34 @@ func NewSchedule(cfg TrainConfig) (*Schedule, error) {
 	return &Schedule{cfg: cfg}, nil
 }
 
-// Rate is the learning rate of update t (counting from 0).
+// Rate is the learning rate of update t (counting from 0), times the
+// scale set by SetScale.
 func (s *Schedule) Rate(t int64) float64 {
+	if s.state.Scale != 0 {
+		return s.state.Scale * s.rate(t)
+	}
+	return s.rate(t)
+}
+
+// SetScale sets the factor every rate is multiplied by (1 initially); it
+// must be positive.
+func (s *Schedule) SetScale(f float64) error {
+	if !(f > 0) || math.IsInf(f, 0) {
+		return fmt.Errorf("learning-rate scale must be a positive number, got %v", f)
+	}
+	s.state.Scale = f
+	return nil
+}
+
+// Scale is the factor set by SetScale.
+func (s *Schedule) Scale() float64 {
+	if s.state.Scale == 0 {
+		return 1
+	}
+	return s.state.Scale
+}
+
+func (s *Schedule) rate(t int64) float64 {
 	c := s.cfg
 	lr := c.LearningRate
 	switch c.Schedule {
@@ -90,7 +120,7 @@ func (s *Schedule) State() ScheduleState { return s.state }
 
 // SetState restores a state returned by State.
 func (s *Schedule) SetState(st ScheduleState) error {
-	if st.Divisions < 0 || st.Bad < 0 || math.IsNaN(st.Best) {
+	if st.Divisions < 0 || st.Bad < 0 || math.IsNaN(st.Best) || st.Scale < 0 || math.IsNaN(st.Scale) || math.IsInf(st.Scale, 0) {
 		return fmt.Errorf("schedule state out of range: %+v", st)
 	}
 	s.state = st

@@ -134,6 +134,19 @@ func (tr *Trainer[T]) Steps() int64 { return tr.step }
 // and reports whether the (plateau) schedule divided the rate.
 func (tr *Trainer[T]) ReportValidation(loss float64) bool { return tr.sched.ReportValidation(loss) }
 
+// Tokens is the number of positions trained on so far.
+func (tr *Trainer[T]) Tokens() int64 { return tr.tokens }
+
+// Schedule returns the learning-rate schedule; its state is part of State.
+func (tr *Trainer[T]) Schedule() *Schedule { return tr.sched }
+
+// ScaleLearningRate multiplies every later learning rate by f (on top of
+// earlier scalings), as a divergence guard does after restoring a
+// checkpoint. The scale is part of the schedule's state.
+func (tr *Trainer[T]) ScaleLearningRate(f float64) error {
+	return tr.sched.SetScale(tr.sched.Scale() * f)
+}
+
 // LearningRate is the rate the next update will use.
 func (tr *Trainer[T]) LearningRate() float64 { return tr.sched.Rate(tr.step) }
 

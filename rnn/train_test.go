@@ -255,10 +255,10 @@ func TestSteadyStateAllocs(t *testing.T) {
 
 func TestWindowErrors(t *testing.T) {
 	cfg := smallConfigs()["gru"]
-	tc := DefaultTrainConfig()
-	tc.BatchSize, tc.UnrollSteps = 2, 4
+	trc := DefaultTrainConfig()
+	trc.BatchSize, trc.UnrollSteps = 2, 4
 	m, _ := NewModel[float32](cfg, 12, 1)
-	tr, _ := NewTrainer(m, tc, nil)
+	tr, _ := NewTrainer(m, trc, nil)
 	ok := Window{B: 2, T: 2, Inputs: []int{1, 2, 3, 4}, Targets: []int{2, 3, 4, 5}}
 	bad := []struct {
 		name string
@@ -281,6 +281,16 @@ func TestWindowErrors(t *testing.T) {
 	info, err := tr.Step(context.Background(), ok)
 	if err != nil || info.Step != 1 || info.Tokens != 4 || !(info.GradNorm > 0) {
 		t.Errorf("good window: %+v, %v", info, err)
+	}
+	// Scaling the rate (a divergence guard's move) shows in the next step
+	// and in the state.
+	if err := tr.ScaleLearningRate(0.5); err != nil {
+		t.Fatal(err)
+	}
+	info, err = tr.Step(context.Background(), ok)
+	if err != nil || info.LearningRate != trc.LearningRate/2 || tr.State().Schedule.Scale != 0.5 || tr.Tokens() != 8 {
+		t.Errorf("after ScaleLearningRate(0.5): rate %v (want %v), state scale %v, tokens %d, err %v",
+			info.LearningRate, trc.LearningRate/2, tr.State().Schedule.Scale, tr.Tokens(), err)
 	}
 	// A non-finite weight gives ErrNonFinite and no update.
 	m.Params()[len(m.Params())-1].Value[0] = float32(math.Inf(1)) // output.bias
