@@ -102,17 +102,15 @@ func BenchmarkElementwise(b *testing.B) {
 		}
 	}
 	sigmoid64 := func(v float64) float64 { return 1 / (1 + math.Exp(-v)) }
-	cases := []struct {
+	type benchCase struct {
 		fn, impl string
 		f        func(dst, x []float32)
-	}{
-		{"exp", "kernel", Exp[float32]},
-		{"exp", "math", mathLoop(math.Exp)},
-		{"sigmoid", "kernel", Sigmoid[float32]},
-		{"sigmoid", "math", mathLoop(sigmoid64)},
-		{"tanh", "kernel", Tanh[float32]},
-		{"tanh", "math", mathLoop(math.Tanh)},
 	}
+	var cases []benchCase
+	for _, impl := range vecImpls {
+		cases = append(cases, benchCase{"exp", impl.name, impl.exp}, benchCase{"sigmoid", impl.name, impl.sigmoid}, benchCase{"tanh", impl.name, impl.tanh})
+	}
+	cases = append(cases, benchCase{"exp", "math", mathLoop(math.Exp)}, benchCase{"sigmoid", "math", mathLoop(sigmoid64)}, benchCase{"tanh", "math", mathLoop(math.Tanh)})
 	for _, tc := range cases {
 		b.Run(fmt.Sprintf("fn=%s/impl=%s/n=%d", tc.fn, tc.impl, n), func(b *testing.B) {
 			b.ReportAllocs()
@@ -141,7 +139,7 @@ func BenchmarkElementwise(b *testing.B) {
 		for i, l := range logits {
 			logits64[i] = float64(l)
 		}
-		b.Run(fmt.Sprintf("fn=softmaxce/impl=kernel/n=%dx%d", rows, v), func(b *testing.B) {
+		b.Run(fmt.Sprintf("fn=softmaxce/impl=%s/n=%dx%d", vec().name, rows, v), func(b *testing.B) {
 			b.ReportAllocs()
 			for i := 0; i < b.N; i++ {
 				sinkF64 = SoftmaxCrossEntropy(grad, logits, targets, rows, v, 1)
