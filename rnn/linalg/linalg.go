@@ -52,7 +52,9 @@
 //
 // For float32, [Exp], [Sigmoid], [Tanh] and [SoftmaxCrossEntropy] use a
 // Cody–Waite range reduction and Cephes minimax polynomials (exp32.go), in
-// AVX-512 assembly where the CPU has it and in pure Go otherwise. Measured
+// AVX-512 or AVX2+FMA assembly where the CPU has it and in pure Go
+// otherwise (measured here: about 0.15-0.36, 0.37-0.63 and 4.6-7.3 ns per
+// element, against 25-30 for a float64 math loop). Measured
 // against package math in float64 over a sweep of float32 inputs:
 //
 //	exp      relative error ≤ 1.2e-7 (about 1 ulp) where e^x is normal;
