@@ -539,20 +539,21 @@ const fbBlock = 256
 
 // fbWork is the scratch space of one scaled forward-backward pass.
 type fbWork struct {
-	n     int
-	scale []float64 // c_t, the forward scale factors
-	ckpt  []float64 // α̂ at the start of every block
-	alpha []float64 // α̂_t of the current block, position-major
-	u     []float64 // u_t(j) = b_j(o_t)·β̂_t(j)/c_t of the current block
-	beta  []float64
-	tmp   []float64
+	n      int
+	scale  []float64 // c_t, the forward scale factors
+	ckpt   []float64 // α̂ at the start of every block
+	alpha  []float64 // α̂_t of a block, position-major
+	alpha2 []float64 // the same for the block before, computed ahead
+	u      []float64 // u_t(j) = b_j(o_t)·β̂_t(j)/c_t of the current block
+	beta   []float64
+	tmp    []float64
 }
 
 func newFB(n, T int) *fbWork {
 	return &fbWork{n: n,
 		scale: make([]float64, T),
 		ckpt:  make([]float64, ((T+fbBlock-1)/fbBlock)*n),
-		alpha: make([]float64, fbBlock*n), u: make([]float64, (fbBlock+1)*n),
+		alpha: make([]float64, fbBlock*n), alpha2: make([]float64, fbBlock*n), u: make([]float64, (fbBlock+1)*n),
 		beta: make([]float64, n), tmp: make([]float64, n)}
 }
 
@@ -607,19 +608,39 @@ func (fb *fbWork) run(h *HMM, obs []int, acc *bwAcc, post []float64) float64 {
 	if math.IsInf(ll, -1) {
 		return ll // impossible under the model: nothing to learn
 	}
-	// Backward sweep, a block at a time from the last.
+	// Backward sweep, a block at a time from the last. The forward vectors
+	// of a block are recomputed from its checkpoint into one of two
+	// buffers; with more than one thread, the block before is recomputed
+	// on another goroutine while this one is swept.
 	beta := fb.beta
 	for i := range beta {
 		beta[i] = 1
 	}
 	nb := (T + fbBlock - 1) / fbBlock
+	bufs := [2][]float64{fb.alpha, fb.alpha2}
+	recompute := func(blk int) {
+		buf := bufs[blk%2]
+		t0 := blk * fbBlock
+		t1 := min(T, t0+fbBlock)
+		copy(buf[:n], fb.ckpt[blk*n:(blk+1)*n])
+		for t := t0 + 1; t < t1; t++ {
+			h.forwardStep(buf[(t-t0)*n:(t-t0+1)*n], buf[(t-t0-1)*n:(t-t0)*n], obs[t])
+		}
+	}
+	recompute(nb - 1)
 	for blk := nb - 1; blk >= 0; blk-- {
 		t0 := blk * fbBlock
 		t1 := min(T, t0+fbBlock)
 		L := t1 - t0
-		copy(fb.alpha[:n], fb.ckpt[blk*n:(blk+1)*n])
-		for t := t0 + 1; t < t1; t++ {
-			h.forwardStep(fb.alpha[(t-t0)*n:(t-t0+1)*n], fb.alpha[(t-t0-1)*n:(t-t0)*n], obs[t])
+		alpha := bufs[blk%2]
+		var wg sync.WaitGroup
+		ahead := blk > 0 && acc.threads > 1
+		if ahead {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				recompute(blk - 1)
+			}()
 		}
 		// fb.u[L*n:] holds u_t1 from the previous (later) block.
 		for t := t1 - 1; t >= t0; t-- {
@@ -627,7 +648,7 @@ func (fb *fbWork) run(h *HMM, obs []int, acc *bwAcc, post []float64) float64 {
 			if t < T-1 {
 				matVec(beta, h.a, fb.u[(k+1)*n:(k+2)*n], n) // β̂_t = A·u_t+1
 			}
-			a := fb.alpha[k*n : (k+1)*n]
+			a := alpha[k*n : (k+1)*n]
 			o := obs[t]
 			b := h.bt[o*n : (o+1)*n]
 			bacc := acc.b[o*n : (o+1)*n]
@@ -656,8 +677,12 @@ func (fb *fbWork) run(h *HMM, obs []int, acc *bwAcc, post []float64) float64 {
 		if t1 == T {
 			pairs = L - 1
 		}
+		wg.Wait()
 		if pairs > 0 {
-			gemmTN(acc.x, fb.alpha[:pairs*n], fb.u[n:(pairs+1)*n], n, pairs, acc.threads)
+			gemmTN(acc.x, alpha[:pairs*n], fb.u[n:(pairs+1)*n], n, pairs, acc.threads)
+		}
+		if blk > 0 && !ahead {
+			recompute(blk - 1)
 		}
 		// The earlier block (always full) reads u_t0 at its index L.
 		copy(fb.u[fbBlock*n:(fbBlock+1)*n], fb.u[:n])
