@@ -174,34 +174,26 @@ func (g *gen) record(hh, mm int) {
 		call[i] = alphabet[g.r.IntN(len(alphabet))]
 	}
 	g.rec = append(g.rec, call[:]...)
-	// The middle, redrawn until the repeat lies 30 to 80 characters on.
-	mid := len(g.rec)
-	for try := 0; ; try++ {
-		g.rec = g.rec[:mid]
-		g.add("> ")
-		g.add(g.pick(classes))
+	// The middle. Its field lengths put the repeat 43 to 72 characters
+	// after the first call sign (7 + 36 at the shortest, 7 + 65 at the
+	// longest), inside the documented 30 to 80.
+	g.add("> ")
+	g.add(g.pick(classes))
+	g.add(" ")
+	g.add(g.pick(names))
+	if g.r.IntN(2) == 0 {
 		g.add(" ")
 		g.add(g.pick(names))
-		if g.r.IntN(2) == 0 {
-			g.add(" ")
-			g.add(g.pick(names))
-		}
-		g.add(" ")
-		g.add(g.pick(movements))
-		g.add(", berth ")
-		g.add(strconv.Itoa(1 + g.r.IntN(40)))
-		if g.r.IntN(3) > 0 {
-			g.add(", tug ")
-			g.add(g.pick(tugs))
-		}
-		g.add(". confirm ")
-		for len(g.rec)-callAt < minDistance {
-			g.add("standing by, ") // never needed with the lists above, kept as a guard
-		}
-		if d := len(g.rec) - callAt; d <= maxDistance || try > 100 {
-			break
-		}
 	}
+	g.add(" ")
+	g.add(g.pick(movements))
+	g.add(", berth ")
+	g.add(strconv.Itoa(1 + g.r.IntN(40)))
+	if g.r.IntN(3) > 0 {
+		g.add(", tug ")
+		g.add(g.pick(tugs))
+	}
+	g.add(". confirm ")
 	for i := range call {
 		g.marks = append(g.marks, Mark{Offset: len(g.rec) + i, Source: callAt + i, Kind: CallSign})
 	}
@@ -232,7 +224,8 @@ func (g *gen) record(hh, mm int) {
 // Generate writes a demo log of at most size bytes to w, made of whole
 // lines, and returns its long-range marks. The same seed and size give the
 // same text. It stops before the first line that would not fit; the text
-// is then within one record (under 250 bytes) of size.
+// is then within one record (at most 272 bytes, derived from the field
+// lengths) of size.
 func Generate(w io.Writer, seed uint64, size int) (Marks, error) {
 	if size < 0 {
 		return nil, fmt.Errorf("demo: size must not be negative, got %d", size)

@@ -44,8 +44,8 @@ func TestDeterministic(t *testing.T) {
 func TestSize(t *testing.T) {
 	for _, size := range []int{0, 10, 300, 10_000, Size} {
 		text, marks := generate(t, 1, size)
-		if len(text) > size || (size >= 300 && len(text) < size-250) {
-			t.Errorf("size %d: got %d bytes, want at most %d and within 250 of it", size, len(text), size)
+		if len(text) > size || (size >= 272 && len(text) < size-272) {
+			t.Errorf("size %d: got %d bytes, want at most %d and within 272 of it", size, len(text), size)
 		}
 		if text != "" && !strings.HasSuffix(text, "\n") {
 			t.Errorf("size %d: text does not end with a whole line", size)
@@ -182,5 +182,21 @@ func BenchmarkGenerate(b *testing.B) {
 				sink = m
 			}
 		})
+	}
+}
+
+// TestCallDistanceRange checks the bounds the generator's comment derives
+// from the field lengths: the repeat lies 43 to 72 characters on.
+func TestCallDistanceRange(t *testing.T) {
+	text, marks := generate(t, 5, Size)
+	lo, hi := 1<<30, 0
+	for _, m := range marks {
+		if m.Kind == CallSign && m.Offset-m.Source > 0 {
+			d := m.Offset - m.Source
+			lo, hi = min(lo, d), max(hi, d)
+		}
+	}
+	if lo < 43 || hi > 72 || len(text) == 0 {
+		t.Errorf("call-sign distances %d to %d, want within 43 to 72", lo, hi)
 	}
 }
