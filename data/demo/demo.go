@@ -29,7 +29,8 @@
 //     7.8e10 signs), so no count of earlier text predicts it, but each
 //     character equals the one at the same place in the call sign at the
 //     record's start, 30 to 80 characters earlier (the distance from the
-//     first character of the call sign to the first of its repeat).
+//     first character of the call sign to the first of its repeat; the
+//     field lengths used keep it within 43 to 72).
 //   - Count: the separator after each cargo lot: "," after lots 1 to k−1
 //     and ";" after lot k, where k (1 to 5) is the count written before
 //     "lots:". Lots are one or two words, so the separator depends on how
