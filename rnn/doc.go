@@ -17,7 +17,7 @@
 // where D is inverted dropout on the non-recurrent connections only
 // (Zaremba, Sutskever & Vinyals 2014): during training each unit is kept
 // with probability 1−p and scaled by 1/(1−p); at evaluation D is the
-// identity. With tie_embeddings the output matrix is the embedding matrix,
+// identity (one-hot input is never dropped). With tie_embeddings the output matrix is the embedding matrix,
 // W_o = E (Press & Wolf 2017), which needs the output layer's input width to
 // equal embedding_size. All layers use the same cell:
 //
