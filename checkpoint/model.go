@@ -82,6 +82,14 @@ type Progress struct {
 	// LastBitsPerChar is the most recent validation's bits per character
 	// (valid when HaveBest).
 	LastBitsPerChar float64 `json:"last_validation_bits_per_char"`
+	// LastValidationStep is the step of the last validation, -1 before
+	// the first; ValidationDue says a validation was interrupted and must
+	// run before training goes on.
+	LastValidationStep int64 `json:"last_validation_step"`
+	ValidationDue      bool  `json:"validation_due,omitempty"`
+	// DivergedAt is the step after which the divergence counter resets:
+	// one past the step of the last divergence.
+	DivergedAt int64 `json:"diverged_at_step,omitempty"`
 	// Finished says the run ended by a budget or early stopping, with the
 	// reason; a finished run is not resumed unless a budget grows.
 	Finished     bool   `json:"finished,omitempty"`
