@@ -109,13 +109,19 @@ func sameBits(a, b []float32) int {
 // TestDeterminism checks that one seed gives identical bits run to run and
 // whatever the thread count (the kernels split work over outputs, never
 // over a reduction).
+//
+// The shape is chosen so that products are split over both threads: for
+// every cell the recurrent-weight gradient (G × H × B·T = 256 rows, G ≥ 64)
+// and for GRU and LSTM the input product (256 × G × E = 32) reach linalg's
+// threshold of 2^20 multiply-adds for splitting.
 func TestDeterminism(t *testing.T) {
-	tokens := randomTokens(4000, 12, 3)
+	tokens := randomTokens(30000, 12, 3)
 	tc := DefaultTrainConfig()
-	tc.BatchSize, tc.UnrollSteps, tc.Seed = 4, 12, 9
+	tc.BatchSize, tc.UnrollSteps, tc.Seed = 8, 32, 9
 	p2 := linalg.NewPool(2)
 	defer p2.Close()
 	for name, cfg := range smallConfigs() {
+		cfg.HiddenSize, cfg.EmbeddingSize = 64, 32
 		t.Run(name, func(t *testing.T) {
 			i1, v1 := trainRun(t, cfg, tc, tokens, 8, nil)
 			i2, v2 := trainRun(t, cfg, tc, tokens, 8, nil)
