@@ -14,6 +14,9 @@ func sgemm6x16(kc int, a, b, c *float32, ldc int, alpha, beta float32)
 func transpose8(dst *float32, dstStride int, src *float32, srcStride int, n int)
 
 //go:noescape
+func transpose6(dst *float32, src *float32, srcStride int, n int)
+
+//go:noescape
 func copyRows8(dst, src *float32, srcStride, rows int)
 
 //go:noescape
@@ -39,7 +42,7 @@ var (
 		mr:   6, nr: 16,
 		mc: 120, kc: 256, nc: 2048,
 		micro: micro6x16,
-		packA: packAGo[float32],
+		packA: packA6,
 		packB: packBAVX,
 	}
 )
@@ -131,6 +134,37 @@ func packBAVX(dst []float32, tB bool, b []float32, ldb, l0, kc, j0, cols, nr int
 		for l := k8; l < kc; l++ {
 			for j := 0; j < nr; j++ {
 				panel[l*nr+j] = b[base+j*ldb+l]
+			}
+		}
+	}
+}
+
+// packA6 packs op(A) into 6-row panels for the AVX2 kernel: an AVX
+// transpose of 6×8 blocks when A is not transposed, Go copies when it is.
+// transpose6 stores 2 floats past each block; the panel that follows, the
+// Go tail or the slack of alignedSlice takes them.
+func packA6(dst []float32, tA bool, a []float32, lda, i0, rows, l0, kc, mr int) {
+	if tA {
+		packAGo(dst, tA, a, lda, i0, rows, l0, kc, mr)
+		return
+	}
+	_ = dst[:cap(dst)][rows*kc+2-1] // room for the overrun (rows rounded up to 6 panels)
+	for p := 0; p < rows; p += 6 {
+		panel := dst[p*kc : (p+6)*kc]
+		if rows-p < 6 {
+			packPanelGo(panel, true, a, lda, i0+p, rows-p, l0, kc, 6)
+			continue
+		}
+		k8 := kc &^ 7
+		base := (i0+p)*lda + l0
+		if k8 > 0 {
+			src := a[base:]
+			_ = src[5*lda+k8-1]
+			transpose6(&panel[0], &src[0], lda, k8/8)
+		}
+		for l := k8; l < kc; l++ {
+			for i := 0; i < 6; i++ {
+				panel[l*6+i] = a[base+i*lda+l]
 			}
 		}
 	}

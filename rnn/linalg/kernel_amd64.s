@@ -625,3 +625,70 @@ cr32loop:
 	VZEROUPPER
 cr32done:
 	RET
+
+// func transpose6(dst *float32, src *float32, srcStride int, n int)
+//
+// Transposes n consecutive 6×8 blocks: block q is read from rows
+// src + r·srcStride (r < 6), columns 8q..8q+7, and written as 8 rows of 6
+// at dst + (8q+c)·6. Each row is stored as a vector of 8 whose last two
+// lanes are zero, so the store runs 2 floats past the block; the caller
+// leaves room (the next row or panel overwrites them).
+TEXT ·transpose6(SB), NOSPLIT, $0-32
+	MOVQ dst+0(FP), DI
+	MOVQ src+8(FP), SI
+	MOVQ srcStride+16(FP), R9
+	SHLQ $2, R9
+	MOVQ n+24(FP), CX
+	TESTQ CX, CX
+	JZ t6done
+	LEAQ (R9)(R9*2), R10
+	VXORPS Y6, Y6, Y6
+	VXORPS Y7, Y7, Y7
+t6loop:
+	MOVQ SI, R12
+	VMOVUPS (R12), Y0
+	VMOVUPS (R12)(R9*1), Y1
+	VMOVUPS (R12)(R9*2), Y2
+	VMOVUPS (R12)(R10*1), Y3
+	LEAQ (R12)(R9*4), R12
+	VMOVUPS (R12), Y4
+	VMOVUPS (R12)(R9*1), Y5
+	VUNPCKLPS Y1, Y0, Y8
+	VUNPCKHPS Y1, Y0, Y9
+	VUNPCKLPS Y3, Y2, Y10
+	VUNPCKHPS Y3, Y2, Y11
+	VSHUFPS $0x44, Y10, Y8, Y0
+	VSHUFPS $0xEE, Y10, Y8, Y1
+	VSHUFPS $0x44, Y11, Y9, Y2
+	VSHUFPS $0xEE, Y11, Y9, Y3
+	VUNPCKLPS Y5, Y4, Y8
+	VUNPCKHPS Y5, Y4, Y9
+	VUNPCKLPS Y7, Y6, Y10
+	VUNPCKHPS Y7, Y6, Y11
+	VSHUFPS $0x44, Y10, Y8, Y12
+	VSHUFPS $0xEE, Y10, Y8, Y13
+	VSHUFPS $0x44, Y11, Y9, Y14
+	VSHUFPS $0xEE, Y11, Y9, Y11
+	VPERM2F128 $0x20, Y12, Y0, Y8
+	VMOVUPS Y8, (DI)
+	VPERM2F128 $0x20, Y13, Y1, Y9
+	VMOVUPS Y9, 24(DI)
+	VPERM2F128 $0x20, Y14, Y2, Y10
+	VMOVUPS Y10, 48(DI)
+	VPERM2F128 $0x20, Y11, Y3, Y8
+	VMOVUPS Y8, 72(DI)
+	VPERM2F128 $0x31, Y12, Y0, Y9
+	VMOVUPS Y9, 96(DI)
+	VPERM2F128 $0x31, Y13, Y1, Y10
+	VMOVUPS Y10, 120(DI)
+	VPERM2F128 $0x31, Y14, Y2, Y8
+	VMOVUPS Y8, 144(DI)
+	VPERM2F128 $0x31, Y11, Y3, Y9
+	VMOVUPS Y9, 168(DI)
+	ADDQ $32, SI
+	ADDQ $192, DI
+	DECQ CX
+	JNZ t6loop
+	VZEROUPPER
+t6done:
+	RET
