@@ -30,7 +30,7 @@ type Vocab struct {
 	chars    []int32 // runes of the original text per piece
 	index    map[string]int32
 	runes    map[rune]int32
-	table    [256]int32 // char: ids of the ASCII runes; byte: ids of all bytes
+	table    [256]int32 // char: ids of the ASCII runes; byte: of all bytes; word, symbols: of one-byte pieces
 	bpe      *bpeModel
 }
 
@@ -314,6 +314,13 @@ func (v *Vocab) makeIndex() map[string]int32 {
 		for p, id := range index {
 			v.table[p[0]] = id
 		}
+	case KindWord, KindSymbols:
+		// One-byte pieces (spaces, punctuation, "\n") skip the map.
+		for p, id := range index {
+			if len(p) == 1 {
+				v.table[p[0]] = id
+			}
+		}
 	case KindBPE:
 		v.bpe.link(index)
 	}
@@ -322,6 +329,9 @@ func (v *Vocab) makeIndex() map[string]int32 {
 
 // lookup returns the id of a piece, or the unknown id.
 func (v *Vocab) lookup(p []byte) int {
+	if len(p) == 1 && v.kind != KindBPE {
+		return int(v.table[p[0]])
+	}
 	if id, ok := v.index[string(p)]; ok {
 		return int(id)
 	}
