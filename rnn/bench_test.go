@@ -162,3 +162,28 @@ func BenchmarkWindowMemory(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkLogProbs measures exact scoring (one stream) and the split form
+// (8 streams, 64-token warm-up) of 4096 tokens with the reference LSTM.
+func BenchmarkLogProbs(b *testing.B) {
+	for _, sc := range []struct{ streams, warmup int }{{1, 0}, {8, 64}} {
+		b.Run(fmt.Sprintf("cell=lstm/V=96/H=256/streams=%d/warmup=%d", sc.streams, sc.warmup), func(b *testing.B) {
+			m, _ := NewModel[float32](DefaultConfig(), 96, 1)
+			if err := m.SetScoring(sc.streams, sc.warmup); err != nil {
+				b.Fatal(err)
+			}
+			seq := randomTokens(4096, 96, 3)
+			dst := make([]float64, len(seq))
+			ctx := context.Background()
+			b.ReportAllocs()
+			b.ResetTimer()
+			for i := 0; i < b.N; i++ {
+				if err := m.LogProbs(ctx, dst, seq); err != nil {
+					b.Fatal(err)
+				}
+				benchSink += dst[len(dst)-1]
+			}
+			b.ReportMetric(float64(len(seq))*float64(b.N)/b.Elapsed().Seconds(), "tokens/s")
+		})
+	}
+}

@@ -75,6 +75,9 @@ func NewModel[T Float](cfg Config, vocabSize int, seed uint64) (*Model[T], error
 	if vocabSize < 1 {
 		return nil, fmt.Errorf("vocabulary size must be at least 1, got %d", vocabSize)
 	}
+	if n := paramEstimate(cfg, vocabSize); n > maxElements {
+		return nil, fmt.Errorf("model of %.3g parameters is larger than the limit of %.3g (check model.hidden_size, model.layers and the vocabulary size)", n, float64(maxElements))
+	}
 	if cfg.Activation == "" {
 		cfg.Activation = "tanh"
 	}
@@ -88,6 +91,23 @@ func NewModel[T Float](cfg Config, vocabSize int, seed uint64) (*Model[T], error
 	m.build()
 	m.initialise(seed)
 	return m, nil
+}
+
+// maxElements bounds every buffer weft allocates (2^34 elements, 64 GiB of
+// float32), so that an absurd config is an error, not a crash.
+const maxElements = 1 << 34
+
+// paramEstimate is the parameter count of cfg, in float64 so that it
+// cannot overflow.
+func paramEstimate(cfg Config, vocab int) float64 {
+	V, E, H := float64(vocab), float64(cfg.EmbeddingSize), float64(cfg.HiddenSize)
+	G := 4 * H
+	in := E
+	if in == 0 {
+		in = V
+	}
+	n := V*E + G*(in+H+2) + float64(cfg.Layers-1)*G*(2*H+2) + float64(cfg.ProjectionSize)*H + V*(float64(cfg.outputInput())+1)
+	return n
 }
 
 func newCell[T Float](cfg Config) Cell[T] {

@@ -88,6 +88,11 @@ func NewTrainer[T Float](m *Model[T], cfg TrainConfig, pool *linalg.Pool) (*Trai
 	if err != nil {
 		return nil, err
 	}
+	mc := m.cfg
+	R := float64(cfg.BatchSize) * float64(cfg.UnrollSteps)
+	if n := R * float64(max(4*mc.HiddenSize, m.vocab, mc.EmbeddingSize, mc.ProjectionSize)); n > maxElements {
+		return nil, fmt.Errorf("a window of training.batch_size %d × training.unroll_steps %d needs buffers of %.3g elements, more than the limit of %.3g", cfg.BatchSize, cfg.UnrollSteps, n, float64(maxElements))
+	}
 	tr := &Trainer[T]{m: m, cfg: cfg, pool: pool, opt: opt, sched: sched}
 	tr.pcg = rand.NewPCG(cfg.Seed, trainStream)
 	tr.rng = rand.New(tr.pcg)

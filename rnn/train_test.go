@@ -303,6 +303,17 @@ func TestWindowErrors(t *testing.T) {
 	if _, err := tr.Step(context.Background(), ok); !errors.Is(err, ErrNonFinite) {
 		t.Errorf("infinite weight: got %v, want ErrNonFinite", err)
 	}
+	// Absurd sizes are errors, not crashes.
+	huge := DefaultConfig()
+	huge.HiddenSize = 1 << 40
+	if _, err := NewModel[float32](huge, 10, 1); err == nil {
+		t.Error("NewModel accepted hidden_size 2^40")
+	}
+	big := DefaultTrainConfig()
+	big.BatchSize, big.UnrollSteps = 1<<20, 1<<20
+	if _, err := NewTrainer(m, big, nil); err == nil {
+		t.Error("NewTrainer accepted a 2^40-position window")
+	}
 	ctx, cancel := context.WithCancel(context.Background())
 	cancel()
 	if err := tr.Run(ctx, &streamBatches{tokens: randomTokens(100, 12, 1), B: 2, T: 4}, nil); !errors.Is(err, context.Canceled) {
