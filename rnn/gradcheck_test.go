@@ -133,7 +133,7 @@ func (f *windowFixture) gradients() [][]float64 {
 }
 
 func TestGradientsFiniteDifferences(t *testing.T) {
-	worst := 0.0
+	worst, worstAt := 0.0, ""
 	for _, tc := range gradCases() {
 		t.Run(tc.name, func(t *testing.T) {
 			f := newFixture(t, tc.cfg, 6, 2, 4, 7)
@@ -151,14 +151,16 @@ func TestGradientsFiniteDifferences(t *testing.T) {
 					p.Value[i] = v
 				}
 				rel := relErr(got[pi], fd)
-				worst = max(worst, rel)
+				if rel > worst {
+					worst, worstAt = rel, tc.name+" "+p.Name
+				}
 				if rel > fdRelTol {
 					t.Errorf("%s: norm-wise relative error %.3g > %g\n got  %v\n want %v", p.Name, rel, fdRelTol, got[pi], fd)
 				}
 			}
 		})
 	}
-	t.Logf("worst norm-wise relative error over all tensors: %.3g", worst)
+	t.Logf("worst norm-wise relative error over all tensors: %.3g (%s)", worst, worstAt)
 }
 
 // relErr is ‖a−b‖₂ / max(‖b‖₂, tiny).
