@@ -6,8 +6,10 @@ import "weft/rnn/linalg"
 // window turn into states, and how gradients flow back through them. The
 // model computes the input part of every step in one matrix product before
 // it calls the cell, and the input-weight gradients in one product after;
-// the cell owns the recurrence, one matrix product per step each way, and
-// its recurrent-weight gradient as one product over all steps.
+// the cell owns the recurrence, one matrix product per step each way (two
+// for the reset-before GRU, whose reset gate sits inside the product), and
+// its recurrent-weight gradient as one product over all steps (two for the
+// reset-before GRU).
 //
 // The implementations are vanilla (Elman 1990, cell_vanilla.go), GRU (Cho et
 // al. 2014, cell_gru.go) and LSTM with forget gate (Gers, Schmidhuber &

@@ -296,6 +296,9 @@ func orthogonal[T Float](dst []T, n int, rng *rand.Rand) {
 // documentation). The views are live: they alias the model's storage.
 func (m *Model[T]) Params() []Param[T] { return m.params }
 
+// Cell returns the model's cell (the same for every layer).
+func (m *Model[T]) Cell() Cell[T] { return m.cell }
+
 // Config returns the model's resolved config (empty keys filled in).
 func (m *Model[T]) Config() Config { return m.cfg }
 
