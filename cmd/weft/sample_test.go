@@ -1,0 +1,403 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"flag"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"weft/checkpoint"
+	"weft/data"
+	"weft/rnn"
+)
+
+var updateGolden = flag.Bool("update", false, "rewrite the golden files of weft sample and weft score")
+
+// decodeCorpus is the training text of the test models.
+const decodeCorpus = "the cat sat on the mat.\nthe dog sat on the log.\na cat and a dog met.\n"
+
+// decodeRun is a run directory holding one small random LSTM over the
+// characters of decodeCorpus, with a line boundary, saved as the run's best
+// checkpoint, and the vocabulary file beside it.
+type decodeRun struct {
+	Dir   string
+	Ckpt  string
+	Net   *rnn.Model[float32]
+	Vocab *data.Vocab
+}
+
+func newDecodeRun(t testing.TB, boundary string) *decodeRun {
+	t.Helper()
+	v, err := data.LearnVocab(context.Background(), strings.NewReader(decodeCorpus), "corpus",
+		data.VocabOptions{Tokenizer: "char", Boundary: boundary})
+	if err != nil {
+		t.Fatal(err)
+	}
+	cfg := rnn.DefaultConfig()
+	cfg.HiddenSize, cfg.EmbeddingSize = 24, 8
+	cfg.Init, cfg.InitRange, cfg.RecurrentInit = "uniform", 0.9, "uniform"
+	net, err := rnn.NewModel[float32](cfg, v.Len(), 7)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Favour the common characters at the start of a document, so that
+	// samples are not uniform noise.
+	for _, p := range net.Params() {
+		if p.Name == "output.bias" {
+			for id := range p.Value {
+				p.Value[id] = float32(math.Log(float64(v.Count(id) + 1)))
+			}
+		}
+	}
+	f, err := checkpoint.NewModelFile(net, net.Config(), v, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	ckdir := filepath.Join(dir, checkpointsDir)
+	if err := os.MkdirAll(ckdir, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	path := checkpoint.BestPath(ckdir)
+	if err := checkpoint.Save(path, f); err != nil {
+		t.Fatal(err)
+	}
+	if err := v.WriteFile(filepath.Join(dir, data.VocabFile)); err != nil {
+		t.Fatal(err)
+	}
+	return &decodeRun{Dir: dir, Ckpt: path, Net: net, Vocab: v}
+}
+
+// checkGolden compares got with testdata/name, or rewrites it with -update.
+func checkGolden(t *testing.T, name, got string) {
+	t.Helper()
+	path := filepath.Join("testdata", name)
+	if *updateGolden {
+		if err := os.MkdirAll("testdata", 0o755); err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(path, []byte(got), 0o644); err != nil {
+			t.Fatal(err)
+		}
+		return
+	}
+	want, err := os.ReadFile(path)
+	if err != nil {
+		t.Fatalf("%v (run go test -update to create it)", err)
+	}
+	if got != string(want) {
+		t.Errorf("output differs from %s (go test -update rewrites it)\ngot:\n%s\nwant:\n%s", path, got, want)
+	}
+}
+
+func TestSampleFlags(t *testing.T) {
+	for _, tc := range []struct {
+		args  []string
+		check func(*sampleOptions) bool
+	}{
+		{[]string{"--run", "r"}, func(o *sampleOptions) bool {
+			return o.Run == "r" && o.Length == "200" && o.Samples == 1 && o.Temperature == 1 && !o.SeedSet && !o.samplingSet && o.Beam == 0
+		}},
+		{[]string{"--checkpoint", "x.ckpt", "--prompt", "ab", "--length", "30c", "--samples", "3", "--seed", "9",
+			"--temperature", "0.5", "--top-k", "4", "--top-p", "0.9", "--stop", "\n\n", "--stop", "END", "--json", "--map-unknown"},
+			func(o *sampleOptions) bool {
+				return o.Checkpoint == "x.ckpt" && o.Prompt == "ab" && o.Length == "30c" && o.Samples == 3 && o.Seed == 9 && o.SeedSet &&
+					o.Temperature == 0.5 && o.TopK == 4 && o.TopP == 0.9 && len(o.Stop) == 2 && o.Stop[1] == "END" && o.JSON && o.MapUnknown && o.samplingSet
+			}},
+		{[]string{"--run", "r", "--beam", "5", "--prompt-file", "-"}, func(o *sampleOptions) bool {
+			return o.Beam == 5 && o.PromptFile == "-"
+		}},
+	} {
+		var got *sampleOptions
+		cmd := newSampleCmd(&deps{}, func(o *sampleOptions) error { got = o; return nil })
+		cmd.SetArgs(tc.args)
+		if err := cmd.Execute(); err != nil {
+			t.Fatalf("%v: %v", tc.args, err)
+		}
+		if got == nil || !tc.check(got) {
+			t.Errorf("%v: parsed %+v", tc.args, got)
+		}
+	}
+}
+
+func TestSampleUsageErrors(t *testing.T) {
+	r := newDecodeRun(t, "line")
+	for _, args := range [][]string{
+		{"sample"}, // no model
+		{"sample", "--run", r.Dir, "--length", "0"},
+		{"sample", "--run", r.Dir, "--length", "ten"},
+		{"sample", "--run", r.Dir, "--samples", "0"},
+		{"sample", "--run", r.Dir, "--temperature", "-1"},
+		{"sample", "--run", r.Dir, "--top-p", "2"},
+		{"sample", "--run", r.Dir, "--beam", "2", "--temperature", "0.5"},
+		{"sample", "--run", r.Dir, "--beam", "2", "--samples", "3"},
+		{"sample", "--run", r.Dir, "--prompt", "a", "--prompt-file", "f"},
+		{"sample", "--run", r.Dir, "--stop", ""},
+		{"sample", "--run", r.Dir, "extra"},
+	} {
+		code, _, stderr := runCmd(t, "", args...)
+		if code != exitUsage || !strings.HasPrefix(stderr, "weft: ") {
+			t.Errorf("%v: got exit %d stderr %q, want %d and a weft: message", args, code, stderr, exitUsage)
+		}
+	}
+}
+
+func TestSampleGolden(t *testing.T) {
+	r := newDecodeRun(t, "line")
+	for _, tc := range []struct {
+		name string
+		args []string
+	}{
+		{"sample-text.golden", []string{"--prompt", "the ", "--length", "40", "--seed", "3", "--samples", "2"}},
+		{"sample-json.golden", []string{"--prompt", "a cat", "--length", "12c", "--seed", "5", "--temperature", "0.8", "--top-k", "6", "--json"}},
+		{"sample-greedy.golden", []string{"--prompt", "the d", "--length", "30", "--temperature", "0"}},
+		{"sample-nucleus.golden", []string{"--length", "30", "--seed", "11", "--top-p", "0.8", "--samples", "3"}},
+		{"sample-beam.golden", []string{"--prompt", "the ", "--length", "8", "--beam", "4", "--samples", "2", "--json"}},
+	} {
+		t.Run(tc.name, func(t *testing.T) {
+			code, out, stderr := runCmd(t, "", append([]string{"sample", "--run", r.Dir}, tc.args...)...)
+			if code != exitOK {
+				t.Fatalf("exit %d: %s", code, stderr)
+			}
+			checkGolden(t, tc.name, out)
+		})
+	}
+}
+
+// TestSampleDeterministic runs one seeded command twice, in a fresh
+// process state each (a new model load), and checks the bytes are equal;
+// a different seed must change them.
+func TestSampleDeterministic(t *testing.T) {
+	r := newDecodeRun(t, "")
+	args := []string{"sample", "--checkpoint", r.Ckpt, "--length", "60", "--seed", "77", "--samples", "3", "--json"}
+	_, a, _ := runCmd(t, "", args...)
+	_, b, _ := runCmd(t, "", args...)
+	if a != b || a == "" {
+		t.Fatalf("two runs with seed 77 differ:\n%s\n%s", a, b)
+	}
+	args[len(args)-4] = "78"
+	if _, c, _ := runCmd(t, "", args...); c == a {
+		t.Errorf("seeds 77 and 78 gave the same output")
+	}
+}
+
+func TestSampleJSONAgreesWithScoring(t *testing.T) {
+	r := newDecodeRun(t, "")
+	code, out, stderr := runCmd(t, "", "sample", "--checkpoint", r.Ckpt, "--prompt", "the c", "--length", "25", "--seed", "1", "--json")
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var rec sampleJSON
+	if err := json.Unmarshal([]byte(out), &rec); err != nil {
+		t.Fatal(err)
+	}
+	if len(rec.Tokens) != 25 || rec.Stop != "length" {
+		t.Fatalf("got %d tokens, stop %q; want 25 and length", len(rec.Tokens), rec.Stop)
+	}
+	// The per-token log-probabilities are those LogProbs gives the prompt
+	// followed by the sample.
+	seq := r.Vocab.Encode(nil, "the c")
+	np := len(seq)
+	text := ""
+	for _, tk := range rec.Tokens {
+		seq = append(seq, tk.ID)
+		text += tk.Text
+	}
+	if text != rec.Text {
+		t.Errorf("token texts join to %q, text is %q", text, rec.Text)
+	}
+	lp := make([]float64, len(seq))
+	if err := r.Net.LogProbs(context.Background(), lp, seq); err != nil {
+		t.Fatal(err)
+	}
+	var total float64
+	for i, tk := range rec.Tokens {
+		if math.Abs(lp[np+i]-tk.LogProb) > 2e-6 { // 1e-6 rounding plus float32 chunking
+			t.Errorf("token %d: log-probability %v, LogProbs gives %v", i, tk.LogProb, lp[np+i])
+		}
+		total += lp[np+i]
+	}
+	if math.Abs(total-rec.LogProb) > 1e-4 || math.Abs(-total/math.Ln2-rec.Bits) > 1e-4 {
+		t.Errorf("totals: got %v nats %v bits, want %v and %v", rec.LogProb, rec.Bits, total, -total/math.Ln2)
+	}
+}
+
+func TestSampleStops(t *testing.T) {
+	r := newDecodeRun(t, "line")
+	// The boundary symbol ("line": the line end) ends a continuation.
+	code, out, _ := runCmd(t, "", "sample", "--run", r.Dir, "--length", "400", "--seed", "2", "--samples", "5", "--json")
+	if code != exitOK {
+		t.Fatalf("exit %d", code)
+	}
+	boundaries := 0
+	for _, line := range strings.Split(strings.TrimSpace(out), "\n") {
+		var rec sampleJSON
+		if err := json.Unmarshal([]byte(line), &rec); err != nil {
+			t.Fatal(err)
+		}
+		if rec.Stop == "boundary" {
+			boundaries++
+			if last := rec.Tokens[len(rec.Tokens)-1]; last.ID != r.Vocab.Boundary() {
+				t.Errorf("stop boundary but the last token is %d", last.ID)
+			}
+		}
+		if strings.Contains(rec.Text, "\n") {
+			t.Errorf("text %q runs past the line boundary", rec.Text)
+		}
+	}
+	if boundaries == 0 {
+		t.Errorf("none of 5 continuations of up to 400 tokens reached the line boundary")
+	}
+	// A stop string cuts the text before it, in the streamed output too.
+	for _, stop := range []string{"a", "t "} {
+		code, out, _ = runCmd(t, "", "sample", "--run", r.Dir, "--prompt", "the ", "--length", "400", "--seed", "4", "--stop", stop, "--json")
+		var rec sampleJSON
+		if code != exitOK || json.Unmarshal([]byte(out), &rec) != nil {
+			t.Fatalf("exit %d output %q", code, out)
+		}
+		joined := ""
+		for _, tk := range rec.Tokens {
+			joined += tk.Text
+		}
+		if rec.Stop == "stop_string" {
+			if strings.Contains(rec.Text, stop) || !strings.HasPrefix(joined, rec.Text+stop) {
+				t.Errorf("stop %q: text %q, tokens spell %q", stop, rec.Text, joined)
+			}
+		}
+		_, text, _ := runCmd(t, "", "sample", "--run", r.Dir, "--prompt", "the ", "--length", "400", "--seed", "4", "--stop", stop)
+		if want := "the " + rec.Text + "\n"; text != want {
+			t.Errorf("stop %q: streamed %q, want %q", stop, text, want)
+		}
+	}
+}
+
+// writeCounter records each Write, to check that text streams out token by
+// token.
+type writeCounter struct {
+	bytes.Buffer
+	writes int
+}
+
+func (w *writeCounter) Write(p []byte) (int, error) { w.writes++; return w.Buffer.Write(p) }
+
+func TestSampleStreams(t *testing.T) {
+	r := newDecodeRun(t, "")
+	out := &writeCounter{}
+	d := &deps{In: strings.NewReader(""), Out: out, Err: &bytes.Buffer{}, Now: time.Now}
+	if code := run([]string{"sample", "--checkpoint", r.Ckpt, "--length", "30", "--seed", "1"}, d); code != exitOK {
+		t.Fatalf("exit %d", code)
+	}
+	if out.writes < 30 {
+		t.Errorf("30 tokens came out in %d writes, want one write per token", out.writes)
+	}
+}
+
+func TestSampleUnknownPrompt(t *testing.T) {
+	r := newDecodeRun(t, "line")
+	code, _, stderr := runCmd(t, "", "sample", "--run", r.Dir, "--prompt", "the Zebra éats", "--length", "5", "--seed", "1")
+	if code != exitFailure || strings.Count(stderr, "\n") != 1 ||
+		!strings.Contains(stderr, `"Z"`) || !strings.Contains(stderr, `"b"`) || !strings.Contains(stderr, `"é"`) || !strings.Contains(stderr, "--map-unknown") {
+		t.Errorf("got exit %d stderr %q, want 1 and one line listing \"Z\", \"b\", \"é\"", code, stderr)
+	}
+	code, out, stderr := runCmd(t, "", "sample", "--run", r.Dir, "--prompt", "the Zebra", "--length", "5", "--seed", "1", "--map-unknown")
+	if code != exitOK || !strings.HasPrefix(out, "the Zebra") {
+		t.Errorf("--map-unknown: got exit %d output %q stderr %q", code, out, stderr)
+	}
+}
+
+func TestSampleDamagedCheckpoint(t *testing.T) {
+	r := newDecodeRun(t, "line")
+	b, err := os.ReadFile(r.Ckpt)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b[len(b)-3] ^= 0x40
+	if err := os.WriteFile(r.Ckpt, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	for _, args := range [][]string{
+		{"sample", "--run", r.Dir, "--length", "5"},
+		{"sample", "--checkpoint", r.Ckpt, "--length", "5"},
+		{"score", "--checkpoint", r.Ckpt, "-"},
+	} {
+		code, out, stderr := runCmd(t, "abc\n", args...)
+		if code != exitFailure || out != "" || strings.Count(stderr, "\n") != 1 || !strings.HasPrefix(stderr, "weft: ") ||
+			!strings.Contains(stderr, filepath.Base(r.Ckpt)) || strings.Contains(stderr, "goroutine") {
+			t.Errorf("%v: got exit %d stdout %q stderr %q, want exit 1 and one line naming the file", args[:3], code, out, stderr)
+		}
+	}
+	code, _, stderr := runCmd(t, "", "sample", "--checkpoint", filepath.Join(r.Dir, "missing.ckpt"))
+	if code != exitFailure || strings.Count(stderr, "\n") != 1 {
+		t.Errorf("missing checkpoint: got exit %d stderr %q", code, stderr)
+	}
+}
+
+func TestSampleEmptyPromptFromStdin(t *testing.T) {
+	r := newDecodeRun(t, "")
+	// An empty prompt is the start of a document: the same as no prompt.
+	_, a, _ := runCmd(t, "", "sample", "--checkpoint", r.Ckpt, "--prompt-file", "-", "--length", "20", "--seed", "6")
+	_, b, _ := runCmd(t, "", "sample", "--checkpoint", r.Ckpt, "--length", "20", "--seed", "6")
+	if a != b || len(a) == 0 {
+		t.Errorf("empty stdin prompt gave %q, no prompt %q", a, b)
+	}
+	_, c, _ := runCmd(t, "the ", "sample", "--checkpoint", r.Ckpt, "--prompt-file", "-", "--length", "20", "--seed", "6")
+	if !strings.HasPrefix(c, "the ") {
+		t.Errorf("stdin prompt: got %q", c)
+	}
+}
+
+func TestSampleLengthInCharacters(t *testing.T) {
+	r := newDecodeRun(t, "")
+	_, out, _ := runCmd(t, "", "sample", "--checkpoint", r.Ckpt, "--length", "17c", "--seed", "8", "--json")
+	var rec sampleJSON
+	if err := json.Unmarshal([]byte(out), &rec); err != nil {
+		t.Fatal(err)
+	}
+	if rec.Characters != 17 {
+		t.Errorf("--length 17c gave %d characters: %q", rec.Characters, rec.Text)
+	}
+}
+
+func TestStopText(t *testing.T) {
+	for _, tc := range []struct {
+		stops   []string
+		pieces  []string
+		want    string
+		stopped bool
+	}{
+		{[]string{"END"}, []string{"ab", "cE", "N", "D", "x"}, "abc", true},
+		{[]string{"END"}, []string{"ab", "cE", "N", "x"}, "abcENx", false},
+		{[]string{"xy", "b"}, []string{"a", "xb"}, "ax", true},
+		{nil, []string{"a", "b"}, "ab", false},
+	} {
+		var out bytes.Buffer
+		st := &stopText{stops: tc.stops, out: &out}
+		stopped := false
+		for _, p := range tc.pieces {
+			s, err := st.add(p)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if s {
+				stopped = true
+				break
+			}
+			// Nothing of a possible stop string is written early.
+			for _, stop := range tc.stops {
+				if strings.Contains(out.String(), stop) {
+					t.Errorf("%v: wrote %q before the stop", tc.pieces, out.String())
+				}
+			}
+		}
+		st.finish()
+		if out.String() != tc.want || string(st.text) != tc.want || stopped != tc.stopped {
+			t.Errorf("%v stops %q: wrote %q text %q stopped %v, want %q %v", tc.pieces, tc.stops, out.String(), st.text, stopped, tc.want, tc.stopped)
+		}
+	}
+}
