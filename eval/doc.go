@@ -63,22 +63,22 @@
 // context never seen in training passes the shorter context's
 // distribution through unchanged.
 //
-// Witten-Bell (Witten & Bell 1991; interpolated form of Chen & Goodman
-// 1998, eq. 17):
+// Witten-Bell (Witten & Bell 1991; in the interpolated form of Chen &
+// Goodman 1998):
 //
 //	P(w | h) = (c(h w) + N1+(h •)·P(w | h')) / (c(h •) + N1+(h •))
 //
-// Absolute discounting (Ney, Essen & Kneser 1994; Chen & Goodman eq. 20),
+// Absolute discounting (Ney, Essen & Kneser 1994; Chen & Goodman 1998),
 // with D from 0 to 1:
 //
 //	P(w | h) = max(c(h w) - D, 0)/c(h •) + D·N1+(h •)/c(h •) · P(w | h')
 //
-// Interpolated Kneser-Ney (Kneser & Ney 1995; Chen & Goodman eq. 21-23):
+// Interpolated Kneser-Ney (Kneser & Ney 1995; Chen & Goodman 1998):
 // absolute discounting at the highest order, and at every lower order the
 // counts replaced by continuation counts, the number of distinct tokens
 // seen before the n-gram, N1+(• h w), with totals Σ_w N1+(• h w).
 //
-// Modified Kneser-Ney (Chen & Goodman 1998, eq. 25-26): as Kneser-Ney, with
+// Modified Kneser-Ney (Chen & Goodman 1998): as Kneser-Ney, with
 // three discounts D(c) = D1, D2, D3+ for counts 1, 2 and 3 or more, and the
 // lower-order weight
 //
@@ -91,7 +91,7 @@
 // count-of-counts n1..n4 (the number of n-grams of that order whose count,
 // raw at the top order and continuation below for the Kneser-Ney methods,
 // is 1..4): D = n1/(n1+2·n2) (Ney, Essen & Kneser 1994) and D1, D2, D3+ by
-// ModifiedDiscounts (Chen & Goodman 1998, eq. 26), unless fixed values are
+// ModifiedDiscounts (Chen & Goodman 1998), unless fixed values are
 // given in Smoothing. Smoothing.NoFloor drops the uniform base, leaving
 // the plain unigram estimate (relative frequency, or continuation
 // frequency for the Kneser-Ney methods) at the bottom; it exists to

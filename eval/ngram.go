@@ -156,7 +156,7 @@ func AbsoluteDiscount(n1, n2 int) float64 {
 
 // ModifiedDiscounts are the discounts D1, D2, D3+ of modified Kneser-Ney
 // from the count-of-counts n = (n1, n2, n3, n4), by Chen & Goodman (1998,
-// eq. 26):
+// Harvard TR-10-98):
 //
 //	Y   = n1 / (n1 + 2·n2)
 //	D1  = 1 - 2·Y·n2/n1

@@ -94,7 +94,7 @@ func TestSamBigrams(t *testing.T) {
 }
 
 func TestDiscountFormulas(t *testing.T) {
-	// Expected values computed by hand from Chen & Goodman (1998), eq. 26:
+	// Expected values computed by hand from Chen & Goodman (1998), TR-10-98 (as in shared/CHECKS.md):
 	// Y = n1/(n1+2 n2), D1 = 1-2Y n2/n1, D2 = 2-3Y n3/n2, D3+ = 3-4Y n4/n3.
 	tests := []struct {
 		n    [4]int
@@ -144,7 +144,7 @@ func TestDiscountFormulas(t *testing.T) {
 		t.Errorf("estimated discounts: got %v, want [0.5 1 2]", got)
 	}
 	// Interpolated with the uniform base: P(w) = (c(w)-D(c))/N + γ/V with
-	// γ = (D1 n1 + D2 n2 + D3+ n3+)/N (Chen & Goodman 1998, eq. 25-26).
+	// γ = (D1 n1 + D2 n2 + D3+ n3+)/N (Chen & Goodman 1998).
 	N := float64(len(seq)) // 6+6+6+4 = 22
 	gamma := (0.5*6 + 1*3 + 2*3) / N
 	dst := make([]float64, V)
