@@ -318,10 +318,11 @@ type HMMOptions struct {
 // stretch up to and including a boundary token) an independent sequence.
 //
 // Initialisation, from a generator seeded by opts.Seed: π and every row
-// of a are uniform times a factor 1+u (u uniform on [0,1)), normalised;
-// row i of b is the training unigram distribution with add-one, times
-// 1+u a symbol, normalised, so states start near the unigram model but
-// apart from each other.
+// of a are normalised draws of independent unit exponentials (flat
+// Dirichlet draws); row i of b is the training unigram distribution with
+// add-one, each symbol's weight times a unit exponential, normalised. The
+// spread matters: states that start too alike (factors within 1..2, say)
+// leave EM near the symmetric saddle for tens of iterations.
 //
 // Each iteration runs the scaled forward-backward algorithm over every
 // document. It keeps the scaled forward vectors only at every 256th
@@ -389,7 +390,7 @@ func (h *HMM) initRandom(train []int, seed uint64) {
 	randRow := func(dst []float64, base func(k int) float64) {
 		s := 0.0
 		for k := range dst {
-			dst[k] = base(k) * (1 + rng.Float64())
+			dst[k] = base(k) * rng.ExpFloat64()
 			s += dst[k]
 		}
 		for k := range dst {
