@@ -8,20 +8,24 @@ import (
 )
 
 // benchShapes are the products of the reference LSTM of ENGINE.md (H=256,
-// 4H=1024, V=96, B=32, T·B=2048) in the forward pass, the transposed
-// products of its backward pass, and a large square for the ceiling.
+// 4H=1024, V=96, B=32, T·B=2048), with the transposes package rnn uses
+// (weights stored out×in: forward products are ABᵀ), the same shapes
+// untransposed, and a large square for the ceiling.
 var benchShapes = []struct {
-	op      string // NN, TN (AᵀB) or NT (ABᵀ)
+	op      string // NN, NT (ABᵀ) or TN (AᵀB)
 	m, n, k int
 }{
-	{"NN", 32, 1024, 256},    // recurrent step: h·W_hh
+	{"NN", 32, 1024, 256},    // recurrent step, as in ENGINE.md
+	{"NT", 32, 1024, 256},    // recurrent step as rnn calls it: h·W_hhᵀ
 	{"NN", 2048, 1024, 256},  // input projection of a window
+	{"NT", 2048, 1024, 256},  // same, as rnn calls it
 	{"NN", 2048, 96, 256},    // output layer
+	{"NT", 2048, 96, 256},    // same, as rnn calls it
 	{"NN", 1024, 1024, 1024}, // square
-	{"NT", 32, 256, 1024},    // backward recurrent step: dG·W_hhᵀ
-	{"NT", 2048, 256, 1024},  // backward input: dG·Wᵀ
-	{"TN", 256, 1024, 2048},  // weight gradient: Hᵀ·dG
-	{"TN", 256, 96, 2048},    // output weight gradient: Hᵀ·dY
+	{"NN", 32, 256, 1024},    // backward recurrent step: dG·W_hh
+	{"TN", 1024, 256, 2048},  // recurrent weight gradient: dGᵀ·H
+	{"TN", 96, 256, 2048},    // output weight gradient: dYᵀ·H
+	{"NN", 2048, 256, 96},    // backward through the output layer: dY·W_out
 }
 
 // gemmFunc is one float32 product under benchmark.
