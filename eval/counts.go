@@ -14,9 +14,10 @@ const MaxOrder = 16
 const NoBoundary = -1
 
 // ProgressFunc receives progress reports from long steps: the stage (such
-// as "count 8-grams"), the units done and the units in total. It is called
-// from the goroutine doing the work, at most a few hundred times a stage,
-// and last with done == total. A nil ProgressFunc is never called.
+// as "count 8-grams"), the units done and the units in total. Calls are
+// never concurrent (they may come from different goroutines, one at a
+// time), come at most a few hundred times a stage, and the last one has
+// done == total. A nil ProgressFunc is never called.
 type ProgressFunc func(stage string, done, total int)
 
 func (f ProgressFunc) report(stage string, done, total int) {

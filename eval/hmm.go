@@ -207,6 +207,12 @@ func (h *HMM) Posteriors(dst []float64, obs []int) (float64, error) {
 // LogProbs writes ln P(seq[i] | seq[:i]) by the scaled forward algorithm
 // with the emission floor, restarting from π after each boundary token.
 func (h *HMM) LogProbs(ctx context.Context, dst []float64, seq []int) error {
+	return h.LogProbsProgress(ctx, dst, seq, nil)
+}
+
+// LogProbsProgress is LogProbs reporting the tokens scored to progress
+// (stage "score" and the model's name).
+func (h *HMM) LogProbsProgress(ctx context.Context, dst []float64, seq []int, progress ProgressFunc) error {
 	if len(dst) != len(seq) {
 		panic("eval: LogProbs: len(dst) != len(seq)")
 	}
@@ -222,6 +228,9 @@ func (h *HMM) LogProbs(ctx context.Context, dst []float64, seq []int) error {
 		if t%1024 == 0 {
 			if err := ctx.Err(); err != nil {
 				return err
+			}
+			if t%(1<<16) == 0 {
+				progress.report("score "+h.Name(), t, len(seq))
 			}
 		}
 		if start {
@@ -244,6 +253,7 @@ func (h *HMM) LogProbs(ctx context.Context, dst []float64, seq []int) error {
 		}
 		start = o == h.boundary
 	}
+	progress.report("score "+h.Name(), len(seq), len(seq))
 	return nil
 }
 

@@ -40,6 +40,26 @@ type StateBitser interface {
 	StateBits() float64
 }
 
+// ProgressScorer is implemented by models that report progress while
+// scoring, as ProgressFunc describes.
+type ProgressScorer interface {
+	LogProbsProgress(ctx context.Context, dst []float64, seq []int, progress ProgressFunc) error
+}
+
+// LogProbsProgress scores seq with m as LogProbs does, reporting progress
+// through m's LogProbsProgress when it has one, and otherwise once, at
+// the end (stage "score" and the model's name).
+func LogProbsProgress(ctx context.Context, m LanguageModel, dst []float64, seq []int, progress ProgressFunc) error {
+	if p, ok := m.(ProgressScorer); ok {
+		return p.LogProbsProgress(ctx, dst, seq, progress)
+	}
+	if err := m.LogProbs(ctx, dst, seq); err != nil {
+		return err
+	}
+	progress.report("score "+m.Name(), len(seq), len(seq))
+	return nil
+}
+
 // Score runs m over the held-out tokens seq and summarises the scores as
 // a Result for the named split, with characters the length of the
 // held-out text. It returns the per-token log-probabilities too, for

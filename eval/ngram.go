@@ -8,6 +8,7 @@ import (
 	"runtime"
 	"strconv"
 	"sync"
+	"sync/atomic"
 )
 
 // Method names an n-gram smoothing method; the package documentation gives
@@ -310,6 +311,12 @@ func (m *NGram) walk(ctxs []int32, hist []int) []int32 {
 // from the history the tokens before it leave, so the result does not
 // depend on the cut.
 func (m *NGram) LogProbs(ctx context.Context, dst []float64, seq []int) error {
+	return m.LogProbsProgress(ctx, dst, seq, nil)
+}
+
+// LogProbsProgress is LogProbs reporting the tokens scored to progress
+// (stage "score" and the model's name).
+func (m *NGram) LogProbsProgress(ctx context.Context, dst []float64, seq []int, progress ProgressFunc) error {
 	if len(dst) != len(seq) {
 		panic("eval: LogProbs: len(dst) != len(seq)")
 	}
@@ -320,19 +327,49 @@ func (m *NGram) LogProbs(ctx context.Context, dst []float64, seq []int) error {
 		}
 	}
 	const piece = 1 << 15
-	workers := min(runtime.GOMAXPROCS(0), 4, (len(seq)+piece-1)/piece)
-	if workers <= 1 {
-		return m.logProbs(ctx, dst, seq, 0, len(seq))
+	pieces := (len(seq) + piece - 1) / piece
+	workers := min(runtime.GOMAXPROCS(0), 4, pieces)
+	stage := "score " + m.Name()
+	var mu sync.Mutex
+	done := 0
+	report := func(n int) {
+		if progress == nil {
+			return
+		}
+		mu.Lock()
+		defer mu.Unlock()
+		done += n
+		progress(stage, done, len(seq))
 	}
+	if workers <= 1 {
+		for lo := 0; lo < len(seq); lo += piece {
+			hi := min(len(seq), lo+piece)
+			if err := m.logProbs(ctx, dst, seq, lo, hi); err != nil {
+				return err
+			}
+			report(hi - lo)
+		}
+		return nil
+	}
+	var next atomic.Int64
 	errs := make([]error, workers)
 	var wg sync.WaitGroup
-	step := (len(seq) + workers - 1) / workers
 	for k := range workers {
-		lo, hi := k*step, min(len(seq), (k+1)*step)
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
-			errs[k] = m.logProbs(ctx, dst, seq, lo, hi)
+			for {
+				p := int(next.Add(1) - 1)
+				if p >= pieces {
+					return
+				}
+				lo, hi := p*piece, min(len(seq), (p+1)*piece)
+				if err := m.logProbs(ctx, dst, seq, lo, hi); err != nil {
+					errs[k] = err
+					return
+				}
+				report(hi - lo)
+			}
 		}()
 	}
 	wg.Wait()

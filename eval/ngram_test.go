@@ -367,8 +367,19 @@ func TestLogProbsPiecesInvariant(t *testing.T) {
 	}
 	got := make([]float64, len(seq))
 	want := make([]float64, len(seq))
-	if err := m.LogProbs(context.Background(), got, seq); err != nil {
+	last, calls := 0, 0
+	progress := func(stage string, done, total int) {
+		calls++
+		if stage != "score "+m.Name() || total != len(seq) || done <= last {
+			t.Errorf("progress: got (%q, %d, %d) after %d", stage, done, total, last)
+		}
+		last = done
+	}
+	if err := LogProbsProgress(context.Background(), m, got, seq, progress); err != nil {
 		t.Fatal(err)
+	}
+	if last != len(seq) || calls != 4 {
+		t.Errorf("progress: %d calls ending at %d, want 4 ending at %d", calls, last, len(seq))
 	}
 	if err := m.logProbs(context.Background(), want, seq, 0, len(seq)); err != nil {
 		t.Fatal(err)
