@@ -59,7 +59,8 @@ func PackB(dst *PackedB, tB bool, k, n int, b []float32, ldb int) {
 //
 // as Gemm does, with B packed by PackB: op(A) is m×pb.K(), C is m×pb.N().
 // It gives the same bits as Gemm with the unpacked B, whatever the number
-// of threads.
+// of threads (in builds with the openblas tag Gemm calls OpenBLAS, while
+// GemmPacked keeps this package's kernel).
 func GemmPacked(p *Pool, tA bool, m int, alpha float32, a []float32, lda int, pb *PackedB, beta float32, c []float32, ldc int) {
 	if pb.kern == nil {
 		panic("linalg: GemmPacked with an empty PackedB")
