@@ -21,7 +21,7 @@ var (
 
 // sotuText returns the State of the Union addresses, one address a line,
 // in file-name (chronological) order.
-func sotuText(b *testing.B) string {
+func sotuText(b testing.TB) string {
 	b.Helper()
 	dir := corpustest.SOTU(b)
 	names, err := filepath.Glob(filepath.Join(dir, "*.txt"))
@@ -44,7 +44,7 @@ func sotuText(b *testing.B) string {
 // sotuWords splits the addresses into lower-cased words and single
 // punctuation marks by a plain loop over the runes, with "\n" (id 0) as
 // the boundary token ending each address.
-func sotuWords(b *testing.B) ([]int, int) {
+func sotuWords(b testing.TB) ([]int, int) {
 	text := sotuText(b)
 	ids := map[string]int{"\n": 0}
 	var seq []int
