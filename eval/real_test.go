@@ -124,7 +124,7 @@ func TestSOTUWords(t *testing.T) {
 	// document): the Kneser-Ney methods beat additive smoothing clearly
 	// (Chen & Goodman 1998 report interpolated and modified Kneser-Ney
 	// best and additive smoothing worst on every corpus they tried). We
-	// measured perplexities of about 11758 (add-one: V is the ~30k word
+	// measured perplexities of about 11758 (add-one: V is the 25,708 word
 	// types of all addresses), 171 (Witten-Bell), 139 and 136.
 	words, V := sotuWords(t)
 	train, test := words[:300000], words[300000:330000]
