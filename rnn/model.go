@@ -200,7 +200,7 @@ func (m *Model[T]) initialise(seed uint64) {
 	c := m.cfg
 	uniform := func(dst []T, a float64) {
 		for i := range dst {
-			dst[i] = T(float64(a*float64(2*rng.Float64())) - a)
+			dst[i] = T(float64(a*twoU(rng)) - a)
 		}
 	}
 	xavier := func(dst []T, fanIn, fanOut int) {
@@ -245,6 +245,21 @@ func (m *Model[T]) initialise(seed uint64) {
 	clear(m.outB)
 }
 
+// twoU returns 2u for u uniform on [0, 1), exactly 2·rng.Float64(): the
+// low 53 bits of one draw over 2^52. Written out so that the compiler has
+// no product to fuse with a following addition. (Fusing an exact product
+// would give the same bits anyway; this keeps the initialisation free of
+// fused multiply-adds on arm64, as checked with -gcflags=-S.)
+func twoU(rng *rand.Rand) float64 {
+	return float64(rng.Uint64()<<11>>11) / (1 << 52)
+}
+
+// twoUMinus1 returns exactly 2·rng.Float64() − 1, the subtraction done on
+// integers.
+func twoUMinus1(rng *rand.Rand) float64 {
+	return float64(int64(rng.Uint64()<<11>>11)-1<<52) / (1 << 52)
+}
+
 // initStream is the PCG stream constant of weight initialisation; the
 // trainer's dropout generator uses trainStream, so the two never overlap.
 const (
@@ -262,7 +277,7 @@ func orthogonal[T Float](dst []T, n int, rng *rand.Rand) {
 		row := q[i*n : (i+1)*n]
 		for {
 			for j := range row {
-				row[j] = float64(2*rng.Float64()) - 1
+				row[j] = twoUMinus1(rng)
 			}
 			for k := 0; k < i; k++ {
 				prev := q[k*n : (k+1)*n]
