@@ -17,6 +17,7 @@ import (
 	"weft/checkpoint"
 	"weft/data"
 	"weft/rnn"
+	"weft/rnn/linalg"
 )
 
 // pcgStream is the second PCG seed word of weft sample: --seed S seeds
@@ -45,6 +46,7 @@ type sampleOptions struct {
 	Stop        []string
 	JSON        bool
 	MapUnknown  bool
+	Threads     int
 
 	// set by the constructor from the flags that were given
 	samplingSet bool
@@ -82,6 +84,9 @@ log-probability; it prints the --samples best when the search ends.
 Continuations that end early compete with longer ones on their raw total, so
 short ones are favoured. A wider beam is not guaranteed to find a better one.
 
+With --samples N above 1, each continuation is preceded by a line
+"== sample I ==" (with its total surprise in bits after --beam).
+
 --json prints one JSON object per continuation, on one line: its text
 (without the prompt), its tokens with their log-probabilities under the model
 (nats, and bits of surprise), the totals, and why it ended ("length",
@@ -118,6 +123,7 @@ short ones are favoured. A wider beam is not guaranteed to find a better one.
 	f.StringArrayVar(&opts.Stop, "stop", nil, "end a continuation before this text (repeatable)")
 	f.BoolVar(&opts.JSON, "json", false, "print each continuation as a JSON object with per-token log-probabilities")
 	f.BoolVar(&opts.MapUnknown, "map-unknown", false, "read prompt characters or words outside the vocabulary as the unknown symbol")
+	addThreadsFlag(cmd, &opts.Threads)
 	return cmd
 }
 
@@ -148,6 +154,26 @@ func (l sampleLength) maxTokens() int {
 		return 4*l.n + 16
 	}
 	return l.n
+}
+
+// addThreadsFlag adds --threads, the thread count of the model's matrix
+// products. Results do not depend on it.
+func addThreadsFlag(cmd *cobra.Command, dst *int) {
+	cmd.Flags().IntVar(dst, "threads", 1, "threads for the model's matrix products (the output does not depend on it)")
+}
+
+// usePool gives m a pool of n threads and returns the function that
+// closes it.
+func usePool(m *checkpoint.Model, n int) (func(), error) {
+	if n < 1 {
+		return nil, usagef("--threads must be at least 1, got %d", n)
+	}
+	if n == 1 {
+		return func() {}, nil
+	}
+	p := linalg.NewPool(n)
+	m.Net.SetPool(p)
+	return func() { m.Net.SetPool(nil); p.Close() }, nil
 }
 
 // loadRunModel loads the model of a run directory or a checkpoint file, as
@@ -350,6 +376,11 @@ func runSample(opts *sampleOptions) error {
 	if err != nil {
 		return err
 	}
+	closePool, err := usePool(m, opts.Threads)
+	if err != nil {
+		return err
+	}
+	defer closePool()
 	prompt, err := encodePrompt(opts.cmdContext, m.Vocab, promptText, opts.MapUnknown)
 	if err != nil {
 		return err
@@ -482,7 +513,7 @@ func sampleBeam(opts *sampleOptions, m *checkpoint.Model, promptText string, pro
 			continue
 		}
 		if opts.Samples > 1 {
-			fmt.Fprintf(opts.Out, "== continuation %d: %.4f bits ==\n", i+1, -total/math.Ln2)
+			fmt.Fprintf(opts.Out, "== sample %d: %.4f bits ==\n", i+1, -total/math.Ln2)
 		}
 		full := promptText + rec.Text
 		if !strings.HasSuffix(full, "\n") {

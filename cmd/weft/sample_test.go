@@ -170,9 +170,9 @@ func TestSampleGolden(t *testing.T) {
 	}
 }
 
-// TestSampleDeterministic runs one seeded command twice, in a fresh
-// process state each (a new model load), and checks the bytes are equal;
-// a different seed must change them.
+// TestSampleDeterministic runs one seeded command twice, each with a new
+// model load, and with 1 and 2 threads, and checks the bytes are equal; a
+// different seed must change them.
 func TestSampleDeterministic(t *testing.T) {
 	r := newDecodeRun(t, "")
 	args := []string{"sample", "--checkpoint", r.Ckpt, "--length", "60", "--seed", "77", "--samples", "3", "--json"}
@@ -180,6 +180,11 @@ func TestSampleDeterministic(t *testing.T) {
 	_, b, _ := runCmd(t, "", args...)
 	if a != b || a == "" {
 		t.Fatalf("two runs with seed 77 differ:\n%s\n%s", a, b)
+	}
+	for _, threads := range []string{"1", "2"} {
+		if _, c, _ := runCmd(t, "", append(args, "--threads", threads)...); c != a {
+			t.Errorf("--threads %s changes the output:\n%s\nwant:\n%s", threads, c, a)
+		}
 	}
 	args[len(args)-4] = "78"
 	if _, c, _ := runCmd(t, "", args...); c == a {
