@@ -156,3 +156,23 @@ func quantile(x []float64, q float64) float64 {
 	}
 	return x[i] + f*(x[i+1]-x[i])
 }
+
+// Masked returns the series restricted to the tokens where mask is true:
+// the others keep their places but count zero bits over zero characters.
+// Bootstrap on masked series (the same mask for every model) gives
+// intervals for the bits per character of the marked positions, such as
+// the demo corpus's long-range positions; its blocks are then BlockChars
+// marked characters long.
+func (s Series) Masked(mask []bool) Series {
+	if len(mask) != len(s.LogProbs) {
+		panic("eval: Series.Masked: len(mask) != len(LogProbs)")
+	}
+	out := Series{LogProbs: make([]float64, len(s.LogProbs)), Chars: make([]int, len(s.LogProbs))}
+	for i, m := range mask {
+		if m {
+			out.LogProbs[i] = s.LogProbs[i]
+			out.Chars[i] = charsAt(s.Chars, i)
+		}
+	}
+	return out
+}

@@ -109,3 +109,23 @@ func TestBootstrapAcrossTokenizations(t *testing.T) {
 		t.Errorf("infinite series: got %+v", bpc[0])
 	}
 }
+
+func TestBootstrapMasked(t *testing.T) {
+	// The masked series' estimate is the marked positions' bits per
+	// character of Marked, and its interval contains it.
+	rng := rand.New(rand.NewPCG(9, 9))
+	lp := noisyScores(rng, 5000, 2)
+	mask := make([]bool, len(lp))
+	for i := range mask {
+		mask[i] = i%7 == 3
+	}
+	in, _ := Marked(lp, nil, mask)
+	bpc, _, err := Bootstrap([]Series{Series{LogProbs: lp}.Masked(mask)}, 0, BootstrapConfig{Samples: 200, BlockChars: 50, Level: 0.95, Seed: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, "masked estimate", bpc[0].Estimate, in.BitsPerChar, 1e-12)
+	if !(bpc[0].Low < in.BitsPerChar && in.BitsPerChar < bpc[0].High) {
+		t.Errorf("masked interval %+v does not contain %g", bpc[0], in.BitsPerChar)
+	}
+}
