@@ -133,7 +133,8 @@
 // BlockChars characters (a token belongs to the block holding its first
 // character), each resample draws as many blocks with replacement, seeded,
 // and all models are scored on the same drawn blocks, so their difference
-// is measured on identical text.
+// is measured on identical text. Series.Masked restricts the bootstrap to
+// marked positions.
 //
 // # Progress and files
 //
