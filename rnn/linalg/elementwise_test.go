@@ -395,3 +395,36 @@ func TestMaxScale(t *testing.T) {
 		}
 	}
 }
+
+// FuzzElementwise checks every implementation at inputs the fuzzer picks,
+// against package math with the bounds above: the strided sweep skips most
+// mantissas, the fuzzer does not.
+func FuzzElementwise(f *testing.F) {
+	for _, x := range []float32{0, 1, -1, 0.625, 9.1, 88.72, -87.33, -104, 1e-40} {
+		f.Add(math.Float32bits(x))
+	}
+	f.Fuzz(func(t *testing.T, bits uint32) {
+		x := math.Float32frombits(bits)
+		if x != x {
+			return
+		}
+		xs := []float32{x}
+		got := []float32{0}
+		for _, impl := range vecImpls {
+			impl.exp(got, xs)
+			if want := math.Exp(float64(x)); want >= 0x1p-126 && want <= math.MaxFloat32 {
+				if rel := math.Abs(float64(got[0])-want) / want; rel > expMaxRelErr {
+					t.Errorf("%s exp(%g): got %g want %g (rel %g)", impl.name, x, got[0], want, rel)
+				}
+			}
+			impl.sigmoid(got, xs)
+			if want := 1 / (1 + math.Exp(-float64(x))); math.Abs(float64(got[0])-want) > actMaxAbsErr {
+				t.Errorf("%s sigmoid(%g): got %g want %g", impl.name, x, got[0], want)
+			}
+			impl.tanh(got, xs)
+			if want := math.Tanh(float64(x)); math.Abs(float64(got[0])-want) > actMaxAbsErr {
+				t.Errorf("%s tanh(%g): got %g want %g", impl.name, x, got[0], want)
+			}
+		}
+	})
+}

@@ -26,9 +26,9 @@ func micro4x4[T Float](kc int, ap, bp, c []T, ldc int, alpha, beta T) {
 	var c00, c01, c02, c03, c10, c11, c12, c13, c20, c21, c22, c23, c30, c31, c32, c33 T
 	ap = ap[:4*kc]
 	bp = bp[:4*kc]
-	for l := 0; l < 4*kc; l += 4 {
-		a := ap[l : l+4 : l+4]
-		b := bp[l : l+4 : l+4]
+	for l := 0; l+4 <= len(ap) && l+4 <= len(bp); l += 4 {
+		a := (*[4]T)(ap[l:])
+		b := (*[4]T)(bp[l:])
 		a0, a1, a2, a3 := a[0], a[1], a[2], a[3]
 		b0, b1, b2, b3 := b[0], b[1], b[2], b[3]
 		c00 += a0 * b0
