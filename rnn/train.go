@@ -75,7 +75,9 @@ type Trainer[T Float] struct {
 
 // NewTrainer returns a trainer for m with a fresh optimizer and schedule.
 // Dropout masks come from a PCG generator seeded with cfg.Seed (on its own
-// stream, distinct from initialisation). pool may be nil.
+// stream, distinct from initialisation). pool may be nil; cfg.Threads is
+// not read here: the caller sizes the pool from it
+// (linalg.NewPool(threads), one per core when zero) and closes it.
 func NewTrainer[T Float](m *Model[T], cfg TrainConfig, pool *linalg.Pool) (*Trainer[T], error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, err
