@@ -52,12 +52,13 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 	if P == 0 {
 		return nil
 	}
-	S, W := m.scoreS, m.scoreWarm
+	S, W := min(m.scoreS, P), m.scoreWarm
 	L := (P + S - 1) / S
 	for S > 1 && L < W {
 		S--
 		L = (P + S - 1) / S
 	}
+	S = (P + L - 1) / L // every stream gets at least one position (L unchanged)
 	if S == 1 {
 		W = 0
 	}

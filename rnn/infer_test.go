@@ -181,3 +181,45 @@ func TestStreamSelectClone(t *testing.T) {
 
 // The model satisfies eval.LanguageModel, the interface every scorer uses.
 var _ eval.LanguageModel = (*Model[float32])(nil)
+
+// TestLogProbsSplitCoversEveryPosition tries many lengths, stream counts
+// and warm-ups: every position gets a log-probability, and the first
+// piece (which starts at the true start of the document) is exact.
+func TestLogProbsSplitCoversEveryPosition(t *testing.T) {
+	m := inferModel(t, "rnn")
+	ctx := context.Background()
+	seq := randomTokens(200, 9, 10)
+	for _, n := range []int{1, 2, 3, 7, 64, 65, 130, 200} {
+		exact := make([]float64, n)
+		if err := m.SetScoring(1, 0); err != nil {
+			t.Fatal(err)
+		}
+		if err := m.LogProbs(ctx, exact, seq[:n]); err != nil {
+			t.Fatal(err)
+		}
+		for _, s := range []int{2, 3, 5, 16} {
+			for _, w := range []int{0, 1, 9, 70} {
+				_ = m.SetScoring(s, w)
+				got := make([]float64, n)
+				for i := range got {
+					got[i] = math.NaN()
+				}
+				if err := m.LogProbs(ctx, got, seq[:n]); err != nil {
+					t.Fatal(err)
+				}
+				// The first piece covers positions 0..L with L = ⌈(n−1)/S′⌉ for the
+				// S′ ≤ S streams used; at least position 0 and 1 are in it.
+				for i, v := range got {
+					if math.IsNaN(v) || v > 0 {
+						t.Fatalf("n=%d streams=%d warmup=%d: position %d has ln p = %v", n, s, w, i, v)
+					}
+				}
+				for i := 0; i < min(n, 2); i++ {
+					if !closeTo(got[i], exact[i], inferTol) {
+						t.Fatalf("n=%d streams=%d warmup=%d: position %d %v, exact %v", n, s, w, i, got[i], exact[i])
+					}
+				}
+			}
+		}
+	}
+}
