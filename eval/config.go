@@ -78,8 +78,8 @@ type Config struct {
 	ConfidenceLevel float64 `toml:"confidence_level"`
 
 	// Interpolate adds the row mixing the recurrent model linearly with the
-	// best n-gram baseline, the weight tuned on the validation split.
-	// Default true.
+	// best n-gram baseline, the weight tuned on the validation split; false
+	// (the zero value) leaves it out. Default true.
 	Interpolate bool `toml:"interpolate"`
 }
 
