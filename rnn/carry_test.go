@@ -19,9 +19,11 @@ func TestCarriedStateMatchesWholeSequence(t *testing.T) {
 	for _, tc := range []struct {
 		name      string
 		unroll, a int // unroll_steps, bptt_advance_steps
+		varied    bool
 	}{
-		{"truncated", 5, 0},
-		{"bptt_advance_steps=3", 8, 3},
+		{"truncated", 5, 0, false},
+		{"truncated/varied_T", 5, 0, true}, // windows of 1 to 5 steps
+		{"bptt_advance_steps=3", 8, 3, false},
 	} {
 		for _, cell := range []string{"rnn", "gru", "lstm"} {
 			t.Run(tc.name+"/"+cell, func(t *testing.T) {
@@ -39,33 +41,43 @@ func TestCarriedStateMatchesWholeSequence(t *testing.T) {
 					t.Fatal(err)
 				}
 				before := append([]float64(nil), m.values...)
-				T := tc.unroll
-				if tc.a > 0 {
-					T = tc.a
-				}
 				const B, windows = 2, 7
-				streams := [B][]int{randomTokens(windows*T+1, 12, 21), randomTokens(windows*T+1, 12, 22)}
+				lengths := make([]int, windows)
+				total := 0
+				for k := range lengths {
+					lengths[k] = tc.unroll
+					if tc.a > 0 {
+						lengths[k] = tc.a
+					}
+					if tc.varied {
+						lengths[k] = 1 + (3*k+1)%tc.unroll
+					}
+					total += lengths[k]
+				}
+				streams := [B][]int{randomTokens(total+1, 12, 21), randomTokens(total+1, 12, 22)}
 				start := [B]int{} // where each stream's current document starts
 				ctx := context.Background()
-				for k := 0; k < windows; k++ {
+				pos := 0
+				for k, T := range lengths {
 					w := Window{B: B, T: T, Inputs: make([]int, B*T), Targets: make([]int, B*T)}
 					if k == 3 { // stream 0 starts a new document here
 						w.Reset = []bool{true, false}
-						start[0] = k * T
+						start[0] = pos
 					}
 					for s := 0; s < T; s++ {
 						for b := 0; b < B; b++ {
-							w.Inputs[s*B+b] = streams[b][k*T+s]
-							w.Targets[s*B+b] = streams[b][k*T+s+1]
+							w.Inputs[s*B+b] = streams[b][pos+s]
+							w.Targets[s*B+b] = streams[b][pos+s+1]
 						}
 					}
+					pos += T
 					info, err := tr.Step(ctx, w)
 					if err != nil {
 						t.Fatal(err)
 					}
 					var want float64
 					for b := 0; b < B; b++ {
-						doc := streams[b][start[b] : (k+1)*T+1]
+						doc := streams[b][start[b] : pos+1]
 						lp := make([]float64, len(doc))
 						if err := m.LogProbs(ctx, lp, doc); err != nil {
 							t.Fatal(err)
