@@ -223,3 +223,34 @@ func TestLogProbsSplitCoversEveryPosition(t *testing.T) {
 		}
 	}
 }
+
+// TestStreamHypothesesIndependent feeds three different sequences to one
+// three-hypothesis Stream: each row must score as its sequence does alone.
+func TestStreamHypothesesIndependent(t *testing.T) {
+	m := inferModel(t, "lstm")
+	V := m.VocabSize()
+	const n, length = 3, 40
+	seqs := [n][]int{randomTokens(length, V, 31), randomTokens(length, V, 32), randomTokens(length, V, 33)}
+	want := make([][]float64, n)
+	for i := range seqs {
+		want[i] = make([]float64, length)
+		if err := m.LogProbs(context.Background(), want[i], seqs[i]); err != nil {
+			t.Fatal(err)
+		}
+	}
+	s := m.NewStream(n)
+	dist := make([]float64, n*V)
+	toks := make([]int, n)
+	for p := 0; p < length; p++ {
+		s.LogProbs(dist)
+		for i := range seqs {
+			if got := dist[i*V+seqs[i][p]]; !closeTo(got, want[i][p], inferTol) {
+				t.Fatalf("hypothesis %d position %d: %v, alone %v", i, p, got, want[i][p])
+			}
+			toks[i] = seqs[i][p]
+		}
+		if err := s.Feed(toks); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
