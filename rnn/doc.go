@@ -12,14 +12,15 @@
 //	h_t^1 = cell_1(D(e_t), h_{t−1}^1)    layer 1
 //	h_t^l = cell_l(D(h_t^{l−1}), h_{t−1}^l)
 //	p_t   = P D(h_t^N)                   optional linear projection (no bias)
-//	y_t   = softmax(W_o p_t + b_o)       P(x_{t+1} | x_≤t)
+//	y_t   = softmax(W_y p_t + b_y)       P(x_{t+1} | x_≤t)
 //
 // where D is inverted dropout on the non-recurrent connections only
 // (Zaremba, Sutskever & Vinyals 2014): during training each unit is kept
 // with probability 1−p and scaled by 1/(1−p); at evaluation D is the
-// identity (one-hot input is never dropped). With tie_embeddings the output matrix is the embedding matrix,
-// W_o = E (Press & Wolf 2017), which needs the output layer's input width to
-// equal embedding_size. All layers use the same cell:
+// identity (one-hot input is never dropped). With tie_embeddings the output
+// matrix is the embedding matrix, W_y = E (Press & Wolf 2017), which needs
+// the output layer's input width to equal embedding_size. All layers use
+// the same cell:
 //
 // Vanilla (Elman 1990), φ = tanh or ReLU:
 //
@@ -98,8 +99,9 @@
 // block orthogonal (Saxe, McClelland & Ganguli 2014) by modified
 // Gram–Schmidt on uniform draws. Biases are zero except the LSTM forget
 // gate. Only exactly rounded operations are used, with products rounded
-// before sums so that no fused multiply-add enters: the same seed gives
-// bit-identical weights on every platform.
+// before sums so that no fused multiply-add enters (the arm64 code was
+// checked for them): the same seed gives bit-identical weights on every
+// platform, which TestInitialisationDigest pins with a frozen digest.
 //
 // # Training
 //
@@ -127,7 +129,7 @@
 //
 // Exact resume: the model's Params, Trainer.StateTensors (optimizer slots
 // "optim.<slot>.<parameter>", carried state "state.layer.L.h" and, for
-// LSTM, "state.layer.L.c") and the JSON-able TrainerState (step, tokens,
+// LSTM, "state.layer.L.c", plus "…h_end" and "…c_end" under BPTT(h; h′)) and the JSON-able TrainerState (step, tokens,
 // generator state, optimizer and schedule scalars, BPTT(h; h′) replay
 // tokens) are all a trainer has. Copy them into a fresh trainer of the same
 // configs and it continues bit for bit.
@@ -152,7 +154,8 @@
 //
 // # Memory
 //
-// Training one window of R = B·T positions stores, in elements of T:
+// Training one window of R = B·T positions stores, in scalars (4 bytes each
+// in float32; E = 0 for one-hot input, P = 0 without projection):
 //
 //	2·N                          parameters and gradients (N = NumParams)
 //	+ k·N                        optimizer slots: k = 0 SGD, 1 momentum/AdaGrad/RMSprop, 2 Adam(W)
@@ -177,7 +180,9 @@
 // against gorgonia's symbolic gradients of the same graphs
 // (gorgonia_test.go; gorgonia is imported by tests only) and against
 // PyTorch's forward values and gradients (reference_test.go). Optimizer
-// steps are checked against hand computations of their published rules,
-// and training must beat the unigram and bigram models of Moby-Dick
-// (learn_test.go).
+// steps are checked against hand computations of their published rules;
+// the carried state, resets and the BPTT(h; h′) replay against scoring
+// whole sequences (carry_test.go); resuming from exported state against an
+// uninterrupted run, bit for bit; and training must beat the unigram and
+// bigram models of Moby-Dick and of the demo corpus (learn_test.go).
 package rnn
