@@ -9,14 +9,15 @@ import (
 // field's comment gives its unit, its default and what the zero value means.
 type Config struct {
 	// Cell is the recurrent cell: "rnn" (Elman), "gru" or "lstm".
-	// Default "lstm".
+	// Empty is invalid. Default "lstm".
 	Cell string `toml:"cell"`
 
-	// Layers is the number of stacked recurrent layers, 1 or more.
-	// Default 1.
+	// Layers is the number of stacked recurrent layers, 1 or more (zero
+	// is invalid). Default 1.
 	Layers int `toml:"layers"`
 
-	// HiddenSize is the width of each layer's state, in units. Default 256.
+	// HiddenSize is the width of each layer's state, in units, 1 or more
+	// (zero is invalid). Default 256.
 	HiddenSize int `toml:"hidden_size"`
 
 	// EmbeddingSize is the width of the token embedding, in units. Zero
@@ -56,12 +57,14 @@ type Config struct {
 
 	// Init is the scheme for the input and output weights: "uniform" draws
 	// from U(−init_range, init_range); "xavier" draws from U(−a, a) with
-	// a = √(6/(fan_in+fan_out)) (Glorot & Bengio 2010). Default "xavier".
+	// a = √(6/(fan_in+fan_out)) (Glorot & Bengio 2010). Empty is invalid.
+	// Default "xavier".
 	Init string `toml:"init"`
 
 	// InitRange is the half-width of the uniform draws of the "uniform"
 	// scheme and of the embedding matrix, which every scheme draws from
-	// U(−init_range, init_range). Default 0.1.
+	// U(−init_range, init_range). It must be positive (zero is invalid).
+	// Default 0.1.
 	InitRange float64 `toml:"init_range"`
 
 	// RecurrentInit is the scheme for the recurrent weights: "orthogonal"
@@ -167,18 +170,20 @@ func (c Config) outputInput() int {
 // file.
 type TrainConfig struct {
 	// Optimizer is "sgd", "adagrad", "rmsprop", "adam" or "adamw".
-	// Default "adam".
+	// Empty is invalid. Default "adam".
 	Optimizer string `toml:"optimizer"`
 
-	// LearningRate is the step size at the start of the schedule.
-	// Default 0.002.
+	// LearningRate is the step size at the start of the schedule; it must
+	// be positive (zero is invalid). Default 0.002.
 	LearningRate float64 `toml:"learning_rate"`
 
-	// BatchSize is the number of parallel streams in a window. Default 32.
+	// BatchSize is the number of parallel streams in a window, 1 or more
+	// (zero is invalid). Default 32.
 	BatchSize int `toml:"batch_size"`
 
 	// UnrollSteps is the number of time steps in a window, over which
-	// gradients flow back (truncated BPTT). Default 64.
+	// gradients flow back (truncated BPTT); windows may be shorter. 1 or
+	// more (zero is invalid). Default 64.
 	UnrollSteps int `toml:"unroll_steps"`
 
 	// ClipNorm is the largest global L2 norm of the gradient; a larger one is
@@ -227,35 +232,36 @@ type TrainConfig struct {
 	WeightDecay float64 `toml:"weight_decay"`
 
 	// Beta1 is the decay of Adam's first-moment average, from 0 to below 1
-	// (Kingma & Ba 2015). Default 0.9.
+	// (Kingma & Ba 2015). Zero means no averaging (m = g). Default 0.9.
 	Beta1 float64 `toml:"beta1"`
 
 	// Beta2 is the decay of Adam's second-moment average, from 0 to below 1.
-	// Default 0.999.
+	// Zero means no averaging (v = g²). Default 0.999.
 	Beta2 float64 `toml:"beta2"`
 
 	// RMSDecay is the decay ρ of the squared-gradient average of "rmsprop",
-	// from 0 to below 1. Default 0.99.
+	// from 0 to below 1. Zero means no averaging (s = g²). Default 0.99.
 	RMSDecay float64 `toml:"rms_decay"`
 
 	// Epsilon is the small positive constant added to the denominator of
-	// "adagrad", "rmsprop", "adam" and "adamw". Default 1e-8.
+	// "adagrad", "rmsprop", "adam" and "adamw"; zero is invalid.
+	// Default 1e-8.
 	Epsilon float64 `toml:"epsilon"`
 
 	// Schedule shapes the learning rate over steps: "constant", "step"
 	// (multiply by decay_factor every decay_every_steps), "cosine" (linear
 	// warm-up over warmup_steps, then a half cosine down to
 	// min_learning_rate at cosine_steps) or "plateau" (divide by
-	// plateau_divisor when the validation loss stops improving).
-	// Default "constant".
+	// plateau_divisor when the validation loss stops improving). Empty is
+	// invalid. Default "constant".
 	Schedule string `toml:"schedule"`
 
-	// DecayEverySteps is the period of the "step" schedule, in steps.
-	// Default 1000.
+	// DecayEverySteps is the period of the "step" schedule, in steps; zero
+	// is invalid with that schedule. Default 1000.
 	DecayEverySteps int `toml:"decay_every_steps"`
 
 	// DecayFactor multiplies the rate at each "step" decay, from above 0 to
-	// 1. Default 0.5.
+	// 1; zero is invalid with that schedule. Default 0.5.
 	DecayFactor float64 `toml:"decay_factor"`
 
 	// WarmupSteps is the length of the linear warm-up of the "cosine"
@@ -266,11 +272,13 @@ type TrainConfig struct {
 	// min_learning_rate (and stays). Zero means max_steps. Default 0.
 	CosineSteps int `toml:"cosine_steps"`
 
-	// MinLearningRate is the floor of the "cosine" schedule. Default 0.
+	// MinLearningRate is the floor of the "cosine" schedule. Zero means the
+	// rate decays to 0. Default 0.
 	MinLearningRate float64 `toml:"min_learning_rate"`
 
 	// PlateauDivisor divides the rate of the "plateau" schedule each time
-	// the validation loss stops improving; more than 1. Default 2.
+	// the validation loss stops improving; more than 1 (zero is invalid
+	// with that schedule). Default 2.
 	PlateauDivisor float64 `toml:"plateau_divisor"`
 
 	// PlateauPatience is the number of validations without improvement the
