@@ -141,6 +141,8 @@ and lives in a run directory (--run DIR).`,
 	root.AddCommand(
 		newConfigCmd(d, nil),
 		newPrepareCmd(d, nil),
+		newTrainCmd(d, nil),
+		newInspectCmd(d, nil),
 	)
 	return root
 }
