@@ -140,6 +140,8 @@ func inspectFile(path string) (inspection, error) {
 	}
 	in := inspection{Summary: s}
 	if !s.Valid {
+		// The message names the file already.
+		in.Problem = strings.TrimPrefix(oneLine(in.Problem), fmt.Sprintf("load checkpoint %q: ", path))
 		return in, nil
 	}
 	f, err := checkpoint.Load(path)

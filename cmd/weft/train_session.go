@@ -519,8 +519,15 @@ func (s *session) loop() (string, error) {
 		if info.Tokens == 0 {
 			continue
 		}
-		if f := r.Training.DivergenceFactor; f > 0 && s.prog.LossCount >= lossWarmupWindows && info.Loss > f*s.prog.LossAverage {
-			why := fmt.Sprintf("step %d: training loss %.4g is above %g × the recent average %.4g", info.Step, info.Loss, f, s.prog.LossAverage)
+		// The loss is judged against its recent average, or against the
+		// loss of a uniform prediction, ln V, until the average has
+		// enough windows behind it.
+		ref, refName := s.prog.LossAverage, "the recent average"
+		if s.prog.LossCount < lossWarmupWindows {
+			ref, refName = math.Log(float64(s.net.VocabSize())), "the uniform prediction's ln V ="
+		}
+		if f := r.Training.DivergenceFactor; f > 0 && info.Loss > f*ref {
+			why := fmt.Sprintf("step %d: training loss %.4g is above %g × %s %.4g", info.Step, info.Loss, f, refName, ref)
 			if err := s.recoverDivergence(why); err != nil {
 				return "", err
 			}
