@@ -84,9 +84,10 @@
 //	output.weight, output.bias  nn.Linear weight, bias
 //
 // Going the other way, put weft's bias in bias_ih and zeros in bias_hh (for
-// GRU: b_hn in the n block of bias_hh). PyTorch has no reset-before GRU.
-// The mapping is tested against PyTorch's own outputs
-// (testdata/torch_reference.py).
+// GRU: b_hn in the n block of bias_hh). PyTorch has no reset-before GRU
+// module. The mapping is tested against PyTorch's own outputs
+// (testdata/torch_reference.py), and the reset-before GRU against the same
+// equations written out in torch operations there.
 //
 // # Initialisation
 //

@@ -57,6 +57,8 @@ func TestAgainstPyTorch(t *testing.T) {
 		"rnn-relu":        func(c *Config) { c.Cell, c.Activation = "rnn", "relu" },
 		"lstm":            func(c *Config) { c.Cell = "lstm" },
 		"gru-reset-after": func(c *Config) { c.Cell, c.GRUForm = "gru", "reset_after" },
+		// No torch.nn module: the script writes this form out in torch ops.
+		"gru-reset-before": func(c *Config) { c.Cell, c.GRUForm = "gru", "reset_before" },
 	}
 	if len(ref.Cases) != len(configs) {
 		t.Fatalf("reference has %d cases, test knows %d", len(ref.Cases), len(configs))

@@ -20,6 +20,9 @@ one in rnn's package documentation):
     weft layer.L.bias              = bias_ih_lL + bias_hh_lL   (rnn, lstm)
                                    = [b_ir+b_hr, b_iz+b_hz, b_in]  (gru)
     weft layer.L.recurrent_bias    = b_hn                          (gru only)
+
+torch.nn has no reset-before GRU (Cho et al. 2014); that case is written
+out in torch operations, with its weights set in weft's layout directly.
 """
 import json
 import math
@@ -107,6 +110,62 @@ def case(kind, nonlinearity="tanh"):
     return res
 
 
+def case_gru_reset_before():
+    """The GRU of Cho et al. (2014), reset before the recurrent product,
+    n = tanh(W_n x + b_n + U_n (r * h)), which torch.nn has no module for:
+    written out in torch operations (autograd gives the gradients), with the
+    weights directly in weft's layout and names."""
+    k = 0
+    params = {}
+
+    def new(name, shape, scale=1.0):
+        nonlocal k
+        t = (det(shape, k) * scale).requires_grad_(True)
+        k += 1
+        params[name] = t
+        return t
+
+    emb = new("embedding.weight", (V, E))
+    layers = []
+    for l in range(L):
+        I = E if l == 0 else H
+        layers.append((new(f"layer.{l}.input_weight", (3 * H, I), 5),
+                       new(f"layer.{l}.recurrent_weight", (3 * H, H), 5),
+                       new(f"layer.{l}.bias", (3 * H,), 5)))
+    ow = new("output.weight", (V, H))
+    ob = new("output.bias", (V,))
+    h0 = torch.stack([det((B, H), 50 + l) * 3 for l in range(L)])
+    hs = [h0[l] for l in range(L)]
+    outs = []
+    for t in range(T):
+        x = emb[torch.tensor(INPUTS[t])]
+        for l, (wi, wh, b) in enumerate(layers):
+            h = hs[l]
+            xg = x @ wi.T + b
+            rz = h @ wh[:2 * H].T
+            r = torch.sigmoid(xg[:, :H] + rz[:, :H])
+            z = torch.sigmoid(xg[:, H:2 * H] + rz[:, H:])
+            n = torch.tanh(xg[:, 2 * H:] + (r * h) @ wh[2 * H:].T)
+            h = (1 - z) * n + z * h
+            hs[l] = h
+            x = h
+        outs.append(x @ ow.T + ob)
+    logits = torch.stack(outs)
+    loss = torch.nn.functional.cross_entropy(logits.reshape(T * B, V), torch.tensor(TARGETS).reshape(T * B))
+    loss.backward()
+
+    def flat(t):
+        return [float(v) for v in t.detach().reshape(-1)]
+
+    return {
+        "loss": float(loss),
+        "logits": flat(logits),
+        "h0": flat(h0),
+        "final_h": flat(torch.stack(hs)),
+        "tensors": {name: {"shape": list(p.shape), "value": flat(p), "grad": flat(p.grad)} for name, p in params.items()},
+    }
+
+
 def main():
     torch.manual_seed(0)  # nothing random is drawn; set for good measure
     ref = {
@@ -119,6 +178,7 @@ def main():
             "rnn-relu": case("rnn", "relu"),
             "lstm": case("lstm"),
             "gru-reset-after": case("gru"),
+            "gru-reset-before": case_gru_reset_before(),
         },
     }
     with open("torch_reference.json", "w") as f:
