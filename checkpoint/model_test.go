@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -431,4 +432,49 @@ func TestFrozenModel(t *testing.T) {
 	if !reflect.DeepEqual(names, wantNames) {
 		t.Errorf("tensor names: got %v, want %v", names, wantNames)
 	}
+}
+
+var modelSink *File
+
+// BenchmarkSaveTraining measures a training checkpoint of the reference
+// model (LSTM, V = 96, E = 64, H = 256, batch 32, with Adam's two moments)
+// as the trainer writes it: snapshot the state into a File, then Save it
+// with fsync of the file and the directory.
+func BenchmarkSaveTraining(b *testing.B) {
+	var text strings.Builder
+	for c := ' '; c <= '~'; c++ { // 95 printable ASCII characters + <unk> = 96
+		text.WriteRune(c)
+	}
+	v, err := data.LearnVocab(context.Background(), strings.NewReader(text.String()), "ascii", data.VocabOptions{Tokenizer: "char"})
+	if err != nil {
+		b.Fatal(err)
+	}
+	cfg := rnn.DefaultConfig() // lstm, 1 layer, hidden 256, embedding 64
+	tc := rnn.DefaultTrainConfig()
+	tr := newTrainer(b, cfg, tc, v.Len(), 1)
+	name := fmt.Sprintf("lstm/vocab=%d/embed=%d/hidden=%d/adam", v.Len(), cfg.EmbeddingSize, cfg.HiddenSize)
+	b.Run(name, func(b *testing.B) {
+		path := filepath.Join(b.TempDir(), StepName(1))
+		f, err := NewTrainingFile(tr, v, []byte("run"), Progress{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		raw, err := Encode(f)
+		if err != nil {
+			b.Fatal(err)
+		}
+		b.SetBytes(int64(len(raw)))
+		b.ReportAllocs()
+		b.ResetTimer()
+		for range b.N {
+			f, err := NewTrainingFile(tr, v, []byte("run"), Progress{})
+			if err != nil {
+				b.Fatal(err)
+			}
+			if err := Save(path, f); err != nil {
+				b.Fatal(err)
+			}
+			modelSink = f
+		}
+	})
 }
