@@ -49,10 +49,11 @@ type Training struct {
 	EarlyStopPatience int `toml:"early_stop_patience"`
 
 	// DivergenceFactor treats a window whose training loss exceeds this
-	// multiple of the recent average as a divergence (as is a NaN or an
-	// infinite loss or gradient): the run restores the last good checkpoint
-	// and lowers the learning rate. Zero checks only NaN and infinity.
-	// Default 4.
+	// multiple of the recent average (of about 50 windows; during the first
+	// 20 windows, of ln V, the loss of a uniform prediction over the V
+	// vocabulary entries) as a divergence, as is a NaN or an infinite loss
+	// or gradient: the run restores the last good checkpoint and lowers the
+	// learning rate. Zero checks only NaN and infinity. Default 4.
 	DivergenceFactor float64 `toml:"divergence_factor"`
 
 	// DivergenceRetries is how many times in a row the run may recover from
