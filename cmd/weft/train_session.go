@@ -10,9 +10,11 @@ import (
 	"io"
 	"math"
 	"os"
+	"path/filepath"
 	"runtime"
 	"strings"
 	"sync/atomic"
+	"syscall"
 	"time"
 
 	"weft/checkpoint"
@@ -100,6 +102,10 @@ func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (
 		return nil, err
 	}
 	defer rd.Close()
+	r, err = absoluteFiles(r)
+	if err != nil {
+		return nil, err
+	}
 	s := &session{cc: cc, r: r, o: o, rd: rd, ckdir: rd.file(checkpointsDir), lastSavedStep: -1}
 	s.rep = newReporter(cc.deps, time.Duration(r.Output.LogEverySeconds*float64(time.Second)), o.Quiet)
 	defer s.rep.finish()
@@ -125,6 +131,38 @@ func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (
 	return res, err
 }
 
+// absoluteFiles returns r with its corpus paths made absolute, so that the
+// run file recorded in the checkpoints, and the check on resume, do not
+// depend on the directory weft is started from.
+func absoluteFiles(r *configs.Run) (*configs.Run, error) {
+	c := *r
+	c.Data.Files = append([]string(nil), r.Data.Files...)
+	for i, f := range c.Data.Files {
+		if f == "-" || filepath.IsAbs(f) {
+			continue
+		}
+		abs, err := filepath.Abs(f)
+		if err != nil {
+			return nil, fmt.Errorf("data.files: %w", err)
+		}
+		c.Data.Files[i] = abs
+	}
+	return &c, nil
+}
+
+// signalName names the stopping signals as a user knows them.
+func signalName(sig os.Signal) string {
+	switch sig {
+	case os.Interrupt:
+		return "SIGINT"
+	case syscall.SIGTERM:
+		return "SIGTERM"
+	case syscall.SIGUSR1:
+		return "SIGUSR1"
+	}
+	return sig.String()
+}
+
 // watchSignals turns the first stopping signal into a graceful stop and a
 // second into an immediate exit.
 func (s *session) watchSignals(done <-chan struct{}, stop context.CancelFunc) {
@@ -136,12 +174,12 @@ func (s *session) watchSignals(done <-chan struct{}, stop context.CancelFunc) {
 		case sig := <-s.cc.Signals:
 			n++
 			if n == 1 {
-				s.stopSig.Store(sig.String())
-				s.rep.warnf("%v: finishing the current window and saving; send it again to quit at once without saving", sig)
+				s.stopSig.Store(signalName(sig))
+				s.rep.warnf("%s: finishing the current window and saving; send it again to quit at once without saving", signalName(sig))
 				stop()
 				continue
 			}
-			s.rep.warnf("second %v: exiting at once without saving (status %d); the checkpoints in %s are intact", sig, exitAbandoned, s.ckdir)
+			s.rep.warnf("second %s: exiting at once without saving (status %d); the checkpoints in %s are intact", signalName(sig), exitAbandoned, s.ckdir)
 			exitNow(exitAbandoned)
 			return
 		}

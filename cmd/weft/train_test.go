@@ -831,7 +831,7 @@ func TestSignalsInProcess(t *testing.T) {
 		t.Fatalf("got exit %d and immediate exits %v, want %d and [%d]; stderr %s", code, exited, exitInterrupted, exitAbandoned, errb.String())
 	}
 	msg := errb.String()
-	for _, want := range []string{"finishing the current window and saving", "second interrupt: exiting at once", "stopped by interrupt at step 7"} {
+	for _, want := range []string{"finishing the current window and saving", "SIGINT: finishing", "second SIGINT: exiting at once", "stopped by SIGINT at step 7"} {
 		if !strings.Contains(msg, want) {
 			t.Errorf("stderr lacks %q:\n%s", want, msg)
 		}
@@ -850,4 +850,34 @@ func (s *syncWriter) Write(p []byte) (int, error) {
 	s.mu.Lock()
 	defer s.mu.Unlock()
 	return s.w.Write(p)
+}
+
+// TestResumeFromOtherDirectory: a run file naming its corpus by a relative
+// path resumes from another working directory (the recorded run file holds
+// the absolute path).
+func TestResumeFromOtherDirectory(t *testing.T) {
+	skipInShort(t)
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	b, err := os.ReadFile(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	rel := strings.Replace(string(b), fmt.Sprintf("%q", filepath.Join(dir, "corpus.txt")), `"corpus.txt"`, 1)
+	if err := os.WriteFile(cfg, []byte(rel), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	sub := filepath.Join(dir, "sub")
+	if err := os.Mkdir(sub, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	t.Chdir(dir)
+	if code, _, stderr := weftIn(t, nil, "train", "run.toml", "--run", "run", "--steps", "10"); code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	t.Chdir(sub)
+	code, _, stderr := weftIn(t, nil, "train", "../run.toml", "--run", "../run", "--steps", "20")
+	if code != exitOK || !strings.Contains(stderr, "resuming from") {
+		t.Fatalf("resume from another directory: exit %d: %s", code, stderr)
+	}
 }
