@@ -141,8 +141,12 @@ and lives in a run directory (--run DIR).`,
 	root.AddCommand(
 		newConfigCmd(d, nil),
 		newPrepareCmd(d, nil),
+		newBaselinesCmd(d, nil),
+		newEvalCmd(d, nil),
+		newDemoCmd(d, nil),
 		newTrainCmd(d, nil),
 		newInspectCmd(d, nil),
+		newSampleCmd(d, nil),
 	)
 	return root
 }

@@ -1,0 +1,181 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+
+	"github.com/spf13/cobra"
+
+	"weft/checkpoint"
+	"weft/configs"
+	"weft/eval"
+)
+
+type evalOptions struct {
+	cmdContext
+	Run        string
+	Checkpoint string
+	Split      string
+	Set        []string
+	JSON       bool
+	Streams    int
+	Warmup     int
+	NoRNN      bool
+}
+
+func newEvalCmd(d *deps, runF func(*evalOptions) error) *cobra.Command {
+	opts := &evalOptions{}
+	cmd := &cobra.Command{
+		Use:   "eval --run DIR",
+		Short: "Compare the trained model with the baselines on the held-out test split",
+		Long: `Score the run's best checkpoint (or --checkpoint) and every baseline of its
+[evaluation] section on the test split (or --split validation) and print one
+table, best first: bits per character with its block-bootstrap interval, the
+difference from the best baseline with its paired interval, bits per token and
+perplexity. The best baseline and the interpolation weight of the recurrent
+model mixed with it are chosen on the validation split, never on the split
+reported. Baselines missing from the run directory are fitted first and cached.
+
+The recurrent model is scored with its state carried through the whole split
+as one continuous stream, from a zero state at its start (exact). --streams N
+scores N pieces side by side instead, each warmed up on the --warmup tokens
+before it: faster, and an approximation at the N-1 piece starts.`,
+		Args: exactArgs(0, "no arguments (name the run with --run)"),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			opts.cmdContext = cmdContext{cmd.Context(), d}
+			if opts.Split != "test" && opts.Split != "validation" {
+				return usagef("--split must be test or validation, got %q", opts.Split)
+			}
+			if runF != nil {
+				return runF(opts)
+			}
+			return runEval(opts)
+		},
+	}
+	cmd.Flags().StringVar(&opts.Run, "run", "", "run directory (required)")
+	cmd.Flags().StringVar(&opts.Checkpoint, "checkpoint", "best", `checkpoint to score: "best", "latest", a step number or a file name`)
+	cmd.Flags().StringVar(&opts.Split, "split", "test", "held-out split to report: test or validation")
+	cmd.Flags().BoolVar(&opts.JSON, "json", false, "print the rows as JSON")
+	cmd.Flags().IntVar(&opts.Streams, "streams", 1, "score the recurrent model as this many pieces side by side (1 is exact)")
+	cmd.Flags().IntVar(&opts.Warmup, "warmup", 256, "tokens each piece after the first is warmed up on, with --streams")
+	cmd.Flags().BoolVar(&opts.NoRNN, "baselines-only", false, "compare the baselines alone, without a trained model")
+	addSetFlag(cmd, &opts.Set)
+	return cmd
+}
+
+// evalReport is what `weft eval --json` prints and what the report folder
+// keeps.
+type evalReport struct {
+	Split        string           `json:"split"`
+	BestBaseline string           `json:"best_baseline,omitempty"`
+	Lambda       *float64         `json:"interpolation_weight,omitempty"`
+	Rows         []eval.Result    `json:"rows"`
+	LongRange    []modelBreakdown `json:"long_range,omitempty"`
+	Bands        []modelBreakdown `json:"frequency_bands,omitempty"`
+}
+
+func runEval(opts *evalOptions) error {
+	if opts.Run == "" {
+		return usagef("--run DIR is required")
+	}
+	r, dir, err := resolveTarget(opts.Run, "", opts.Set)
+	if err != nil {
+		return err
+	}
+	rd, err := openRunDir(dir)
+	if err != nil {
+		return err
+	}
+	defer rd.Close()
+	cmp, err := evaluateRun(opts.cmdContext, r, rd, evalSettings{
+		Checkpoint: opts.Checkpoint, Split: opts.Split, Streams: opts.Streams, Warmup: opts.Warmup,
+		NoRNN: opts.NoRNN, Quiet: opts.JSON,
+	})
+	if err != nil {
+		return err
+	}
+	if opts.JSON {
+		enc := json.NewEncoder(opts.Out)
+		enc.SetIndent("", "  ")
+		return enc.Encode(cmp.report())
+	}
+	printComparison(opts.Out, cmp)
+	return nil
+}
+
+func (cmp *comparison) report() evalReport {
+	rep := evalReport{Split: cmp.Split, BestBaseline: cmp.BestBaseline, Rows: cmp.Rows, LongRange: cmp.LongRange, Bands: cmp.Bands}
+	if !math.IsNaN(cmp.Lambda) {
+		l := cmp.Lambda
+		rep.Lambda = &l
+	}
+	return rep
+}
+
+type evalSettings struct {
+	Checkpoint      string
+	Split           string
+	Streams, Warmup int
+	NoRNN           bool
+	Quiet           bool
+}
+
+// evaluateRun compares a run's model and its baselines and saves the
+// report (JSON and plots) in the run's report folder.
+func evaluateRun(cc cmdContext, r *configs.Run, rd *runDir, s evalSettings) (*comparison, error) {
+	ds, err := prepareData(cc, r, rd)
+	if err != nil {
+		return nil, err
+	}
+	prog := newStageProgress(cc.deps, s.Quiet)
+	bl, err := fitBaselines(cc.ctx, r.Evaluation.Config, ds, rd.file(baselinesDir), prog)
+	if err != nil {
+		return nil, err
+	}
+	cands := bl.cands
+	if !s.NoRNN {
+		m, err := checkpoint.OpenRunModel(rd.Path, s.Checkpoint)
+		if err != nil {
+			return nil, fmt.Errorf("%w (train first, or pass --baselines-only)", err)
+		}
+		if m.Vocab.Len() != ds.Vocab.Len() {
+			return nil, fmt.Errorf("checkpoint %s: vocabulary of %d entries, the run's corpus has %d", m.Path, m.Vocab.Len(), ds.Vocab.Len())
+		}
+		if err := m.Net.SetScoring(s.Streams, s.Warmup); err != nil {
+			return nil, usagef("%v", err)
+		}
+		cands = append([]*candidate{{name: rnnLabel(m), kind: "rnn", model: m.Net}}, cands...)
+	}
+	marks, err := demoMarks(r, ds, s.Split)
+	if err != nil {
+		return nil, err
+	}
+	cmp, err := compareModels(cc.ctx, r.Evaluation.Config, ds, s.Split, cands, marks, prog.Func())
+	if err != nil {
+		return nil, err
+	}
+	prog.finish()
+	if err := os.MkdirAll(rd.file(reportDir), 0o755); err != nil {
+		return nil, fmt.Errorf("report folder: %w", err)
+	}
+	if err := writeJSONAtomic(filepath.Join(rd.file(reportDir), "eval-"+s.Split+".json"), cmp.report()); err != nil {
+		return nil, err
+	}
+	if r.Output.Plots {
+		if err := plotComparison(filepath.Join(rd.file(reportDir), "comparison-"+s.Split+".png"), cmp); err != nil {
+			return nil, err
+		}
+		if err := plotLearningCurve(filepath.Join(rd.file(reportDir), "learning-curve.png"), rd.file(metricsFile), cmp); err != nil {
+			return nil, err
+		}
+	}
+	return cmp, nil
+}
+
+func rnnLabel(m *checkpoint.Model) string {
+	c := m.Config
+	return fmt.Sprintf("%s %dx%d (step %d)", c.Cell, c.Layers, c.HiddenSize, m.Step)
+}
