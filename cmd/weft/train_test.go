@@ -337,11 +337,13 @@ func TestKillSafety(t *testing.T) {
 		"--set", "evaluation.every_steps=15", "--set", "model.dropout=0.1"}
 	rng := rand.New(rand.NewPCG(2026, 12))
 	start := time.Now()
-	tried, recovered, withCheckpoint := 0, 0, 0
+	tried, recovered, withCheckpoint, midSave := 0, 0, 0, 0
 	var maxStep int64
 	for tried < kills && time.Since(start) < budget {
 		cmd := exec.Command(os.Args[0], append(common, "--run", killed, "--steps", "100000", "--quiet")...)
 		cmd.Env = append(os.Environ(), envAsWeft+"=1", envStepDelay+"=1ms")
+		var errb syncBuffer
+		cmd.Stderr = &errb
 		if err := cmd.Start(); err != nil {
 			t.Fatal(err)
 		}
@@ -349,6 +351,20 @@ func TestKillSafety(t *testing.T) {
 		cmd.Process.Signal(syscall.SIGKILL)
 		cmd.Wait()
 		tried++
+		if ws, ok := cmd.ProcessState.Sys().(syscall.WaitStatus); !ok || !ws.Signaled() {
+			t.Fatalf("kill %d: the child ended by itself before the kill (%v): %s", tried, cmd.ProcessState, errb.String())
+		}
+		if msg := errb.String(); msg != "" {
+			t.Errorf("kill %d: the child printed %q (a resume should be silent with --quiet)", tried, msg)
+		}
+		if ents, err := os.ReadDir(ckdir); err == nil {
+			for _, e := range ents {
+				if strings.HasPrefix(e.Name(), ".tmp-") {
+					midSave++ // killed while writing a checkpoint
+					break
+				}
+			}
+		}
 		path, f, skipped, err := checkpoint.LoadNewestValid(ckdir)
 		switch {
 		case errors.Is(err, checkpoint.ErrNoCheckpoint), errors.Is(err, os.ErrNotExist):
@@ -385,8 +401,8 @@ func TestKillSafety(t *testing.T) {
 	}
 	name := checkpoint.StepName(final)
 	sameTrainingState(t, filepath.Join(ckdir, name), filepath.Join(straight, checkpointsDir, name))
-	t.Logf("kill safety: %d runs killed, %d recovered (%d with a checkpoint), newest step reached %d, final step %d identical to the uninterrupted run, %v",
-		tried, recovered, withCheckpoint, maxStep, final, time.Since(start).Round(time.Millisecond))
+	t.Logf("kill safety: %d runs killed (%d in the middle of a save), %d recovered (%d with a checkpoint), newest step reached %d, final step %d identical to the uninterrupted run, %v",
+		tried, midSave, recovered, withCheckpoint, maxStep, final, time.Since(start).Round(time.Millisecond))
 }
 
 // TestSaveErrorPolicy injects a full disk into one periodic save.
