@@ -425,16 +425,22 @@ func (s *session) train() (*trainResult, error) {
 	s.rep.logf("%s %s, %s parameters, %s training tokens, %d streams × %d steps, %s",
 		what, s.net.Name(), thousands(int64(s.net.NumParams())), thousands(int64(len(s.ds.Train.Tokens))),
 		r.Training.BatchSize, r.Training.UnrollSteps, s.budgetText())
-	if reason := s.doneReason(); reason != "" && reason != "time budget reached" && s.res.ResumedFrom != "" {
-		s.rep.logf("nothing to do: %s at step %d; raise a budget to train on", reason, tr.Steps())
-		return s.result(reason), nil
-	}
-	s.prog.Finished, s.prog.FinishReason = false, ""
-	if s.prog.ValidationDue {
+	due := s.prog.ValidationDue
+	if due { // a signal interrupted it: run it before anything else
 		if err := s.validate(); err != nil {
 			return nil, err
 		}
 	}
+	if reason := s.doneReason(); reason != "" && reason != "time budget reached" && s.res.ResumedFrom != "" {
+		if due {
+			if _, err := s.saveStep(true); err != nil {
+				return nil, err
+			}
+		}
+		s.rep.logf("nothing to do: %s at step %d; raise a budget to train on", reason, tr.Steps())
+		return s.result(reason), nil
+	}
+	s.prog.Finished, s.prog.FinishReason = false, ""
 	reason, err := s.loop()
 	if err != nil {
 		return nil, err

@@ -897,3 +897,46 @@ func TestResumeFromOtherDirectory(t *testing.T) {
 		t.Fatalf("resume from another directory: exit %d: %s", code, stderr)
 	}
 }
+
+// TestResumeAfterInterruptedValidation stops the run by a signal just
+// before the validation of step 25, which the signal abandons: the saved
+// state marks it due, the resumed run runs it first, and the result is the
+// uninterrupted run's.
+func TestResumeAfterInterruptedValidation(t *testing.T) {
+	skipInShort(t)
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	args := []string{"train", cfg, "--steps", "60", "--set", "training.schedule=plateau"}
+	straight, split := filepath.Join(dir, "straight"), filepath.Join(dir, "split")
+	if code, _, stderr := weftIn(t, nil, append(args, "--run", straight)...); code != exitOK {
+		t.Fatalf("straight: exit %d: %s", code, stderr)
+	}
+	sig := make(chan os.Signal, 1)
+	old := trainStepHook
+	trainStepHook = func(step int64, _ *rnn.Model[float32]) {
+		if step == 25 { // evaluation.every_steps = 25: the validation comes next
+			sig <- syscall.SIGTERM
+			time.Sleep(50 * time.Millisecond) // let the watcher cancel
+		}
+	}
+	var out, errb bytes.Buffer
+	d := &deps{In: strings.NewReader(""), Out: &out, Err: &syncWriter{w: &errb}, Now: time.Now, Signals: sig}
+	code := run(append(args, "--run", split), d)
+	trainStepHook = old
+	if code != exitInterrupted {
+		t.Fatalf("got exit %d, want %d: %s", code, exitInterrupted, errb.String())
+	}
+	f, err := checkpoint.Load(checkpoint.StepPath(filepath.Join(split, checkpointsDir), 25))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p, err := checkpoint.ReadProgress(f); err != nil || !p.ValidationDue {
+		t.Fatalf("step 25 checkpoint: validation due %v (%v), want true", p.ValidationDue, err)
+	}
+	code, _, stderr := weftIn(t, nil, append(args, "--run", split)...)
+	if code != exitOK || !strings.Contains(stderr, "validation at step 25") {
+		t.Fatalf("resume: exit %d, stderr %s; want the due validation of step 25", code, stderr)
+	}
+	last := checkpoint.StepName(60)
+	sameTrainingState(t, filepath.Join(split, checkpointsDir, last), filepath.Join(straight, checkpointsDir, last))
+}
