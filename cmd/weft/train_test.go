@@ -940,3 +940,52 @@ func TestResumeAfterInterruptedValidation(t *testing.T) {
 	last := checkpoint.StepName(60)
 	sameTrainingState(t, filepath.Join(split, checkpointsDir, last), filepath.Join(straight, checkpointsDir, last))
 }
+
+// TestRetention: checkpoint.keep_last periodic checkpoints stay, plus the
+// best copy.
+func TestRetention(t *testing.T) {
+	skipInShort(t)
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	runDir := filepath.Join(dir, "run")
+	if code, _, stderr := weftIn(t, nil, "train", cfg, "--run", runDir, "--steps", "100",
+		"--set", "checkpoint.every_steps=10", "--set", "checkpoint.keep_last=3"); code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	ents, err := os.ReadDir(filepath.Join(runDir, checkpointsDir))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var names []string
+	for _, e := range ents {
+		names = append(names, e.Name())
+	}
+	want := []string{checkpoint.BestName, checkpoint.StepName(80), checkpoint.StepName(90), checkpoint.StepName(100)}
+	if !reflect.DeepEqual(names, want) {
+		t.Errorf("checkpoints: got %v, want %v", names, want)
+	}
+}
+
+// TestTrainLockedByChild: while a child process trains in a directory, a
+// second weft train there fails at once naming the child's host and pid.
+func TestTrainLockedByChild(t *testing.T) {
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	runDir := filepath.Join(dir, "run")
+	child, stderr := weftChild(t, 5*time.Millisecond, "train", cfg, "--run", runDir, "--steps", "100000")
+	defer func() {
+		child.Process.Signal(syscall.SIGKILL)
+		child.Wait()
+	}()
+	waitFor(t, stderr, "training tokens")
+	host, _ := os.Hostname()
+	start := time.Now()
+	code, _, msg := weftIn(t, nil, "train", cfg, "--run", runDir, "--steps", "5")
+	want := fmt.Sprintf("is in use by pid %d on host %s", child.Process.Pid, host)
+	if code != exitFailure || !strings.Contains(msg, want) {
+		t.Errorf("got exit %d stderr %q, want exit 1 naming %q", code, msg, want)
+	}
+	if el := time.Since(start); el > 2*time.Second {
+		t.Errorf("the refusal took %v, want it at once", el)
+	}
+}
