@@ -201,7 +201,7 @@ func printInspection(w io.Writer, in inspection) {
 	if in.Step != nil {
 		fmt.Fprintf(w, "  step %s", thousands(*in.Step))
 		if p := in.Progress; p != nil {
-			fmt.Fprintf(w, ", epoch %d", p.Epoch)
+			fmt.Fprintf(w, ", %d epochs completed", p.Epoch)
 			if p.HaveBest {
 				fmt.Fprintf(w, "; best validation %.4f bits per character at step %s", p.BestBitsPerChar, thousands(p.BestStep))
 			}

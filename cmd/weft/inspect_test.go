@@ -32,7 +32,7 @@ func TestInspect(t *testing.T) {
 		if code != exitOK {
 			t.Fatalf("exit %d: %s", code, stderr)
 		}
-		for _, want := range []string{"checkpoint " + good, "format version 1, checksum verified", "step 30, epoch 0",
+		for _, want := range []string{"checkpoint " + good, "format version 1, checksum verified", "step 30, 0 epochs completed",
 			"model: lstm, 1 layer(s) of 16 units, embedding 8", "char tokenizer", "optimizer: adam"} {
 			if !strings.Contains(out, want) {
 				t.Errorf("output lacks %q:\n%s", want, out)

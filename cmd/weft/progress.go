@@ -113,8 +113,8 @@ func (r *reporter) update(st progressStatus) {
 		)
 		r.barMax = max
 	}
-	r.bar.Describe(st.text())
 	r.bar.Set64(st.Step)
+	r.bar.Describe(st.text())
 }
 
 func (r *reporter) print(format string, args []any) {

@@ -420,7 +420,7 @@ func (s *session) train() (*trainResult, error) {
 	r, tr := s.r, s.tr
 	what := "training"
 	if s.res.ResumedFrom != "" {
-		what = fmt.Sprintf("resuming from %s: step %d, epoch %d;", s.res.ResumedFrom, tr.Steps(), s.prog.Epoch)
+		what = fmt.Sprintf("resuming from %s: step %d, %d epochs completed;", s.res.ResumedFrom, tr.Steps(), s.prog.Epoch)
 	}
 	s.rep.logf("%s %s, %s parameters, %s training tokens, %d streams × %d steps, %s",
 		what, s.net.Name(), thousands(int64(s.net.NumParams())), thousands(int64(len(s.ds.Train.Tokens))),
@@ -470,7 +470,7 @@ func (s *session) train() (*trainResult, error) {
 	s.rep.finish()
 	res := s.result(reason)
 	if !s.o.Quiet {
-		fmt.Fprintf(s.cc.Out, "%s at step %s (epoch %d).", reason, thousands(res.Steps), res.Epochs)
+		fmt.Fprintf(s.cc.Out, "%s at step %s (%d epochs completed).", reason, thousands(res.Steps), res.Epochs)
 		if s.prog.HaveBest {
 			fmt.Fprintf(s.cc.Out, " Best validation: %.4f bits per character at step %s (%s).", s.prog.BestBitsPerChar, thousands(s.prog.BestStep), res.BestPath)
 		}
