@@ -436,11 +436,9 @@ func TestFrozenModel(t *testing.T) {
 
 var modelSink *File
 
-// BenchmarkSaveTraining measures a training checkpoint of the reference
-// model (LSTM, V = 96, E = 64, H = 256, batch 32, with Adam's two moments)
-// as the trainer writes it: snapshot the state into a File, then Save it
-// with fsync of the file and the directory.
-func BenchmarkSaveTraining(b *testing.B) {
+// referenceTrainer is the reference model (LSTM, V = 96, E = 64, H = 256,
+// batch 32) with an Adam trainer, and its vocabulary.
+func referenceTrainer(b *testing.B) (*rnn.Trainer[float32], *data.Vocab, string) {
 	var text strings.Builder
 	for c := ' '; c <= '~'; c++ { // 95 printable ASCII characters + <unk> = 96
 		text.WriteRune(c)
@@ -450,9 +448,53 @@ func BenchmarkSaveTraining(b *testing.B) {
 		b.Fatal(err)
 	}
 	cfg := rnn.DefaultConfig() // lstm, 1 layer, hidden 256, embedding 64
-	tc := rnn.DefaultTrainConfig()
-	tr := newTrainer(b, cfg, tc, v.Len(), 1)
-	name := fmt.Sprintf("lstm/vocab=%d/embed=%d/hidden=%d/adam", v.Len(), cfg.EmbeddingSize, cfg.HiddenSize)
+	tr := newTrainer(b, cfg, rnn.DefaultTrainConfig(), v.Len(), 1)
+	return tr, v, fmt.Sprintf("lstm/vocab=%d/embed=%d/hidden=%d/adam", v.Len(), cfg.EmbeddingSize, cfg.HiddenSize)
+}
+
+// BenchmarkResumeTraining measures what a resume costs for the reference
+// model: load and verify the checkpoint, build the model and trainer, and
+// restore every tensor and the scalar state.
+func BenchmarkResumeTraining(b *testing.B) {
+	tr, v, name := referenceTrainer(b)
+	b.Run(name, func(b *testing.B) {
+		path := filepath.Join(b.TempDir(), StepName(1))
+		f, err := NewTrainingFile(tr, v, []byte("run"), Progress{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		if err := Save(path, f); err != nil {
+			b.Fatal(err)
+		}
+		b.ReportAllocs()
+		b.ResetTimer()
+		for range b.N {
+			f, err := Load(path)
+			if err != nil {
+				b.Fatal(err)
+			}
+			m, err := ModelFromFile(f, path)
+			if err != nil {
+				b.Fatal(err)
+			}
+			dst, err := rnn.NewTrainer(m.Net, rnn.DefaultTrainConfig(), nil)
+			if err != nil {
+				b.Fatal(err)
+			}
+			if err := RestoreTrainer(f, dst); err != nil {
+				b.Fatal(err)
+			}
+			modelSink = f
+		}
+	})
+}
+
+// BenchmarkSaveTraining measures a training checkpoint of the reference
+// model (LSTM, V = 96, E = 64, H = 256, batch 32, with Adam's two moments)
+// as the trainer writes it: snapshot the state into a File, then Save it
+// with fsync of the file and the directory.
+func BenchmarkSaveTraining(b *testing.B) {
+	tr, v, name := referenceTrainer(b)
 	b.Run(name, func(b *testing.B) {
 		path := filepath.Join(b.TempDir(), StepName(1))
 		f, err := NewTrainingFile(tr, v, []byte("run"), Progress{})
