@@ -33,9 +33,15 @@ type worker struct {
 	wake     chan struct{}
 }
 
-// spinLimit is the number of polls (about 50-100µs) a worker makes for its
-// next part before parking.
-const spinLimit = 1 << 16
+// spinLimit is the number of polls (roughly 50-100µs) a worker makes for its
+// next part before parking; waitSpinLimit is the number of polls the caller
+// makes for the workers to finish before parking (a few µs): shorter, so that on a
+// machine with more runnable threads than cores the caller's core goes to
+// the worker it waits for.
+const (
+	spinLimit     = 1 << 16
+	waitSpinLimit = 1 << 12
+)
 
 // runner is a kernel call split into numbered parts.
 type runner interface{ runPart(part int) }
@@ -149,7 +155,7 @@ func (p *Pool) run(r runner, parts int) {
 		if spins&255 == 0 {
 			runtime.Gosched()
 		}
-		if spins < spinLimit {
+		if spins < waitSpinLimit {
 			continue
 		}
 		p.waiting.Store(true)
