@@ -33,11 +33,11 @@ type worker struct {
 	wake     chan struct{}
 }
 
-// spinLimit is the number of polls (roughly 50-100µs) a worker makes for its
-// next part before parking; waitSpinLimit is the number of polls the caller
-// makes for the workers to finish before parking (a few µs): shorter, so that on a
-// machine with more runnable threads than cores the caller's core goes to
-// the worker it waits for.
+// spinLimit is the number of polls (roughly 50-100µs) a worker makes for
+// its next part before parking. waitSpinLimit is the number of polls (a few
+// µs) the caller makes for the workers to finish before parking: shorter,
+// so that on a machine with more runnable threads than cores the caller's
+// core goes to the worker it waits for.
 const (
 	spinLimit     = 1 << 16
 	waitSpinLimit = 1 << 12
