@@ -147,6 +147,7 @@ and lives in a run directory (--run DIR).`,
 		newTrainCmd(d, nil),
 		newInspectCmd(d, nil),
 		newSampleCmd(d, nil),
+		newScoreCmd(d, nil),
 	)
 	return root
 }

@@ -1,0 +1,590 @@
+package main
+
+import (
+	"container/heap"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"path/filepath"
+	"regexp"
+	"slices"
+	"strconv"
+	"strings"
+	"unicode/utf8"
+
+	"github.com/spf13/cobra"
+
+	"weft/configs"
+	"weft/data"
+	"weft/eval"
+)
+
+// scoreTextLimit is the most characters of a unit's text that score
+// prints; longer texts are cut and end with "…".
+const scoreTextLimit = 256
+
+type scoreOptions struct {
+	cmdContext
+	Files      []string
+	Run        string
+	Checkpoint string
+	Baseline   string
+	Unit       string
+	Window     int
+	MaxChars   int
+	JSON       bool
+	Sort       bool
+	Top        int
+	Threads    int
+}
+
+func newScoreCmd(d *deps, runF func(*scoreOptions) error) *cobra.Command {
+	opts := &scoreOptions{}
+	cmd := &cobra.Command{
+		Use:   "score (--run DIR | --checkpoint FILE) [--baseline NAME] FILE... | -",
+		Short: "Score text by how surprising a model finds it, line by line",
+		Long: `Score text files (- reads standard input) with a trained model (the run's best
+checkpoint, or --checkpoint as for 'weft sample') or with a fitted baseline of
+the run (--baseline NAME, a label of the 'weft baselines' table such as
+"5-gram kneser_ney", "markov-2" or "hmm-16").
+
+Each unit is scored: a line with its line end (--unit line, the default; the
+line end counts as one character and is predicted like any other token), a
+whole file (--unit document, followed by the document boundary when the
+vocabulary has one), or consecutive windows of --window N tokens across line
+ends (--unit window). The line column is where the unit starts. Characters
+or words outside the vocabulary are scored as the unknown symbol and
+counted. For each unit it prints the total surprise in bits
+(-log2 of the probability the model gives the text), bits per character, the
+most surprising token with its surprise and its character offset in the unit,
+the number of tokens that are the unknown symbol, and the text (cut at 256
+characters). Output is tab-separated with a header line, or one JSON object
+per unit with --json.
+
+Context: every unit is scored on its own from the start of a document (a
+fresh model state), so a line's score does not depend on the lines before it
+or on the order of the files. A unit longer than --max-chars characters is
+scored in consecutive pieces of that size, each from a fresh state, and its
+pieces column says into how many; memory stays bounded whatever the length
+of the input.
+
+--sort prints the units most surprising first (by bits per character), which
+holds every row in memory; --top N keeps only the N most surprising (in
+bounded memory) and implies --sort.`,
+		Args: func(cmd *cobra.Command, args []string) error {
+			if len(args) == 0 {
+				return usagef("%s takes one or more files, or - for standard input", cmd.CommandPath())
+			}
+			return nil
+		},
+		RunE: func(cmd *cobra.Command, args []string) error {
+			opts.cmdContext = cmdContext{cmd.Context(), d}
+			opts.Files = args
+			if runF != nil {
+				return runF(opts)
+			}
+			return runScore(opts)
+		},
+	}
+	f := cmd.Flags()
+	f.StringVar(&opts.Run, "run", "", "run directory whose model or baseline to use")
+	f.StringVar(&opts.Checkpoint, "checkpoint", "", `checkpoint: with --run "best" (default), "latest", a step or a file name; else a file`)
+	f.StringVar(&opts.Baseline, "baseline", "", "score with this fitted baseline of the run instead of the model")
+	f.StringVar(&opts.Unit, "unit", "line", "what to score: line, document or window")
+	f.IntVar(&opts.Window, "window", 0, "tokens per window, with --unit window")
+	f.IntVar(&opts.MaxChars, "max-chars", 64<<10, "longest stretch of a unit scored in one piece, in characters")
+	f.BoolVar(&opts.JSON, "json", false, "print one JSON object per unit")
+	f.BoolVar(&opts.Sort, "sort", false, "print the most surprising units first (bits per character)")
+	f.IntVar(&opts.Top, "top", 0, "print only the N most surprising units (implies --sort)")
+	addThreadsFlag(cmd, &opts.Threads)
+	return cmd
+}
+
+// scorer is a language model with the vocabulary that encodes its text.
+type scorer struct {
+	lm    eval.LanguageModel
+	kind  string
+	vocab *data.Vocab
+	close func() // releases the model's thread pool; nil for none
+}
+
+// loadScorer opens the model or the baseline the options name.
+func loadScorer(opts *scoreOptions) (*scorer, error) {
+	if opts.Baseline == "" {
+		m, err := loadRunModel(opts.Run, opts.Checkpoint)
+		if err != nil {
+			return nil, err
+		}
+		closePool, err := usePool(m, opts.Threads)
+		if err != nil {
+			return nil, err
+		}
+		return &scorer{lm: m.Net, kind: "rnn", vocab: m.Vocab, close: closePool}, nil
+	}
+	if opts.Run == "" {
+		return nil, usagef("--baseline needs --run DIR, whose baselines folder holds it")
+	}
+	if opts.Checkpoint != "" {
+		return nil, usagef("give --baseline or --checkpoint, not both")
+	}
+	v, err := data.ReadVocabFile(filepath.Join(opts.Run, data.VocabFile))
+	if err != nil {
+		return nil, err
+	}
+	lm, kind, err := openBaseline(opts.Run, opts.Baseline)
+	if err != nil {
+		return nil, err
+	}
+	if lm.VocabSize() != v.Len() {
+		return nil, fmt.Errorf("baseline %q predicts %d tokens but the run's vocabulary has %d entries; fit the baselines again", opts.Baseline, lm.VocabSize(), v.Len())
+	}
+	return &scorer{lm: lm, kind: kind, vocab: v}, nil
+}
+
+var (
+	ngramLabel  = regexp.MustCompile(`^([0-9]+)-gram[ _-]([a-z_]+)(\(([0-9.eE+-]+)\))?$`)
+	markovLabel = regexp.MustCompile(`^markov-([0-9]+)(\(add ([0-9.eE+-]+)\))?$`)
+	hmmLabel    = regexp.MustCompile(`^hmm-([0-9]+)$`)
+)
+
+// openBaseline rebuilds a fitted baseline from the run's baselines folder,
+// from the files eval.SaveCounts and eval.SaveHMM wrote.
+func openBaseline(run, name string) (eval.LanguageModel, string, error) {
+	dir := filepath.Join(run, baselinesDir)
+	addK := func(label string) (float64, error) {
+		if label != "" {
+			k, err := strconv.ParseFloat(label, 64)
+			if err != nil || !(k > 0) {
+				return 0, fmt.Errorf("baseline %q: pseudo-count %q is not a positive number", name, label)
+			}
+			return k, nil
+		}
+		r, err := configs.Load(filepath.Join(run, runConfigFile), nil)
+		if err != nil {
+			return 0, err
+		}
+		return r.Evaluation.AddK, nil
+	}
+	counts := func() (*eval.Counts, error) {
+		c, err := eval.LoadCounts(filepath.Join(dir, baselineCounts))
+		if os.IsNotExist(err) || (err != nil && strings.Contains(err.Error(), "no such file")) {
+			return nil, fmt.Errorf("run directory %s has no fitted n-gram counts; run 'weft baselines --run %s' first", run, run)
+		}
+		return c, err
+	}
+	switch {
+	case hmmLabel.MatchString(name):
+		m := hmmLabel.FindStringSubmatch(name)
+		h, err := eval.LoadHMM(filepath.Join(dir, "hmm-"+m[1]+".bin"))
+		if err != nil {
+			if _, serr := os.Stat(filepath.Join(dir, "hmm-"+m[1]+".bin")); serr != nil {
+				return nil, "", fmt.Errorf("run directory %s has no fitted %s-state HMM; run 'weft baselines --run %s' with it configured", run, m[1], run)
+			}
+			return nil, "", err
+		}
+		return h, h.Kind(), nil
+	case markovLabel.MatchString(name):
+		m := markovLabel.FindStringSubmatch(name)
+		k, _ := strconv.Atoi(m[1])
+		delta, err := addK(m[3])
+		if err != nil {
+			return nil, "", err
+		}
+		c, err := counts()
+		if err != nil {
+			return nil, "", err
+		}
+		mc, err := eval.NewMarkovChain(c, k, delta)
+		if err != nil {
+			return nil, "", fmt.Errorf("baseline %q: %w", name, err)
+		}
+		return mc, mc.Kind(), nil
+	case ngramLabel.MatchString(name):
+		m := ngramLabel.FindStringSubmatch(name)
+		order, _ := strconv.Atoi(m[1])
+		method, err := eval.ParseMethod(m[2])
+		if err != nil {
+			return nil, "", fmt.Errorf("baseline %q: %w", name, err)
+		}
+		sm := eval.Smoothing{Method: method}
+		if method == eval.AddK {
+			if sm.K, err = addK(m[4]); err != nil {
+				return nil, "", err
+			}
+		}
+		c, err := counts()
+		if err != nil {
+			return nil, "", err
+		}
+		ng, err := eval.NewNGram(c, order, sm)
+		if err != nil {
+			return nil, "", fmt.Errorf("baseline %q: %w", name, err)
+		}
+		return ng, ng.Kind(), nil
+	}
+	return nil, "", usagef(`--baseline %q: want a label such as "5-gram kneser_ney", "3-gram add_k(0.5)", "markov-2" or "hmm-16"`, name)
+}
+
+// scoreRow is one scored unit.
+type scoreRow struct {
+	Source         string  `json:"source"`
+	Line           int     `json:"line"`
+	Characters     int     `json:"characters"`
+	Tokens         int     `json:"tokens"`
+	Bits           float64 `json:"bits"`
+	BitsPerChar    float64 `json:"bits_per_char"`
+	SurpriseBits   float64 `json:"surprise_bits"`
+	SurpriseOffset int     `json:"surprise_offset"`
+	SurpriseToken  string  `json:"surprise_token"`
+	UnknownTokens  int     `json:"unknown_tokens"`
+	Pieces         int     `json:"pieces"`
+	Text           string  `json:"text"` // empty for --unit document
+
+	nats float64
+	seq  int // order of scoring, for stable sorting
+}
+
+// unitScorer accumulates the tokens of the current unit and scores them
+// piece by piece.
+type unitScorer struct {
+	cc       cmdContext
+	sc       *scorer
+	maxChars int
+	keepText bool
+	skipText int // token id left out of the text: the line end of a line unit
+
+	tokens []int
+	chars  []int
+	logp   []float64
+	pieceC int // characters in tokens
+
+	row   scoreRow
+	worst float64 // surprise of the most surprising token so far, in nats
+	text  []byte
+	runes int
+	prev  int
+}
+
+func (u *unitScorer) start(source string, line int) {
+	u.tokens, u.chars, u.pieceC = u.tokens[:0], u.chars[:0], 0
+	u.row = scoreRow{Source: source, Line: line}
+	u.worst = math.Inf(-1)
+	u.text, u.runes, u.prev = u.text[:0], 0, -1
+}
+
+// add appends one token of the unit, scoring the piece first when it is
+// full.
+func (u *unitScorer) add(id, chars int) error {
+	if u.maxChars > 0 && u.pieceC+chars > u.maxChars && len(u.tokens) > 0 {
+		if err := u.scorePiece(); err != nil {
+			return err
+		}
+	}
+	u.tokens = append(u.tokens, id)
+	u.chars = append(u.chars, chars)
+	u.pieceC += chars
+	return nil
+}
+
+// scorePiece scores the tokens held, each piece from the start of a
+// document, through the model's LogProbs and eval.NewResult: the same code
+// weft eval scores with.
+func (u *unitScorer) scorePiece() error {
+	n := len(u.tokens)
+	if n == 0 {
+		return nil
+	}
+	u.logp = slices.Grow(u.logp[:0], n)[:n]
+	if err := u.sc.lm.LogProbs(u.cc.ctx, u.logp, u.tokens); err != nil {
+		return err
+	}
+	res := eval.NewResult(u.sc.lm.Name(), u.sc.kind, "", u.logp, u.pieceC)
+	res.SetUnknown(u.tokens, u.sc.vocab.Unknown(), false)
+	v := u.sc.vocab
+	offset := u.row.Characters
+	for i, lp := range u.logp {
+		if -lp > u.worst {
+			u.worst = -lp
+			u.row.SurpriseBits = -lp / math.Ln2
+			u.row.SurpriseOffset = offset
+			u.row.SurpriseToken = v.Decode(u.tokens[i : i+1])
+			if id := u.tokens[i]; id == v.Boundary() || id == v.Unknown() {
+				u.row.SurpriseToken = v.Piece(id)
+			}
+		}
+		offset += u.chars[i]
+		if id := u.tokens[i]; u.keepText && u.runes <= scoreTextLimit && id != u.skipText {
+			t := tokenText(v, u.prev, id)
+			u.text = append(u.text, t...)
+			u.runes += utf8.RuneCountInString(t)
+			u.prev = id
+		}
+	}
+	u.row.nats += res.CrossEntropyNats
+	u.row.Characters += u.pieceC
+	u.row.Tokens += res.Tokens
+	u.row.UnknownTokens += res.UnknownTokens
+	u.row.Pieces++
+	u.tokens, u.chars, u.pieceC = u.tokens[:0], u.chars[:0], 0
+	return nil
+}
+
+// finish scores what is held and returns the unit's row; ok is false for
+// a unit without tokens.
+func (u *unitScorer) finish() (scoreRow, bool, error) {
+	if err := u.scorePiece(); err != nil {
+		return scoreRow{}, false, err
+	}
+	r := u.row
+	if r.Tokens == 0 {
+		return r, false, nil
+	}
+	r.Bits = r.nats / math.Ln2
+	r.BitsPerChar = r.Bits / float64(r.Characters)
+	if u.keepText {
+		r.Text = string(u.text)
+		if u.runes > scoreTextLimit {
+			r.Text = string(append([]rune(r.Text)[:scoreTextLimit], '…'))
+		}
+	}
+	return r, true, nil
+}
+
+// rowSink receives the rows: printed at once, or kept for sorting.
+type rowSink struct {
+	opts  *scoreOptions
+	n     int
+	all   []scoreRow
+	top   rowHeap
+	wrote bool
+}
+
+func (s *rowSink) add(r scoreRow) error {
+	r.seq = s.n
+	s.n++
+	switch {
+	case s.opts.Top > 0:
+		if s.top.Len() < s.opts.Top {
+			heap.Push(&s.top, r)
+		} else if rowLess(s.top[0], r) {
+			s.top[0] = r
+			heap.Fix(&s.top, 0)
+		}
+		return nil
+	case s.opts.Sort:
+		s.all = append(s.all, r)
+		return nil
+	}
+	return s.print(r)
+}
+
+func (s *rowSink) header() error {
+	if s.opts.JSON || s.wrote {
+		return nil
+	}
+	s.wrote = true
+	_, err := io.WriteString(s.opts.Out, "source\tline\tcharacters\ttokens\tbits\tbits_per_char\tsurprise_bits\tsurprise_offset\tsurprise_token\tunknown_tokens\tpieces\ttext\n")
+	return err
+}
+
+func (s *rowSink) print(r scoreRow) error {
+	r.Bits, r.BitsPerChar, r.SurpriseBits = round6(r.Bits), round6(r.BitsPerChar), round6(r.SurpriseBits)
+	if s.opts.JSON {
+		return writeJSONLine(s.opts.Out, r)
+	}
+	if err := s.header(); err != nil {
+		return err
+	}
+	_, err := fmt.Fprintf(s.opts.Out, "%s\t%d\t%d\t%d\t%.4f\t%.4f\t%.4f\t%d\t%s\t%d\t%d\t%s\n",
+		tsvEscape(r.Source), r.Line, r.Characters, r.Tokens, r.Bits, r.BitsPerChar, r.SurpriseBits, r.SurpriseOffset,
+		tsvEscape(r.SurpriseToken), r.UnknownTokens, r.Pieces, tsvEscape(r.Text))
+	return err
+}
+
+// close prints the kept rows, most surprising first.
+func (s *rowSink) close() error {
+	rows := s.all
+	if s.opts.Top > 0 {
+		rows = []scoreRow(s.top)
+	}
+	slices.SortStableFunc(rows, func(a, b scoreRow) int {
+		switch {
+		case rowLess(b, a):
+			return -1
+		case rowLess(a, b):
+			return 1
+		}
+		return 0
+	})
+	for _, r := range rows {
+		if err := s.print(r); err != nil {
+			return err
+		}
+	}
+	return s.header()
+}
+
+// rowLess orders rows by surprise: a is less surprising than b by bits per
+// character, or equally surprising and scored later.
+func rowLess(a, b scoreRow) bool {
+	if a.BitsPerChar != b.BitsPerChar {
+		return a.BitsPerChar < b.BitsPerChar
+	}
+	return a.seq > b.seq
+}
+
+// rowHeap is a min-heap of rows by surprise: its root is the least
+// surprising row kept.
+type rowHeap []scoreRow
+
+func (h rowHeap) Len() int           { return len(h) }
+func (h rowHeap) Less(i, j int) bool { return rowLess(h[i], h[j]) }
+func (h rowHeap) Swap(i, j int)      { h[i], h[j] = h[j], h[i] }
+func (h *rowHeap) Push(x any)        { *h = append(*h, x.(scoreRow)) }
+func (h *rowHeap) Pop() any {
+	old := *h
+	x := old[len(old)-1]
+	*h = old[:len(old)-1]
+	return x
+}
+
+// tsvEscape keeps a field on one line and in one column.
+func tsvEscape(s string) string {
+	if !strings.ContainsAny(s, "\\\t\n\r") {
+		return s
+	}
+	return strings.NewReplacer(`\`, `\\`, "\t", `\t`, "\n", `\n`, "\r", `\r`).Replace(s)
+}
+
+func runScore(opts *scoreOptions) error {
+	switch opts.Unit {
+	case "line", "document":
+		if opts.Window != 0 {
+			return usagef("--window goes with --unit window")
+		}
+	case "window":
+		if opts.Window < 1 {
+			return usagef("--unit window needs --window N, a number of tokens of 1 or more")
+		}
+	default:
+		return usagef("--unit must be line, document or window, got %q", opts.Unit)
+	}
+	if opts.MaxChars < 1 {
+		return usagef("--max-chars must be at least 1, got %d", opts.MaxChars)
+	}
+	if opts.Top < 0 {
+		return usagef("--top must be 0 (all) or more, got %d", opts.Top)
+	}
+	stdin := 0
+	for _, f := range opts.Files {
+		if f == "-" {
+			stdin++
+		}
+	}
+	if stdin > 1 {
+		return usagef("- (standard input) can be given once")
+	}
+	sc, err := loadScorer(opts)
+	if err != nil {
+		return err
+	}
+	if sc.close != nil {
+		defer sc.close()
+	}
+	v := sc.vocab
+	newline := -1
+	if id, ok := v.ID("\n"); ok {
+		newline = id
+	}
+	if opts.Unit == "line" && newline < 0 {
+		return fmt.Errorf("the model's vocabulary has no line-end entry, so it cannot score lines; use --unit document or --unit window")
+	}
+	sink := &rowSink{opts: opts}
+	u := &unitScorer{cc: opts.cmdContext, sc: sc, maxChars: opts.MaxChars, keepText: opts.Unit != "document", skipText: -1}
+	if opts.Unit == "line" {
+		u.skipText = newline
+	}
+	for _, name := range opts.Files {
+		if err := scoreSource(opts, u, sink, name, newline); err != nil {
+			return err
+		}
+	}
+	if opts.Sort || opts.Top > 0 {
+		return sink.close()
+	}
+	return sink.header()
+}
+
+func scoreSource(opts *scoreOptions, u *unitScorer, sink *rowSink, name string, newline int) error {
+	var r io.Reader
+	source := name
+	if name == "-" {
+		r, source = opts.In, "-"
+	} else {
+		f, err := os.Open(name)
+		if err != nil {
+			return fmt.Errorf("score %s: %w", name, unwrapPath(err))
+		}
+		defer f.Close()
+		r = f
+	}
+	v := u.sc.vocab
+	line := 1
+	u.start(source, line)
+	inUnit := 0 // tokens in the current unit
+	var failed error
+	emitRow := func() error {
+		row, ok, err := u.finish()
+		if err != nil || !ok {
+			return err
+		}
+		return sink.add(row)
+	}
+	err := v.EncodeReader(opts.ctx, r, source, func(id, chars int) {
+		if failed != nil {
+			return
+		}
+		if inUnit == 0 {
+			u.start(source, line)
+		}
+		if failed = u.add(id, chars); failed != nil {
+			return
+		}
+		inUnit++
+		if id == newline {
+			line++
+		}
+		switch {
+		case opts.Unit == "line" && id == newline,
+			opts.Unit == "window" && inUnit == opts.Window:
+			failed = emitRow()
+			inUnit = 0
+		}
+	})
+	if err == nil {
+		err = failed
+	}
+	if err != nil {
+		return err
+	}
+	if opts.Unit == "document" && v.Boundary() >= 0 && v.Piece(v.Boundary()) == data.DocumentPiece {
+		if inUnit == 0 {
+			u.start(source, line)
+		}
+		if inUnit > 0 { // the document end, as the corpus pipeline adds it
+			if err := u.add(v.Boundary(), 0); err != nil {
+				return err
+			}
+			inUnit++
+		}
+	}
+	if inUnit > 0 {
+		if err := emitRow(); err != nil {
+			return err
+		}
+	} else if line == 1 {
+		fmt.Fprintf(opts.Err, "weft: %s: no text to score\n", source)
+	}
+	return nil
+}
