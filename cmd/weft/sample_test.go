@@ -462,3 +462,49 @@ func TestStopText(t *testing.T) {
 		}
 	}
 }
+
+// TestSampleCheckpointChoice checks that --checkpoint picks the best copy,
+// a step, the latest one or a file path, as the help says.
+func TestSampleCheckpointChoice(t *testing.T) {
+	r := newDecodeRun(t, "line")
+	// A second model saved as step 5, different from the best one.
+	cfg := r.Net.Config()
+	other, err := rnn.NewModel[float32](cfg, r.Vocab.Len(), 99)
+	if err != nil {
+		t.Fatal(err)
+	}
+	f, err := checkpoint.NewModelFile(other, cfg, r.Vocab, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	step := checkpoint.StepPath(filepath.Join(r.Dir, checkpointsDir), 5)
+	if err := checkpoint.Save(step, f); err != nil {
+		t.Fatal(err)
+	}
+	out := func(args ...string) string {
+		t.Helper()
+		code, o, stderr := runCmd(t, "", append([]string{"sample", "--length", "30", "--temperature", "0"}, args...)...)
+		if code != exitOK {
+			t.Fatalf("%v: exit %d %s", args, code, stderr)
+		}
+		return o
+	}
+	best, stepOut := out("--run", r.Dir), out("--checkpoint", step)
+	if best == stepOut {
+		t.Fatalf("the two models give the same greedy text %q; the test needs different ones", best)
+	}
+	for _, tc := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--run", r.Dir, "--checkpoint", "best"}, best},
+		{[]string{"--run", r.Dir, "--checkpoint", "5"}, stepOut},
+		{[]string{"--run", r.Dir, "--checkpoint", "latest"}, stepOut},
+		{[]string{"--run", r.Dir, "--checkpoint", filepath.Base(step)}, stepOut},
+		{[]string{"--run", r.Dir, "--checkpoint", r.Ckpt}, best},
+	} {
+		if got := out(tc.args...); got != tc.want {
+			t.Errorf("%v: got %q, want %q", tc.args[2:], got, tc.want)
+		}
+	}
+}
