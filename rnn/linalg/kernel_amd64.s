@@ -485,6 +485,11 @@ k256nobeta:
 // Transposes n consecutive 8×8 blocks with AVX: block q is read from rows
 // src + r·srcStride, columns 8q..8q+7, and written to rows
 // dst + (8q+c)·dstStride, columns 0..7. Strides are in elements.
+//
+// Rows r and r+4 are loaded into the two 128-bit lanes of one register
+// (columns 0-3 into Y0-Y3, 4-7 into Y4-Y7; the inserts run on the load
+// ports), so two in-lane 4×4 transposes of 8 shuffles each finish the job:
+// 16 shuffles per block instead of 24.
 TEXT ·transpose8(SB), NOSPLIT, $0-40
 	MOVQ dst+0(FP), DI
 	MOVQ dstStride+8(FP), R8
@@ -499,15 +504,23 @@ TEXT ·transpose8(SB), NOSPLIT, $0-40
 	LEAQ (R8)(R8*2), R11
 t8loop:
 	MOVQ SI, R12
-	VMOVUPS (R12), Y0
-	VMOVUPS (R12)(R9*1), Y1
-	VMOVUPS (R12)(R9*2), Y2
-	VMOVUPS (R12)(R10*1), Y3
-	LEAQ (R12)(R9*4), R12
-	VMOVUPS (R12), Y4
-	VMOVUPS (R12)(R9*1), Y5
-	VMOVUPS (R12)(R9*2), Y6
-	VMOVUPS (R12)(R10*1), Y7
+	LEAQ (SI)(R9*4), R13
+	VMOVUPS (R12), X0
+	VINSERTF128 $1, (R13), Y0, Y0
+	VMOVUPS 16(R12), X4
+	VINSERTF128 $1, 16(R13), Y4, Y4
+	VMOVUPS (R12)(R9*1), X1
+	VINSERTF128 $1, (R13)(R9*1), Y1, Y1
+	VMOVUPS 16(R12)(R9*1), X5
+	VINSERTF128 $1, 16(R13)(R9*1), Y5, Y5
+	VMOVUPS (R12)(R9*2), X2
+	VINSERTF128 $1, (R13)(R9*2), Y2, Y2
+	VMOVUPS 16(R12)(R9*2), X6
+	VINSERTF128 $1, 16(R13)(R9*2), Y6, Y6
+	VMOVUPS (R12)(R10*1), X3
+	VINSERTF128 $1, (R13)(R10*1), Y3, Y3
+	VMOVUPS 16(R12)(R10*1), X7
+	VINSERTF128 $1, 16(R13)(R10*1), Y7, Y7
 	VUNPCKLPS Y1, Y0, Y8
 	VUNPCKHPS Y1, Y0, Y9
 	VUNPCKLPS Y3, Y2, Y10
@@ -516,6 +529,11 @@ t8loop:
 	VSHUFPS $0xEE, Y10, Y8, Y1
 	VSHUFPS $0x44, Y11, Y9, Y2
 	VSHUFPS $0xEE, Y11, Y9, Y3
+	VMOVUPS Y0, (DI)
+	VMOVUPS Y1, (DI)(R8*1)
+	VMOVUPS Y2, (DI)(R8*2)
+	VMOVUPS Y3, (DI)(R11*1)
+	LEAQ (DI)(R8*4), R13
 	VUNPCKLPS Y5, Y4, Y8
 	VUNPCKHPS Y5, Y4, Y9
 	VUNPCKLPS Y7, Y6, Y10
@@ -524,23 +542,10 @@ t8loop:
 	VSHUFPS $0xEE, Y10, Y8, Y5
 	VSHUFPS $0x44, Y11, Y9, Y6
 	VSHUFPS $0xEE, Y11, Y9, Y7
-	VPERM2F128 $0x20, Y4, Y0, Y8
-	VPERM2F128 $0x20, Y5, Y1, Y9
-	VPERM2F128 $0x20, Y6, Y2, Y10
-	VPERM2F128 $0x20, Y7, Y3, Y11
-	VMOVUPS Y8, (DI)
-	VMOVUPS Y9, (DI)(R8*1)
-	VMOVUPS Y10, (DI)(R8*2)
-	VMOVUPS Y11, (DI)(R11*1)
-	LEAQ (DI)(R8*4), R13
-	VPERM2F128 $0x31, Y4, Y0, Y8
-	VPERM2F128 $0x31, Y5, Y1, Y9
-	VPERM2F128 $0x31, Y6, Y2, Y10
-	VPERM2F128 $0x31, Y7, Y3, Y11
-	VMOVUPS Y8, (R13)
-	VMOVUPS Y9, (R13)(R8*1)
-	VMOVUPS Y10, (R13)(R8*2)
-	VMOVUPS Y11, (R13)(R11*1)
+	VMOVUPS Y4, (R13)
+	VMOVUPS Y5, (R13)(R8*1)
+	VMOVUPS Y6, (R13)(R8*2)
+	VMOVUPS Y7, (R13)(R11*1)
 	ADDQ $32, SI
 	LEAQ (DI)(R8*8), DI
 	DECQ CX
