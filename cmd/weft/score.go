@@ -97,16 +97,16 @@ bounded memory) and implies --sort.`,
 	f.BoolVar(&opts.JSON, "json", false, "print one JSON object per unit")
 	f.BoolVar(&opts.Sort, "sort", false, "print the most surprising units first (bits per character)")
 	f.IntVar(&opts.Top, "top", 0, "print only the N most surprising units (implies --sort)")
-	addThreadsFlag(cmd, &opts.Threads)
+	f.IntVar(&opts.Threads, "threads", 1, "pieces the model scores at the same time, one thread each (baselines use 1; the output does not depend on it)")
 	return cmd
 }
 
 // scorer is a language model with the vocabulary that encodes its text.
 type scorer struct {
-	lm    eval.LanguageModel
-	kind  string
-	vocab *data.Vocab
-	close func() // releases the model's thread pool; nil for none
+	lm      eval.LanguageModel
+	kind    string
+	vocab   *data.Vocab
+	workers int // pieces scored at once
 }
 
 // loadScorer opens the model or the baseline the options name.
@@ -116,11 +116,9 @@ func loadScorer(opts *scoreOptions) (*scorer, error) {
 		if err != nil {
 			return nil, err
 		}
-		closePool, err := usePool(m, opts.Threads)
-		if err != nil {
-			return nil, err
-		}
-		return &scorer{lm: m.Net, kind: "rnn", vocab: m.Vocab, close: closePool}, nil
+		// Concurrent LogProbs calls, each on its own goroutine, rather than
+		// a shared pool: one hypothesis' products are too small to split.
+		return &scorer{lm: m.Net, kind: "rnn", vocab: m.Vocab, workers: opts.Threads}, nil
 	}
 	if opts.Run == "" {
 		return nil, usagef("--baseline needs --run DIR, whose baselines folder holds it")
@@ -245,20 +243,27 @@ type scoreRow struct {
 	seq  int // order of scoring, for stable sorting
 }
 
-// unitScorer accumulates the tokens of the current unit and scores them
-// piece by piece.
+// unitScorer cuts the tokens of each unit into pieces of at most maxChars
+// characters, scores every piece from the start of a document, and
+// assembles each unit's row from its pieces' results, in order. With
+// workers > 1 up to that many pieces are scored at once (the model must be
+// safe for concurrent LogProbs calls, as rnn.Model is); the rows, and every
+// number in them, are the same for any number of workers.
 type unitScorer struct {
 	cc       cmdContext
 	sc       *scorer
 	maxChars int
 	keepText bool
 	skipText int // token id left out of the text: the line end of a line unit
+	workers  int
+	emit     func(scoreRow) error // receives the finished rows in order
 
-	tokens []int
-	chars  []int
-	logp   []float64
-	pieceC int // characters in tokens
+	cur   *pieceJob   // the piece being filled
+	queue []*pieceJob // pieces handed to workers, oldest first
+	free  []*pieceJob
+	sem   chan struct{}
 
+	// The unit being assembled.
 	row   scoreRow
 	worst float64 // surprise of the most surprising token so far, in nats
 	text  []byte
@@ -266,80 +271,158 @@ type unitScorer struct {
 	prev  int
 }
 
-func (u *unitScorer) start(source string, line int) {
-	u.tokens, u.chars, u.pieceC = u.tokens[:0], u.chars[:0], 0
-	u.row = scoreRow{Source: source, Line: line}
-	u.worst = math.Inf(-1)
-	u.text, u.runes, u.prev = u.text[:0], 0, -1
+// pieceJob is one piece of a unit: its tokens, their characters and, once
+// scored, their log-probabilities.
+type pieceJob struct {
+	tokens, chars []int
+	nchars        int
+	logp          []float64
+	err           error
+	done          chan struct{}
+
+	first, last bool // the piece starts or ends its unit
+	source      string
+	line        int
 }
 
-// add appends one token of the unit, scoring the piece first when it is
-// full.
+func (u *unitScorer) newJob() *pieceJob {
+	if n := len(u.free); n > 0 {
+		j := u.free[n-1]
+		u.free = u.free[:n-1]
+		*j = pieceJob{tokens: j.tokens[:0], chars: j.chars[:0], logp: j.logp[:0]}
+		return j
+	}
+	return &pieceJob{}
+}
+
+// start begins a unit at line of source.
+func (u *unitScorer) start(source string, line int) {
+	u.cur = u.newJob()
+	u.cur.first, u.cur.source, u.cur.line = true, source, line
+}
+
+// add appends one token of the current unit, handing the piece over first
+// when the token would take it past maxChars.
 func (u *unitScorer) add(id, chars int) error {
-	if u.maxChars > 0 && u.pieceC+chars > u.maxChars && len(u.tokens) > 0 {
-		if err := u.scorePiece(); err != nil {
+	if u.maxChars > 0 && u.cur.nchars+chars > u.maxChars && len(u.cur.tokens) > 0 {
+		if err := u.submit(u.cur); err != nil {
+			return err
+		}
+		u.cur = u.newJob()
+	}
+	j := u.cur
+	j.tokens = append(j.tokens, id)
+	j.chars = append(j.chars, chars)
+	j.nchars += chars
+	return nil
+}
+
+// end ends the current unit; its row goes to emit once its pieces are
+// scored (a unit without tokens gives no row).
+func (u *unitScorer) end() error {
+	j := u.cur
+	u.cur = nil
+	j.last = true
+	return u.submit(j)
+}
+
+// flush waits for every piece handed over and emits the rows they finish.
+func (u *unitScorer) flush() error {
+	for len(u.queue) > 0 {
+		if err := u.consumeOldest(); err != nil {
 			return err
 		}
 	}
-	u.tokens = append(u.tokens, id)
-	u.chars = append(u.chars, chars)
-	u.pieceC += chars
 	return nil
 }
 
-// scorePiece scores the tokens held, each piece from the start of a
-// document, through the model's LogProbs and eval.NewResult: the same code
-// weft eval scores with.
-func (u *unitScorer) scorePiece() error {
-	n := len(u.tokens)
-	if n == 0 {
-		return nil
+func (u *unitScorer) submit(j *pieceJob) error {
+	if u.workers <= 1 {
+		u.compute(j)
+		return u.consume(j)
 	}
-	u.logp = slices.Grow(u.logp[:0], n)[:n]
-	if err := u.sc.lm.LogProbs(u.cc.ctx, u.logp, u.tokens); err != nil {
-		return err
+	if u.sem == nil {
+		u.sem = make(chan struct{}, u.workers)
 	}
-	res := eval.NewResult(u.sc.lm.Name(), u.sc.kind, "", u.logp, u.pieceC)
-	res.SetUnknown(u.tokens, u.sc.vocab.Unknown(), false)
+	j.done = make(chan struct{})
+	u.queue = append(u.queue, j)
+	u.sem <- struct{}{}
+	go func() {
+		u.compute(j)
+		<-u.sem
+		close(j.done)
+	}()
+	for len(u.queue) > 2*u.workers {
+		if err := u.consumeOldest(); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+func (u *unitScorer) consumeOldest() error {
+	j := u.queue[0]
+	<-j.done
+	u.queue = u.queue[1:]
+	return u.consume(j)
+}
+
+// compute scores one piece from the start of a document with the model's
+// LogProbs: the code weft eval scores with.
+func (u *unitScorer) compute(j *pieceJob) {
+	n := len(j.tokens)
+	j.logp = slices.Grow(j.logp[:0], n)[:n]
+	if n > 0 {
+		j.err = u.sc.lm.LogProbs(u.cc.ctx, j.logp, j.tokens)
+	}
+}
+
+// consume adds a scored piece to its unit, totalled by eval.NewResult as
+// weft eval totals a split, and emits the row after the unit's last piece.
+func (u *unitScorer) consume(j *pieceJob) error {
+	defer func() { u.free = append(u.free, j) }()
+	if j.err != nil {
+		return j.err
+	}
+	if j.first {
+		u.row = scoreRow{Source: j.source, Line: j.line}
+		u.worst = math.Inf(-1)
+		u.text, u.runes, u.prev = u.text[:0], 0, -1
+	}
 	v := u.sc.vocab
-	offset := u.row.Characters
-	for i, lp := range u.logp {
-		if -lp > u.worst {
-			u.worst = -lp
-			u.row.SurpriseBits = -lp / math.Ln2
-			u.row.SurpriseOffset = offset
-			u.row.SurpriseToken = v.Decode(u.tokens[i : i+1])
-			if id := u.tokens[i]; id == v.Boundary() || id == v.Unknown() {
-				u.row.SurpriseToken = v.Piece(id)
+	if len(j.tokens) > 0 {
+		res := eval.NewResult(u.sc.lm.Name(), u.sc.kind, "", j.logp, j.nchars)
+		res.SetUnknown(j.tokens, v.Unknown(), false)
+		offset := u.row.Characters
+		for i, lp := range j.logp {
+			id := j.tokens[i]
+			if -lp > u.worst {
+				u.worst = -lp
+				u.row.SurpriseBits = -lp / math.Ln2
+				u.row.SurpriseOffset = offset
+				u.row.SurpriseToken = v.Decode(j.tokens[i : i+1])
+				if id == v.Boundary() || id == v.Unknown() {
+					u.row.SurpriseToken = v.Piece(id)
+				}
+			}
+			offset += j.chars[i]
+			if u.keepText && u.runes <= scoreTextLimit && id != u.skipText {
+				t := tokenText(v, u.prev, id)
+				u.text = append(u.text, t...)
+				u.runes += utf8.RuneCountInString(t)
+				u.prev = id
 			}
 		}
-		offset += u.chars[i]
-		if id := u.tokens[i]; u.keepText && u.runes <= scoreTextLimit && id != u.skipText {
-			t := tokenText(v, u.prev, id)
-			u.text = append(u.text, t...)
-			u.runes += utf8.RuneCountInString(t)
-			u.prev = id
-		}
+		u.row.nats += res.CrossEntropyNats
+		u.row.Characters += j.nchars
+		u.row.Tokens += res.Tokens
+		u.row.UnknownTokens += res.UnknownTokens
+		u.row.Pieces++
 	}
-	u.row.nats += res.CrossEntropyNats
-	u.row.Characters += u.pieceC
-	u.row.Tokens += res.Tokens
-	u.row.UnknownTokens += res.UnknownTokens
-	u.row.Pieces++
-	u.tokens, u.chars, u.pieceC = u.tokens[:0], u.chars[:0], 0
-	return nil
-}
-
-// finish scores what is held and returns the unit's row; ok is false for
-// a unit without tokens.
-func (u *unitScorer) finish() (scoreRow, bool, error) {
-	if err := u.scorePiece(); err != nil {
-		return scoreRow{}, false, err
+	if !j.last || u.row.Tokens == 0 {
+		return nil
 	}
 	r := u.row
-	if r.Tokens == 0 {
-		return r, false, nil
-	}
 	r.Bits = r.nats / math.Ln2
 	r.BitsPerChar = r.Bits / float64(r.Characters)
 	if u.keepText {
@@ -348,7 +431,7 @@ func (u *unitScorer) finish() (scoreRow, bool, error) {
 			r.Text = string(append([]rune(r.Text)[:scoreTextLimit], '…'))
 		}
 	}
-	return r, true, nil
+	return u.emit(r)
 }
 
 // rowSink receives the rows: printed at once, or kept for sorting.
@@ -473,6 +556,9 @@ func runScore(opts *scoreOptions) error {
 	if opts.MaxChars < 1 {
 		return usagef("--max-chars must be at least 1, got %d", opts.MaxChars)
 	}
+	if opts.Threads < 1 {
+		return usagef("--threads must be at least 1, got %d", opts.Threads)
+	}
 	if opts.Top < 0 {
 		return usagef("--top must be 0 (all) or more, got %d", opts.Top)
 	}
@@ -489,9 +575,6 @@ func runScore(opts *scoreOptions) error {
 	if err != nil {
 		return err
 	}
-	if sc.close != nil {
-		defer sc.close()
-	}
 	v := sc.vocab
 	newline := -1
 	if id, ok := v.ID("\n"); ok {
@@ -501,14 +584,18 @@ func runScore(opts *scoreOptions) error {
 		return fmt.Errorf("the model's vocabulary has no line-end entry, so it cannot score lines; use --unit document or --unit window")
 	}
 	sink := &rowSink{opts: opts}
-	u := &unitScorer{cc: opts.cmdContext, sc: sc, maxChars: opts.MaxChars, keepText: opts.Unit != "document", skipText: -1}
+	u := &unitScorer{cc: opts.cmdContext, sc: sc, maxChars: opts.MaxChars, keepText: opts.Unit != "document", skipText: -1,
+		workers: sc.workers, emit: sink.add}
 	if opts.Unit == "line" {
 		u.skipText = newline
 	}
 	for _, name := range opts.Files {
-		if err := scoreSource(opts, u, sink, name, newline); err != nil {
+		if err := scoreSource(opts, u, name, newline); err != nil {
 			return err
 		}
+	}
+	if err := u.flush(); err != nil {
+		return err
 	}
 	if opts.Sort || opts.Top > 0 {
 		return sink.close()
@@ -516,7 +603,7 @@ func runScore(opts *scoreOptions) error {
 	return sink.header()
 }
 
-func scoreSource(opts *scoreOptions, u *unitScorer, sink *rowSink, name string, newline int) error {
+func scoreSource(opts *scoreOptions, u *unitScorer, name string, newline int) error {
 	var r io.Reader
 	source := name
 	if name == "-" {
@@ -531,16 +618,8 @@ func scoreSource(opts *scoreOptions, u *unitScorer, sink *rowSink, name string, 
 	}
 	v := u.sc.vocab
 	line := 1
-	u.start(source, line)
 	inUnit := 0 // tokens in the current unit
 	var failed error
-	emitRow := func() error {
-		row, ok, err := u.finish()
-		if err != nil || !ok {
-			return err
-		}
-		return sink.add(row)
-	}
 	err := v.EncodeReader(opts.ctx, r, source, func(id, chars int) {
 		if failed != nil {
 			return
@@ -558,7 +637,7 @@ func scoreSource(opts *scoreOptions, u *unitScorer, sink *rowSink, name string, 
 		switch {
 		case opts.Unit == "line" && id == newline,
 			opts.Unit == "window" && inUnit == opts.Window:
-			failed = emitRow()
+			failed = u.end()
 			inUnit = 0
 		}
 	})
@@ -568,23 +647,17 @@ func scoreSource(opts *scoreOptions, u *unitScorer, sink *rowSink, name string, 
 	if err != nil {
 		return err
 	}
-	if opts.Unit == "document" && v.Boundary() >= 0 && v.Piece(v.Boundary()) == data.DocumentPiece {
-		if inUnit == 0 {
-			u.start(source, line)
+	if inUnit == 0 {
+		if line == 1 {
+			fmt.Fprintf(opts.Err, "weft: %s: no text to score\n", source)
 		}
-		if inUnit > 0 { // the document end, as the corpus pipeline adds it
-			if err := u.add(v.Boundary(), 0); err != nil {
-				return err
-			}
-			inUnit++
-		}
+		return nil
 	}
-	if inUnit > 0 {
-		if err := emitRow(); err != nil {
+	if opts.Unit == "document" && v.Boundary() >= 0 && v.Piece(v.Boundary()) == data.DocumentPiece {
+		// The document end, as the corpus pipeline adds it.
+		if err := u.add(v.Boundary(), 0); err != nil {
 			return err
 		}
-	} else if line == 1 {
-		fmt.Fprintf(opts.Err, "weft: %s: no text to score\n", source)
 	}
-	return nil
+	return u.end()
 }

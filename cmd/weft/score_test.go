@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"fmt"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -154,15 +155,16 @@ func TestScoreMatchesEval(t *testing.T) {
 			}
 			// Exactly, before rounding for print: the unit scorer itself.
 			sc := &scorer{lm: r.Net, kind: "rnn", vocab: r.Vocab}
-			u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: 1 << 20, skipText: -1}
+			var row scoreRow
+			u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: 1 << 20, skipText: -1,
+				emit: func(r scoreRow) error { row = r; return nil }}
 			u.start("x", 1)
 			for _, id := range append(r.Vocab.Encode(nil, text), extra...) {
 				if err := u.add(id, r.Vocab.Chars(id)); err != nil {
 					t.Fatal(err)
 				}
 			}
-			row, _, err := u.finish()
-			if err != nil {
+			if err := u.end(); err != nil {
 				t.Fatal(err)
 			}
 			if row.Bits != bits {
@@ -378,25 +380,34 @@ func BenchmarkScore(b *testing.B) {
 		}
 		toks = append(toks, v.Boundary())
 	}
-	sc := &scorer{lm: net, kind: "rnn", vocab: v}
-	for _, unit := range []string{"line", "document"} {
-		b.Run("lstm/vocab=96/embed=64/hidden=256/unit="+unit, func(b *testing.B) {
-			u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: 1 << 20, keepText: unit == "line", skipText: v.Boundary()}
+	for _, tc := range []struct {
+		unit    string
+		workers int
+	}{{"line", 1}, {"line", 2}, {"document", 1}} {
+		b.Run(fmt.Sprintf("lstm/vocab=96/embed=64/hidden=256/unit=%s/threads=%d", tc.unit, tc.workers), func(b *testing.B) {
+			sc := &scorer{lm: net, kind: "rnn", vocab: v, workers: tc.workers}
+			u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: 1 << 20, keepText: tc.unit == "line",
+				skipText: v.Boundary(), workers: tc.workers, emit: func(r scoreRow) error { sinkRow = r; return nil }}
 			b.ReportAllocs()
 			b.ResetTimer()
 			for i := 0; i < b.N; i++ {
 				u.start("bench", 1)
-				for _, id := range toks {
+				for k, id := range toks {
 					if err := u.add(id, 1); err != nil {
 						b.Fatal(err)
 					}
-					if unit == "line" && id == v.Boundary() {
-						sinkRow, _, _ = u.finish()
+					if tc.unit == "line" && id == v.Boundary() && k+1 < len(toks) {
+						if err := u.end(); err != nil {
+							b.Fatal(err)
+						}
 						u.start("bench", 1)
 					}
 				}
-				if unit == "document" {
-					sinkRow, _, _ = u.finish()
+				if err := u.end(); err != nil {
+					b.Fatal(err)
+				}
+				if err := u.flush(); err != nil {
+					b.Fatal(err)
 				}
 			}
 			b.ReportMetric(float64(b.N*len(toks))/b.Elapsed().Seconds(), "chars/s")
@@ -410,5 +421,31 @@ func TestScoreBadInput(t *testing.T) {
 	code, out, stderr := runCmd(t, "", "score", "--run", r.Dir, file)
 	if code != exitFailure || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, "bad.txt") {
 		t.Errorf("invalid UTF-8: got exit %d stdout %q stderr %q, want exit 1 and one line naming the file", code, out, stderr)
+	}
+}
+
+// TestScoreThreads checks that scoring several pieces at once gives the
+// same bytes as one at a time, for lines, long lines in pieces, windows
+// and documents.
+func TestScoreThreads(t *testing.T) {
+	r := newDecodeRun(t, "line")
+	var b strings.Builder
+	for i := 0; i < 30; i++ {
+		b.WriteString([]string{"the cat sat on the mat.\n", "a dog\n", "\n", "the log met a cat and a dog on a mat.\n"}[i%4])
+	}
+	file := writeTemp(t, "in.txt", b.String())
+	for _, args := range [][]string{
+		{"--json"},
+		{"--max-chars", "7"},
+		{"--unit", "window", "--window", "11", "--top", "5"},
+		{"--unit", "document", "--max-chars", "50"},
+	} {
+		_, want, _ := runCmd(t, "", append(append([]string{"score", "--run", r.Dir}, args...), file)...)
+		for _, threads := range []string{"2", "3"} {
+			code, got, stderr := runCmd(t, "", append(append([]string{"score", "--run", r.Dir, "--threads", threads}, args...), file)...)
+			if code != exitOK || got != want {
+				t.Errorf("%v --threads %s: exit %d %s, output differs from 1 thread:\n%s\nwant:\n%s", args, threads, code, stderr, got, want)
+			}
+		}
 	}
 }
