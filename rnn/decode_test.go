@@ -461,14 +461,19 @@ var sinkTokens int
 // one forward step, the distribution and one draw per token.
 func BenchmarkGenerate(b *testing.B) {
 	for _, sh := range []struct {
-		layers, hidden int
-	}{{1, 256}, {2, 512}} {
-		b.Run(fmt.Sprintf("lstm/vocab=96/embed=64/layers=%d/hidden=%d", sh.layers, sh.hidden), func(b *testing.B) {
+		layers, hidden, threads int
+	}{{1, 256, 1}, {2, 512, 1}, {2, 512, 2}} {
+		b.Run(fmt.Sprintf("lstm/vocab=96/embed=64/layers=%d/hidden=%d/threads=%d", sh.layers, sh.hidden, sh.threads), func(b *testing.B) {
 			c := DefaultConfig()
 			c.Layers, c.HiddenSize, c.EmbeddingSize = sh.layers, sh.hidden, 64
 			m, err := NewModel[float32](c, 96, 1)
 			if err != nil {
 				b.Fatal(err)
+			}
+			if sh.threads > 1 {
+				p := linalg.NewPool(sh.threads)
+				defer p.Close()
+				m.SetPool(p)
 			}
 			sp, _ := NewSampler(Sampling{Temperature: 1, TopP: 0.95}, rand.New(rand.NewPCG(1, 2)))
 			s := m.NewStream(1)
