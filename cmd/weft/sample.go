@@ -213,12 +213,15 @@ func encodePrompt(cc cmdContext, v *data.Vocab, text string, mapUnknown bool) ([
 		return nil, err
 	}
 	if len(unknown) > 0 && !mapUnknown {
-		what := "characters"
+		what := "character"
 		switch v.Kind() {
 		case data.KindWord, data.KindBPE:
-			what = "words"
+			what = "word"
 		case data.KindSymbols:
-			what = "symbols"
+			what = "symbol"
+		}
+		if len(unknown) > 1 {
+			what += "s"
 		}
 		list := make([]string, 0, min(len(unknown), 10))
 		for _, u := range unknown[:min(len(unknown), 10)] {

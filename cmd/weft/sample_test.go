@@ -37,8 +37,13 @@ type decodeRun struct {
 
 func newDecodeRun(t testing.TB, boundary string) *decodeRun {
 	t.Helper()
+	return newDecodeRunTokens(t, "char", boundary)
+}
+
+func newDecodeRunTokens(t testing.TB, tokenizer, boundary string) *decodeRun {
+	t.Helper()
 	v, err := data.LearnVocab(context.Background(), strings.NewReader(decodeCorpus), "corpus",
-		data.VocabOptions{Tokenizer: "char", Boundary: boundary})
+		data.VocabOptions{Tokenizer: tokenizer, Boundary: boundary})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -352,6 +357,12 @@ func TestSampleUnknownPrompt(t *testing.T) {
 	code, out, stderr := runCmd(t, "", "sample", "--run", r.Dir, "--prompt", "the Zebra", "--length", "5", "--seed", "1", "--map-unknown")
 	if code != exitOK || !strings.HasPrefix(out, "the Zebra") {
 		t.Errorf("--map-unknown: got exit %d output %q stderr %q", code, out, stderr)
+	}
+	// A word model lists the words.
+	w := newDecodeRunTokens(t, "word", "line")
+	code, _, stderr = runCmd(t, "", "sample", "--run", w.Dir, "--prompt", "the zebra sat on a zebra rug", "--length", "5", "--seed", "1")
+	if code != exitFailure || !strings.Contains(stderr, `2 words outside the model's vocabulary: "zebra", "rug"`) {
+		t.Errorf("word model: got exit %d stderr %q", code, stderr)
 	}
 }
 
