@@ -19,6 +19,10 @@ import (
 // the *rand.Rand the caller gives, so a seeded PCG or ChaCha8 generator
 // gives the same tokens on every run and with every thread count (the
 // model's arithmetic does not depend on the thread count; see linalg.Gemm).
+// Machines whose matrix kernels differ (fused multiply-adds or not) can
+// differ in the last bits of a log-probability; a draw changes only when
+// its uniform variate falls within that rounding of a boundary between two
+// tokens, which is rare but possible.
 
 // Sampling says how a Sampler chooses the next token from a distribution
 // P(j), given as natural-log probabilities. The steps apply in this order

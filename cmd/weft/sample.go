@@ -75,7 +75,9 @@ is drawn from the model's next-token distribution after --temperature
 (0 = always the most probable token), --top-k (keep the k most probable) and
 --top-p (keep the smallest set of most probable tokens whose probability
 reaches p), applied in that order. The draws come from a PCG generator seeded
-with --seed: the same seed, model, prompt and settings give the same text.
+with --seed: the same seed, model, prompt and settings give the same text
+(on machines whose matrix kernels round differently, a draw can in rare
+cases differ).
 Without --seed a seed is taken from the clock and printed on standard error.
 
 --beam W searches for the most probable continuations instead of drawing,
