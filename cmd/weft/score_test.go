@@ -153,7 +153,10 @@ func TestScoreMatchesEval(t *testing.T) {
 			if len(rows) != 1 || !closeRel(rows[0].Bits, bits, 1e-6) || !closeRel(rows[0].BitsPerChar, bpc, 1e-6) || rows[0].Characters != len(text) {
 				t.Errorf("got %+v, want bits %v bits/char %v characters %d", rows, bits, bpc, len(text))
 			}
-			// Exactly, before rounding for print: the unit scorer itself.
+			// Before rounding for print, the unit scorer itself: one piece
+			// goes through the same LogProbs call and the same
+			// eval.NewResult sum, so the bits are identical, not merely
+			// close (a second implementation would show here).
 			sc := &scorer{lm: r.Net, kind: "rnn", vocab: r.Vocab}
 			var row scoreRow
 			u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: 1 << 20, skipText: -1,
