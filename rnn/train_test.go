@@ -228,23 +228,34 @@ func TestResume(t *testing.T) {
 
 // TestSteadyStateAllocs checks that a training window, and a sampling
 // step, allocate nothing once the buffers exist.
+// With two threads the shape is large enough for products to be split
+// (see TestDeterminism).
 func TestSteadyStateAllocs(t *testing.T) {
+	p2 := linalg.NewPool(2)
+	defer p2.Close()
 	for name, cfg := range smallConfigs() {
 		t.Run(name, func(t *testing.T) {
-			tc := DefaultTrainConfig()
-			tc.BatchSize, tc.UnrollSteps = 4, 8
-			m, _ := NewModel[float32](cfg, 12, 1)
-			tr, _ := NewTrainer(m, tc, nil)
-			b := &streamBatches{tokens: randomTokens(100000, 12, 1), B: 4, T: 8}
-			w, _ := b.Next(context.Background())
-			ctx := context.Background()
-			if allocs := testing.AllocsPerRun(5, func() {
-				if _, err := tr.Step(ctx, w); err != nil {
-					t.Fatal(err)
+			for _, pool := range []*linalg.Pool{nil, p2} {
+				c := cfg
+				tc := DefaultTrainConfig()
+				tc.BatchSize, tc.UnrollSteps = 4, 8
+				if pool != nil {
+					c.HiddenSize, c.EmbeddingSize, tc.BatchSize, tc.UnrollSteps = 64, 32, 8, 32
 				}
-			}); allocs != 0 {
-				t.Errorf("Trainer.Step: %v allocations per window, want 0", allocs)
+				m, _ := NewModel[float32](c, 12, 1)
+				tr, _ := NewTrainer(m, tc, pool)
+				b := &streamBatches{tokens: randomTokens(100000, 12, 1), B: tc.BatchSize, T: tc.UnrollSteps}
+				w, _ := b.Next(context.Background())
+				ctx := context.Background()
+				if allocs := testing.AllocsPerRun(5, func() {
+					if _, err := tr.Step(ctx, w); err != nil {
+						t.Fatal(err)
+					}
+				}); allocs != 0 {
+					t.Errorf("Trainer.Step on %d threads: %v allocations per window, want 0", pool.Threads(), allocs)
+				}
 			}
+			m, _ := NewModel[float32](cfg, 12, 1)
 			s := m.NewStream(3)
 			lp := make([]float64, 3*12)
 			toks := []int{1, 2, 3}
