@@ -519,3 +519,42 @@ func TestSampleCheckpointChoice(t *testing.T) {
 		}
 	}
 }
+
+// FuzzStopText checks the stop-string writer on any pieces: what it writes
+// is its text, a prefix of the pieces joined, free of the stop string, and
+// when it stops the stop string follows the text in the joined pieces.
+func FuzzStopText(f *testing.F) {
+	f.Add("END", "ab|cE|N|D|x")
+	f.Add("aa", "a|a|a")
+	f.Add("\n\n", "x\n|\ny")
+	f.Fuzz(func(t *testing.T, stop, pieces string) {
+		if stop == "" {
+			return
+		}
+		var out bytes.Buffer
+		st := &stopText{stops: []string{stop}, out: &out}
+		joined, stopped := "", false
+		for _, p := range strings.Split(pieces, "|") {
+			joined += p
+			s, err := st.add(p)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if s {
+				stopped = true
+				break
+			}
+		}
+		st.finish()
+		text := string(st.text)
+		if out.String() != text || !strings.HasPrefix(joined, text) || strings.Contains(text, stop) {
+			t.Fatalf("stop %q pieces %q: wrote %q, text %q", stop, pieces, out.String(), text)
+		}
+		if stopped != strings.Contains(joined, stop) {
+			t.Fatalf("stop %q pieces %q: stopped=%v", stop, pieces, stopped)
+		}
+		if stopped && !strings.HasPrefix(joined, text+stop) {
+			t.Fatalf("stop %q pieces %q: text %q is not followed by the stop", stop, pieces, text)
+		}
+	})
+}
