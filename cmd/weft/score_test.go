@@ -452,3 +452,39 @@ func TestScoreThreads(t *testing.T) {
 		}
 	}
 }
+
+// TestScoreBoundedBuffers checks that a long unit is held one piece at a
+// time: after scoring a 3000-character line with pieces of 64 characters,
+// no buffer grew past what one piece needs.
+func TestScoreBoundedBuffers(t *testing.T) {
+	r := newDecodeRun(t, "")
+	const n, piece = 3000, 64
+	var rows []scoreRow
+	sc := &scorer{lm: r.Net, kind: "rnn", vocab: r.Vocab}
+	u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: piece, keepText: true, skipText: -1,
+		emit: func(row scoreRow) error { rows = append(rows, row); return nil }}
+	u.start("long", 1)
+	id, _ := r.Vocab.ID("a")
+	for i := 0; i < n; i++ {
+		if err := u.add(id, 1); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := u.end(); err != nil {
+		t.Fatal(err)
+	}
+	if len(rows) != 1 || rows[0].Pieces != (n+piece-1)/piece || rows[0].Characters != n {
+		t.Fatalf("got %+v, want one row of %d characters in %d pieces", rows, n, (n+piece-1)/piece)
+	}
+	if len(u.free) > 2 {
+		t.Errorf("%d piece buffers kept, want at most 2", len(u.free))
+	}
+	for _, j := range u.free {
+		if cap(j.tokens) > 2*piece || cap(j.logp) > 2*piece {
+			t.Errorf("a piece buffer holds %d tokens and %d log-probabilities, want at most %d", cap(j.tokens), cap(j.logp), 2*piece)
+		}
+	}
+	if got := len([]rune(rows[0].Text)); got != scoreTextLimit+1 {
+		t.Errorf("text of %d runes, want the first %d and an ellipsis", got, scoreTextLimit)
+	}
+}
