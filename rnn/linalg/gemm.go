@@ -2,7 +2,7 @@ package linalg
 
 import (
 	"fmt"
-	"sync"
+	"sync/atomic"
 	"unsafe"
 )
 
@@ -26,8 +26,34 @@ type kernel[T Float] struct {
 	// dst as panels of nr columns, each stored k-major and zero-padded to nr.
 	packB func(dst []T, tB bool, b []T, ldb, l0, kc, j0, cols, nr int)
 
-	spaces sync.Pool // *workspace[T]
-	jobs   sync.Pool // *gemmJob[T]
+	spaces cache[workspace[T]]
+	jobs   cache[gemmJob[T]]
+}
+
+// cache keeps a few reusable objects in atomic slots. Unlike a sync.Pool it
+// is not emptied by the garbage collector, so a collection does not make
+// the next products reallocate their megabytes of packing buffers.
+type cache[E any] struct {
+	slots [8]atomic.Pointer[E]
+}
+
+// get returns a cached object or nil.
+func (c *cache[E]) get() *E {
+	for i := range c.slots {
+		if e := c.slots[i].Swap(nil); e != nil {
+			return e
+		}
+	}
+	return nil
+}
+
+// put caches e, or drops it when every slot is taken.
+func (c *cache[E]) put(e *E) {
+	for i := range c.slots {
+		if c.slots[i].CompareAndSwap(nil, e) {
+			return
+		}
+	}
 }
 
 // workspace holds one thread's packing buffers, aligned to 64 bytes.
@@ -36,7 +62,7 @@ type workspace[T Float] struct {
 }
 
 func (kern *kernel[T]) workspace() *workspace[T] {
-	if w, ok := kern.spaces.Get().(*workspace[T]); ok {
+	if w := kern.spaces.get(); w != nil {
 		return w
 	}
 	return &workspace[T]{
@@ -110,7 +136,7 @@ func gemmRun[T Float](p *Pool, kern *kernel[T], tA, tB bool, m, n, k int, alpha 
 	j.plan(p.Threads())
 	p.run(j, j.parts)
 	*j = gemmJob[T]{}
-	kern.jobs.Put(j)
+	kern.jobs.put(j)
 }
 
 // plan splits the job over up to threads parts, in whole tiles.
@@ -134,7 +160,7 @@ func (j *gemmJob[T]) plan(threads int) {
 }
 
 func (kern *kernel[T]) job() *gemmJob[T] {
-	if j, ok := kern.jobs.Get().(*gemmJob[T]); ok {
+	if j := kern.jobs.get(); j != nil {
 		return j
 	}
 	return new(gemmJob[T])
@@ -192,11 +218,11 @@ func (j *gemmJob[T]) runPart(t int) {
 	w := kern.workspace()
 	if j.packed != nil {
 		kern.blockPacked(w, j.tA, i0, i1, j0, j1, j.n, j.k, j.alpha, j.a, j.lda, j.packed, j.beta, j.c, j.ldc)
-		kern.spaces.Put(w)
+		kern.spaces.put(w)
 		return
 	}
 	kern.block(w, j.tA, j.tB, i0, i1, j0, j1, j.k, j.alpha, j.a, j.lda, j.b, j.ldb, j.beta, j.c, j.ldc)
-	kern.spaces.Put(w)
+	kern.spaces.put(w)
 }
 
 // block computes rows [i0, i1) and columns [j0, j1) of C with the loop

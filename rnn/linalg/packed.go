@@ -94,7 +94,7 @@ func gemmPackedRun(p *Pool, pb *PackedB, tA bool, m int, alpha float32, a []floa
 	j.plan(p.Threads())
 	p.run(j, j.parts)
 	*j = gemmJob[float32]{}
-	kern.jobs.Put(j)
+	kern.jobs.put(j)
 }
 
 // blockPacked is block with op(B) already packed for all of k and n

@@ -1,5 +1,0 @@
-//go:build !race
-
-package linalg
-
-const raceEnabled = false
