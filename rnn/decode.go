@@ -1,7 +1,6 @@
 package rnn
 
 import (
-	"cmp"
 	"container/heap"
 	"context"
 	"fmt"
@@ -78,10 +77,11 @@ func (c Sampling) Greedy() bool { return c.Temperature == 0 || c.TopK == 1 }
 // It reuses its buffers: Draw allocates nothing. It is not safe for
 // concurrent use.
 type Sampler struct {
-	cfg Sampling
-	rng *rand.Rand
-	idx []int
-	w   []float64
+	cfg  Sampling
+	rng  *rand.Rand
+	idx  []int // a heap of token ids
+	kept []int // the ids taken from it, in order
+	w    []float64
 }
 
 // NewSampler returns a sampler drawing with rng, which may be nil only
@@ -115,38 +115,53 @@ func (s *Sampler) Draw(logp []float64) int {
 	if cap(s.idx) < V {
 		s.idx = make([]int, V)
 		s.w = make([]float64, V)
+		s.kept = make([]int, 0, V)
 	}
 	idx := s.idx[:V]
 	for j := range idx {
 		idx[j] = j
 	}
-	truncate := (c.TopK > 0 && c.TopK < V) || (c.TopP > 0 && c.TopP < 1)
-	if truncate {
-		// Decreasing probability, lower id first among equals: the order
-		// in which top-k and the nucleus take tokens. The temperature
-		// does not change it.
-		slices.SortFunc(idx, func(a, b int) int {
-			if d := cmp.Compare(logp[b], logp[a]); d != 0 {
-				return d
-			}
-			return cmp.Compare(a, b)
-		})
-		if c.TopK > 0 && c.TopK < V {
-			idx = idx[:c.TopK]
-		}
-	}
 	mx := math.Inf(-1)
-	for _, j := range idx {
-		mx = math.Max(mx, logp[j])
+	for _, l := range logp {
+		mx = math.Max(mx, l)
 	}
 	invT := 1 / c.Temperature
-	w := s.w[:len(idx)]
+	topK := c.TopK > 0 && c.TopK < V
+	topP := c.TopP > 0 && c.TopP < 1
+	var w []float64
 	var total float64
-	for i, j := range idx {
-		w[i] = math.Exp((logp[j] - mx) * invT)
-		total += w[i]
+	switch {
+	case !topK && !topP:
+		w = s.w[:V]
+		for j, l := range logp {
+			w[j] = math.Exp((l - mx) * invT)
+			total += w[j]
+		}
+	case topK:
+		// The k most probable, taken in decreasing probability (lower id
+		// first among equals) from a heap: O(V + k log V).
+		idx = s.takeTop(logp, c.TopK, -1)
+		w = s.w[:len(idx)]
+		for i, j := range idx {
+			w[i] = math.Exp((logp[j] - mx) * invT)
+			total += w[i]
+		}
+	default:
+		// The nucleus alone: the total over every token, then the most
+		// probable ones in order until they reach top_p of it.
+		for _, l := range logp {
+			total += math.Exp((l - mx) * invT)
+		}
+		idx = s.takeTop(logp, V, c.TopP*total)
+		w = s.w[:len(idx)]
+		total = 0
+		for i, j := range idx {
+			w[i] = math.Exp((logp[j] - mx) * invT)
+			total += w[i]
+		}
+		topP = false // done
 	}
-	if c.TopP > 0 && c.TopP < 1 {
+	if topP {
 		target := c.TopP * total
 		var cum float64
 		for i := range w {
@@ -172,6 +187,59 @@ func (s *Sampler) Draw(logp []float64) int {
 		}
 	}
 	return idx[0]
+}
+
+// takeTop returns up to k token ids of logp in decreasing probability,
+// lower id first among equals, popped from a max-heap built in s.idx.
+// With mass > 0 it stops as soon as the tempered weights exp((logp−max)/τ)
+// of the ids taken reach mass.
+func (s *Sampler) takeTop(logp []float64, k int, mass float64) []int {
+	h := s.idx[:len(logp)]
+	before := func(a, b int) bool { // a ranks before b
+		if logp[a] != logp[b] {
+			return logp[a] > logp[b]
+		}
+		return a < b
+	}
+	down := func(i, n int) {
+		for {
+			l := 2*i + 1
+			if l >= n {
+				return
+			}
+			best := l
+			if r := l + 1; r < n && before(h[r], h[l]) {
+				best = r
+			}
+			if !before(h[best], h[i]) {
+				return
+			}
+			h[i], h[best] = h[best], h[i]
+			i = best
+		}
+	}
+	n := len(h)
+	for i := n/2 - 1; i >= 0; i-- {
+		down(i, n)
+	}
+	mx := logp[h[0]]
+	invT := 1 / s.cfg.Temperature
+	out := s.kept[:0]
+	var cum float64
+	for len(out) < k && n > 0 {
+		j := h[0]
+		out = append(out, j)
+		n--
+		h[0] = h[n]
+		down(0, n)
+		if mass > 0 {
+			if cum += math.Exp((logp[j] - mx) * invT); cum >= mass {
+				break
+			}
+		}
+	}
+	s.kept = out
+	return out
 }
 
 // argmax returns the index of the largest value, the lowest among equals.

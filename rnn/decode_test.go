@@ -492,3 +492,41 @@ func BenchmarkGenerate(b *testing.B) {
 		})
 	}
 }
+
+var sinkDraw int
+
+// BenchmarkDraw measures one draw from a fixed distribution, for a
+// character-sized and a word-sized vocabulary.
+func BenchmarkDraw(b *testing.B) {
+	for _, V := range []int{96, 50000} {
+		for _, cfg := range []struct {
+			name string
+			s    Sampling
+		}{{"plain", Sampling{Temperature: 1}}, {"top-k=40", Sampling{Temperature: 1, TopK: 40}}, {"top-p=0.9", Sampling{Temperature: 1, TopP: 0.9}}} {
+			b.Run(fmt.Sprintf("vocab=%d/%s", V, cfg.name), func(b *testing.B) {
+				rng := rand.New(rand.NewPCG(1, 1))
+				logp := make([]float64, V)
+				for j := range logp { // a Zipf-like distribution, as text has
+					logp[j] = -math.Log(float64(j+1)) + 0.1*rng.NormFloat64()
+				}
+				z := math.Inf(-1)
+				for _, l := range logp {
+					z = math.Max(z, l)
+				}
+				var s float64
+				for _, l := range logp {
+					s += math.Exp(l - z)
+				}
+				for j := range logp {
+					logp[j] -= z + math.Log(s)
+				}
+				sp, _ := NewSampler(cfg.s, rand.New(rand.NewPCG(2, 2)))
+				b.ReportAllocs()
+				b.ResetTimer()
+				for i := 0; i < b.N; i++ {
+					sinkDraw += sp.Draw(logp)
+				}
+			})
+		}
+	}
+}
