@@ -488,3 +488,46 @@ func TestScoreBoundedBuffers(t *testing.T) {
 		t.Errorf("text of %d runes, want the first %d and an ellipsis", got, scoreTextLimit)
 	}
 }
+
+// TestEveryTokenizer runs both commands on a model of each tokenizer: a
+// sample's token texts spell its text, and scoring counts every character
+// of the input.
+func TestEveryTokenizer(t *testing.T) {
+	text := "the cat met the dog.\na mat sat on a log.\n"
+	for _, tok := range []string{"char", "byte", "word", "bpe", "symbols"} {
+		t.Run(tok, func(t *testing.T) {
+			r := newDecodeRunTokens(t, tok, "line")
+			code, out, stderr := runCmd(t, "", "sample", "--run", r.Dir, "--prompt", "the ", "--length", "15", "--seed", "3", "--json")
+			if code != exitOK {
+				t.Fatalf("sample: exit %d %s", code, stderr)
+			}
+			var rec sampleJSON
+			if err := json.Unmarshal([]byte(out), &rec); err != nil {
+				t.Fatal(err)
+			}
+			joined := ""
+			for _, tk := range rec.Tokens {
+				joined += tk.Text
+			}
+			if rec.Stop != "stop_string" && joined != rec.Text {
+				t.Errorf("sample: tokens spell %q, text %q", joined, rec.Text)
+			}
+			code, out, stderr = runCmd(t, "", "score", "--run", r.Dir, "--json", writeTemp(t, "in.txt", text))
+			if code != exitOK {
+				t.Fatalf("score: exit %d %s", code, stderr)
+			}
+			rows := parseRows(t, out)
+			chars := 0
+			for _, row := range rows {
+				chars += row.Characters
+			}
+			want := len(text)
+			if tok == "symbols" { // spaces separate symbols and are not tokens
+				want -= strings.Count(text, " ")
+			}
+			if len(rows) != 2 || chars != want {
+				t.Errorf("score: %d rows with %d characters, want 2 rows with %d", len(rows), chars, want)
+			}
+		})
+	}
+}
