@@ -428,3 +428,45 @@ func FuzzElementwise(f *testing.F) {
 		}
 	})
 }
+
+// FuzzSoftmaxCrossEntropy compares the float32 path (vector kernels) with
+// the float64 path (package math) on scores and shapes from the fuzz input.
+func FuzzSoftmaxCrossEntropy(f *testing.F) {
+	f.Add([]byte{1, 2, 3, 4, 5, 6, 7, 8}, uint8(3), uint8(0))
+	f.Add([]byte{255, 0, 128, 64, 32, 16, 8, 4, 2, 1, 0, 0, 0, 0, 0, 0, 9}, uint8(17), uint8(16))
+	f.Fuzz(func(t *testing.T, raw []byte, colsB, tgtB uint8) {
+		cols := int(colsB)%40 + 1
+		rows := len(raw) / cols
+		if rows == 0 {
+			return
+		}
+		logits := make([]float32, rows*cols)
+		logits64 := make([]float64, rows*cols)
+		for i := range logits {
+			logits[i] = (float32(raw[i]) - 128) / 4 // scores in [-32, 32)
+			logits64[i] = float64(logits[i])
+		}
+		targets := make([]int, rows)
+		for r := range targets {
+			targets[r] = (int(tgtB) + r) % (cols + 1)
+			if targets[r] == cols {
+				targets[r] = -1 // a skipped row
+			}
+		}
+		grad := make([]float32, len(logits))
+		grad64 := make([]float64, len(logits))
+		loss := SoftmaxCrossEntropy(grad, logits, targets, rows, cols, 0.5)
+		want := SoftmaxCrossEntropy(grad64, logits64, targets, rows, cols, 0.5)
+		// Tolerance: float32 scores are exact in float64; exp32 adds 1.2e-7
+		// relative per term, rounding to float32 another 6e-8, so the loss
+		// is within about 1e-6 per row plus 1e-6 relative.
+		if d := math.Abs(loss - want); d > 1e-6*float64(rows)+1e-6*math.Abs(want) {
+			t.Errorf("loss: got %.9g want %.9g", loss, want)
+		}
+		for i := range grad {
+			if d := math.Abs(float64(grad[i]) - grad64[i]); d > 1e-6 {
+				t.Fatalf("grad[%d]: got %g want %g", i, grad[i], grad64[i])
+			}
+		}
+	})
+}
