@@ -96,7 +96,8 @@ type Float interface {
 // stored n×k when tB is set). When beta is zero, C is not read (NaNs in it do
 // not propagate); when alpha is zero or k is zero, A and B are not read. A
 // nil pool runs on the calling goroutine; products too small to gain from
-// threads also run there. Shapes that do not fit the slices panic.
+// threads also run there. C must not overlap A or B. Shapes that do not fit
+// the slices panic. The result does not depend on the pool's thread count.
 func Gemm[T Float](p *Pool, tA, tB bool, m, n, k int, alpha T, a []T, lda int, b []T, ldb int, beta T, c []T, ldc int) {
 	if unsafe.Sizeof(alpha) == 4 {
 		if blasGemm32 != nil {
