@@ -28,6 +28,8 @@ type layerWork[T Float] struct {
 	dnext  []T // B×H
 	dcnext []T // B×H
 	tmp    []T // B×H
+
+	times *PhaseTimes // nil: timing off (see Trainer.SetPhaseTimes)
 }
 
 // work is everything a forward (and backward) pass over one window needs
@@ -47,6 +49,7 @@ type work[T Float] struct {
 	head     []T // view: the output layer's input rows of the last pass
 	steps    int
 	inputs   []int
+	times    *PhaseTimes // nil: timing off
 }
 
 // newWork sizes buffers for B streams and up to maxSteps steps. With train
@@ -153,6 +156,7 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 	E, H := m.cfg.EmbeddingSize, m.cfg.HiddenSize
 	w.steps, w.inputs = steps, inputs
 	w.dropping = dropout && w.train && m.cfg.Dropout > 0
+	t0 := w.times.start()
 	var in []T
 	if E > 0 {
 		x := w.x[:R*E]
@@ -186,7 +190,10 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 				}
 			}
 		}
+		t0 = w.times.lap(PhaseInput, t0)
+		recBefore := w.times.get(PhaseRecurrence)
 		m.cell.forward(p, lp, lw, steps, B)
+		t0 = w.times.lapGates(t0, recBefore)
 		hs := lw.h[B*H : (steps+1)*B*H]
 		if w.dropping {
 			lw.out = lw.drop[:R*H]
@@ -196,6 +203,7 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 		}
 		in = lw.out
 	}
+	t0 = w.times.lap(PhaseInput, t0)
 	head := in
 	if m.proj != nil {
 		P := m.cfg.ProjectionSize
@@ -212,6 +220,7 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 			row[j] += b
 		}
 	}
+	w.times.lap(PhaseOutput, t0)
 }
 
 // loss turns w.logits into ∂L/∂logits for the mean cross-entropy over the

@@ -44,7 +44,9 @@ func (c *gruCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[T
 		aux := lw.aux[t*n : (t+1)*n]
 		if c.resetAfter {
 			rec := lw.rec[:B*G]
+			t0 := lw.times.start()
 			linalg.Gemm(p, false, true, B, G, H, 1, hp, H, lp.wRec, H, 0, rec, G)
+			lw.times.lap(PhaseRecurrence, t0)
 			for b := 0; b < B; b++ {
 				row, rr := a[b*G:(b+1)*G], rec[b*G:(b+1)*G]
 				for j := 0; j < 2*H; j++ {
@@ -60,7 +62,9 @@ func (c *gruCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[T
 				linalg.Tanh(xn, xn)
 			}
 		} else {
+			t0 := lw.times.start()
 			linalg.Gemm(p, false, true, B, 2*H, H, 1, hp, H, lp.wRec[:2*H*H], H, 1, a, G)
+			lw.times.lap(PhaseRecurrence, t0)
 			for b := 0; b < B; b++ {
 				row := a[b*G : (b+1)*G]
 				linalg.Sigmoid(row[:2*H], row[:2*H])
@@ -70,7 +74,9 @@ func (c *gruCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[T
 					rh[j] = r[j] * hpb[j]
 				}
 			}
+			t0 = lw.times.start()
 			linalg.Gemm(p, false, true, B, H, H, 1, aux, H, lp.wRec[2*H*H:], H, 1, a[2*H:], G)
+			lw.times.lap(PhaseRecurrence, t0)
 			for b := 0; b < B; b++ {
 				xn := a[b*G+2*H : (b+1)*G]
 				linalg.Tanh(xn, xn)

@@ -32,7 +32,9 @@ func (c *lstmCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[
 	for t := 0; t < steps; t++ {
 		hp := lw.h[t*n : (t+1)*n]
 		a := lw.xg[t*B*G : (t+1)*B*G]
+		t0 := lw.times.start()
 		linalg.Gemm(p, false, true, B, G, H, 1, hp, H, lp.wRec, H, 1, a, G)
+		lw.times.lap(PhaseRecurrence, t0)
 		for b := 0; b < B; b++ {
 			row := a[b*G : (b+1)*G]
 			linalg.Sigmoid(row[:2*H], row[:2*H])

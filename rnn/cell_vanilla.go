@@ -26,7 +26,9 @@ func (c *vanillaCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWo
 	for t := 0; t < steps; t++ {
 		hp := lw.h[t*n : (t+1)*n]
 		a := lw.xg[t*n : (t+1)*n]
+		t0 := lw.times.start()
 		linalg.Gemm(p, false, true, B, H, H, 1, hp, H, lp.wRec, H, 1, a, H)
+		lw.times.lap(PhaseRecurrence, t0)
 		hn := lw.h[(t+1)*n : (t+2)*n]
 		if c.relu {
 			for i, v := range a {

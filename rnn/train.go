@@ -62,6 +62,7 @@ type Trainer[T Float] struct {
 
 	step   int64
 	tokens int64
+	times  *PhaseTimes // nil: timing off (SetPhaseTimes)
 
 	// BPTT(h; h′) replay (cfg.BPTTAdvanceSteps > 0).
 	advance      int
@@ -228,14 +229,19 @@ func (tr *Trainer[T]) Step(ctx context.Context, win Window) (StepInfo, error) {
 	if anyReset {
 		w.resetStreams(win.Reset)
 	}
+	t0 := tr.times.start()
 	w.drawMasks(tr.rng, steps)
+	tr.times.lap(PhaseInput, t0)
 	w.forward(tr.pool, inputs, steps, true)
+	t0 = tr.times.start()
 	total, count := w.loss(targets)
+	t0 = tr.times.lap(PhaseOutput, t0)
 	info := StepInfo{Step: tr.step, Tokens: count, LearningRate: tr.sched.Rate(tr.step)}
 	if count > 0 {
 		info.Loss = total / float64(count)
 		tr.m.ZeroGrad()
 		w.backward(tr.pool)
+		t0 = tr.times.lap(PhaseBackward, t0)
 		info.GradNorm = ClipGlobalNorm(tr.m.params, tr.cfg.ClipNorm)
 		if !finite(info.Loss) || !finite(info.GradNorm) {
 			return info, fmt.Errorf("step %d: %w (loss %v, gradient norm %v)", tr.step+1, ErrNonFinite, info.Loss, info.GradNorm)
@@ -255,6 +261,7 @@ func (tr *Trainer[T]) Step(ctx context.Context, win Window) (StepInfo, error) {
 	} else {
 		w.carry(steps)
 	}
+	tr.times.lap(PhaseUpdate, t0)
 	return info, nil
 }
 
