@@ -21,6 +21,7 @@ type Pool struct {
 	waiting atomic.Bool  // the caller is parked on done
 	done    chan struct{}
 	once    sync.Once
+	loop1   forJob // the running For call, guarded by mu
 }
 
 // A worker spins for up to spinLimit polls after each part, so that the
@@ -141,6 +142,12 @@ func (p *Pool) run(r runner, parts int) {
 	}
 	p.mu.Lock()
 	defer p.mu.Unlock()
+	p.runLocked(r, parts)
+}
+
+// runLocked is run for a caller that holds p.mu, with 2 ≤ parts ≤
+// p.Threads().
+func (p *Pool) runLocked(r runner, parts int) {
 	p.pending.Store(int64(parts - 1))
 	for i := 1; i < parts; i++ {
 		p.workers[i-1].post(task{r: r, part: i})
