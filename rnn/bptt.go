@@ -43,13 +43,16 @@ type work[T Float] struct {
 	x, xMask []T // max·B×E embedding rows (after dropout), its mask
 	layers   []layerWork[T]
 	projOut  []T // max·B×P
-	logits   []T // max·B×V; after the loss, ∂L/∂logits
+	logits   []T // max·B×V; after the loss, ∂L/∂logits (class layer: nil, or the log-probabilities when full)
 	dHead    []T // max·B×outIn (when a projection exists)
 	dx       []T // max·B×E
 	head     []T // view: the output layer's input rows of the last pass
 	steps    int
 	inputs   []int
 	times    *PhaseTimes // nil: timing off
+
+	cls  *classWork[T] // class layer buffers, nil for the full softmax
+	full bool          // class layer: also compute the whole distribution into logits (Streams)
 }
 
 // newWork sizes buffers for B streams and up to maxSteps steps. With train
@@ -104,7 +107,11 @@ func newWork[T Float](m *Model[T], B, maxSteps int, train bool) *work[T] {
 			w.dHead = make([]T, R*c.ProjectionSize)
 		}
 	}
-	w.logits = make([]T, R*m.vocab)
+	if m.classStart != nil {
+		w.cls = newClassWork(m, R, train)
+	} else {
+		w.logits = make([]T, R*m.vocab)
+	}
 	return w
 }
 
@@ -112,6 +119,9 @@ func newWork[T Float](m *Model[T], B, maxSteps int, train bool) *work[T] {
 // activations" term of the memory formula in the package documentation.
 func (w *work[T]) floats() int {
 	n := len(w.x) + len(w.xMask) + len(w.dx) + len(w.projOut) + len(w.logits) + len(w.dHead)
+	if w.cls != nil {
+		n += w.cls.floats()
+	}
 	for _, lw := range w.layers {
 		n += len(lw.xg) + len(lw.h) + len(lw.c) + len(lw.aux) + len(lw.rec) + len(lw.mask) + len(lw.drop) +
 			len(lw.dh) + len(lw.dxg) + len(lw.drg) + len(lw.dnext) + len(lw.dcnext) + len(lw.tmp)
@@ -211,13 +221,17 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 		head = w.projOut[:R*P]
 	}
 	w.head = head
-	V, K := m.vocab, m.outIn
-	logits := w.logits[:R*V]
-	linalg.Gemm(p, false, true, R, V, K, 1, head, K, m.outW, K, 0, logits, V)
-	for r := 0; r < R; r++ {
-		row := logits[r*V : (r+1)*V]
-		for j, b := range m.outB {
-			row[j] += b
+	if w.cls != nil {
+		w.classForward(p, R)
+	} else {
+		V, K := m.vocab, m.outIn
+		logits := w.logits[:R*V]
+		linalg.Gemm(p, false, true, R, V, K, 1, head, K, m.outW, K, 0, logits, V)
+		for r := 0; r < R; r++ {
+			row := logits[r*V : (r+1)*V]
+			for j, b := range m.outB {
+				row[j] += b
+			}
 		}
 	}
 	w.times.lap(PhaseOutput, t0)
@@ -227,6 +241,9 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 // positions whose target is not negative, and returns the summed loss in
 // nats and the number of positions counted.
 func (w *work[T]) loss(targets []int) (float64, int) {
+	if w.cls != nil {
+		return w.classLoss(targets)
+	}
 	R := w.steps * w.B
 	count := 0
 	for _, t := range targets[:R] {
@@ -252,20 +269,25 @@ func (w *work[T]) backward(p *linalg.Pool) {
 	R := steps * B
 	E, H := m.cfg.EmbeddingSize, m.cfg.HiddenSize
 	V, K := m.vocab, m.outIn
-	dl := w.logits[:R*V]
-	colSumAdd(m.gOutB, dl, R, V, V)
-	linalg.Gemm(p, true, false, V, K, R, 1, dl, V, w.head, K, 1, m.gOutW, K)
 	L := len(w.layers)
 	top := &w.layers[L-1]
 	dTop := top.dh[:R*H]
+	dHead := dTop // ∂L/∂(the output layer's input)
+	if m.proj != nil {
+		dHead = w.dHead[:R*K]
+	}
+	if w.cls != nil {
+		w.classBackward(p, dHead)
+	} else {
+		dl := w.logits[:R*V]
+		colSumAdd(m.gOutB, dl, R, V, V)
+		linalg.Gemm(p, true, false, V, K, R, 1, dl, V, w.head, K, 1, m.gOutW, K)
+		linalg.Gemm(p, false, false, R, K, V, 1, dl, V, m.outW, K, 0, dHead, K)
+	}
 	if m.proj != nil {
 		P := m.cfg.ProjectionSize
-		dHead := w.dHead[:R*P]
-		linalg.Gemm(p, false, false, R, P, V, 1, dl, V, m.outW, P, 0, dHead, P)
 		linalg.Gemm(p, true, false, P, H, R, 1, dHead, P, top.out, H, 1, m.gProj, H)
 		linalg.Gemm(p, false, false, R, H, P, 1, dHead, P, m.proj, H, 0, dTop, H)
-	} else {
-		linalg.Gemm(p, false, false, R, H, V, 1, dl, V, m.outW, H, 0, dTop, H)
 	}
 	if w.dropping {
 		mulInto(dTop, dTop, top.mask[:R*H])

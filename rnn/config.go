@@ -77,6 +77,21 @@ type Config struct {
 	// Schmidhuber & Cummins 2000 recommend a positive one). Zero means a zero
 	// bias like every other gate. Other cells ignore it. Default 1.
 	ForgetBias float64 `toml:"forget_bias"`
+
+	// OutputLayer is the output layer: "full" is one softmax over the whole
+	// vocabulary; "class" is the two-level softmax of Goodman (2001), a
+	// softmax over output_classes classes of token ids times a softmax over
+	// the ids of the target's class, exactly normalised, at a training cost
+	// per position of about C + V/C scores instead of V (worth it for word
+	// vocabularies of thousands). Empty means "full". Default "full".
+	OutputLayer string `toml:"output_layer"`
+
+	// OutputClasses is the number of classes C of the "class" output layer,
+	// from 1 to the vocabulary size; the classes are ranges of ids of about
+	// equal training frequency (frequency binning, Mikolov et al. 2011).
+	// Zero means the nearest integer to √V. It must be zero with the "full"
+	// layer. Default 0.
+	OutputClasses int `toml:"output_classes"`
 }
 
 // DefaultConfig returns the defaults documented on Config.
@@ -92,6 +107,7 @@ func DefaultConfig() Config {
 		InitRange:     0.1,
 		RecurrentInit: "orthogonal",
 		ForgetBias:    1,
+		OutputLayer:   "full",
 	}
 }
 
@@ -154,6 +170,17 @@ func (c Config) Validate() error {
 	}
 	if math.IsNaN(c.ForgetBias) || math.IsInf(c.ForgetBias, 0) {
 		return fmt.Errorf("model.forget_bias must be a finite number, got %v", c.ForgetBias)
+	}
+	switch c.OutputLayer {
+	case "", "full", "class":
+	default:
+		return fmt.Errorf("model.output_layer must be \"full\" or \"class\", got %q", c.OutputLayer)
+	}
+	if c.OutputClasses < 0 {
+		return fmt.Errorf("model.output_classes must be 0 (about √V) or more, got %d", c.OutputClasses)
+	}
+	if c.OutputClasses > 0 && c.OutputLayer != "class" {
+		return fmt.Errorf("model.output_classes (%d) needs model.output_layer = \"class\"", c.OutputClasses)
 	}
 	return nil
 }

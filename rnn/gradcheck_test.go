@@ -64,6 +64,30 @@ func gradCases() []gradCase {
 		c.Init, c.InitRange, c.RecurrentInit = "uniform", 0.5, "uniform"
 		cases = append(cases, gradCase{cl.name + "/dropout", c})
 	}
+	// The class-based output layer (output.go), over the 6 ids of the
+	// fixture: classes of 2 ids, of 3 ids tied through a projection, and
+	// of 1 to 2 ids with one-hot input and dropout.
+	for _, cc := range []struct {
+		name    string
+		cell    string
+		classes int
+		tied    bool
+		drop    float64
+		emb     int
+	}{
+		{"lstm/class=3", "lstm", 3, false, 0, 3},
+		{"gru/class=2/tied", "gru", 2, true, 0, 3},
+		{"rnn/class=4/one-hot/dropout", "rnn", 4, false, 0.3, 0},
+	} {
+		c := DefaultConfig()
+		c.Cell, c.Layers, c.HiddenSize, c.EmbeddingSize, c.Dropout = cc.cell, 2, 4, cc.emb, cc.drop
+		c.OutputLayer, c.OutputClasses, c.TieEmbeddings = "class", cc.classes, cc.tied
+		if cc.tied {
+			c.ProjectionSize = 3
+		}
+		c.Init, c.InitRange, c.RecurrentInit = "uniform", 0.5, "uniform"
+		cases = append(cases, gradCase{cc.name, c})
+	}
 	return cases
 }
 

@@ -31,7 +31,8 @@ func (m *Model[T]) SetScoring(streams, warmup int) error {
 // LogProbs writes to dst[i] the natural logarithm of P(seq[i] | seq[:i])
 // under the model, for every i, forward only and with dropout off. The
 // history before seq[0] is the start of a document: a zero state, whose
-// output distribution is softmax(output.bias). len(dst) must equal
+// output distribution is softmax(output.bias) (for the class layer, the
+// product of the class and word softmaxes of the biases). len(dst) must equal
 // len(seq). See SetScoring for the exact default and the faster
 // approximation. It checks ctx between passes.
 func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error {
@@ -47,7 +48,7 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 	if n == 0 {
 		return nil
 	}
-	dst[0] = logSoftmaxAt(m.outB, seq[0])
+	dst[0] = m.startLogProb(seq[0])
 	P := n - 1 // positions 1..n-1 remain
 	if P == 0 {
 		return nil
@@ -65,6 +66,11 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 	B := S
 	w := newWork(m, B, min(scoreChunk, max(L, W)), false)
 	in := make([]int, w.max*B)
+	var tg []int
+	var lp []float64
+	if w.cls != nil {
+		tg, lp = make([]int, w.max*B), make([]float64, w.max*B)
+	}
 	// Warm-up: stream k ≥ 1 reads seq[kL−W .. kL−1]; stream 0 reads
 	// anything and is reset afterwards.
 	for t0 := 0; t0 < W; t0 += w.max {
@@ -102,12 +108,28 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 			}
 		}
 		w.forward(m.pool, in, c, false)
+		if w.cls != nil {
+			for t := 0; t < c; t++ {
+				for k := 0; k < B; k++ {
+					pos := k*L + t0 + t + 1
+					tg[t*B+k] = -1
+					if pos < n && pos <= (k+1)*L {
+						tg[t*B+k] = seq[pos]
+					}
+				}
+			}
+			w.classLogProbs(m.pool, lp, tg, c*B)
+		}
 		for t := 0; t < c; t++ {
 			for k := 0; k < B; k++ {
 				pos := k*L + t0 + t + 1
 				if pos < n && pos <= (k+1)*L {
 					r := t*B + k
-					dst[pos] = logSoftmaxAt(w.logits[r*V:(r+1)*V], seq[pos])
+					if w.cls != nil {
+						dst[pos] = lp[r]
+					} else {
+						dst[pos] = logSoftmaxAt(w.logits[r*V:(r+1)*V], seq[pos])
+					}
 				}
 			}
 		}

@@ -62,13 +62,37 @@ type Model[T Float] struct {
 	outIn             int // width of the output layer's input
 	pool              *linalg.Pool
 	scoreS, scoreWarm int
+
+	// The class-based output layer (output.go); nil for the full softmax.
+	classW, gClassW []T     // C×outIn
+	classB, gClassB []T     // C
+	classStart      []int   // C+1 class boundaries (FrequencyClasses)
+	classOf         []int32 // V: class of each id
 }
 
 // NewModel builds a model of the given shape for token ids 0..vocabSize-1
 // and initialises its parameters from a PCG generator seeded with seed (see
 // "Initialisation" in the package documentation). The same config, vocabulary
-// size and seed give bit-identical weights on every machine.
+// size and seed give bit-identical weights on every machine. A class-based
+// output layer gets classes of equal size; NewModelWithCounts makes them
+// from the training counts.
 func NewModel[T Float](cfg Config, vocabSize int, seed uint64) (*Model[T], error) {
+	return newModel[T](cfg, vocabSize, nil, seed)
+}
+
+// NewModelWithCounts is NewModel for the vocabulary of len(counts) ids
+// whose training counts are counts[id] (data.Vocab.Count). The counts
+// matter only to the class-based output layer (output_layer = "class"),
+// whose classes FrequencyClasses makes from them; pass the same counts
+// (those the checkpoint's vocabulary records) to rebuild a trained model.
+func NewModelWithCounts[T Float](cfg Config, counts []int64, seed uint64) (*Model[T], error) {
+	if counts == nil {
+		counts = []int64{}
+	}
+	return newModel[T](cfg, len(counts), counts, seed)
+}
+
+func newModel[T Float](cfg Config, vocabSize int, counts []int64, seed uint64) (*Model[T], error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, err
 	}
@@ -87,7 +111,15 @@ func NewModel[T Float](cfg Config, vocabSize int, seed uint64) (*Model[T], error
 	if cfg.RecurrentInit == "" {
 		cfg.RecurrentInit = cfg.Init
 	}
+	if cfg.OutputLayer == "" {
+		cfg.OutputLayer = "full"
+	}
 	m := &Model[T]{cfg: cfg, vocab: vocabSize, cell: newCell[T](cfg), outIn: cfg.outputInput(), scoreS: 1}
+	if cfg.OutputLayer == "class" {
+		if err := m.setClasses(counts); err != nil {
+			return nil, err
+		}
+	}
 	m.build()
 	m.initialise(seed)
 	return m, nil
@@ -107,6 +139,9 @@ func paramEstimate(cfg Config, vocab int) float64 {
 		in = V
 	}
 	n := V*E + G*(in+H+2) + float64(cfg.Layers-1)*G*(2*H+2) + float64(cfg.ProjectionSize)*H + V*(float64(cfg.outputInput())+1)
+	if cfg.OutputLayer == "class" {
+		n += float64(cfg.classCount(vocab)) * (float64(cfg.outputInput()) + 1)
+	}
 	return n
 }
 
@@ -163,6 +198,11 @@ func (m *Model[T]) build() {
 		add("output.weight", &m.outW, &m.gOutW, V, m.outIn)
 	}
 	add("output.bias", &m.outB, &m.gOutB, V)
+	if m.classStart != nil {
+		C := len(m.classStart) - 1
+		add("output.class_weight", &m.classW, &m.gClassW, C, m.outIn)
+		add("output.class_bias", &m.classB, &m.gClassB, C)
+	}
 
 	total := 0
 	for _, s := range specs {
@@ -243,6 +283,10 @@ func (m *Model[T]) initialise(seed uint64) {
 		scheme(c.Init, m.outW, m.vocab, m.outIn)
 	}
 	clear(m.outB)
+	if m.classW != nil {
+		scheme(c.Init, m.classW, len(m.classB), m.outIn)
+		clear(m.classB)
+	}
 }
 
 // twoU returns 2u for u uniform on [0, 1), exactly 2·rng.Float64(): the

@@ -24,6 +24,11 @@ func (m *Model[T]) NewStream(n int) *Stream[T] {
 		panic("rnn: NewStream needs at least one hypothesis")
 	}
 	s := &Stream[T]{m: m, w: newWork(m, n, 1, false), n: n}
+	if s.w.cls != nil {
+		// The class layer keeps the whole distribution of every
+		// hypothesis, as log-probabilities.
+		s.w.logits, s.w.full = make([]T, n*m.vocab), true
+	}
 	s.tmp = make([]T, n*max(m.vocab, m.cfg.HiddenSize))
 	s.Reset()
 	return s
@@ -37,7 +42,7 @@ func (s *Stream[T]) Reset() {
 	s.w.resetAll()
 	V := s.m.vocab
 	for i := 0; i < s.n; i++ {
-		copy(s.w.logits[i*V:(i+1)*V], s.m.outB)
+		s.m.startRow(s.w.logits[i*V : (i+1)*V])
 	}
 }
 

@@ -67,6 +67,9 @@ func smallConfigs() map[string]Config {
 		c.Cell, c.Layers, c.HiddenSize, c.EmbeddingSize, c.Dropout = cell, 2, 16, 8, 0.2
 		out[cell] = c
 	}
+	c := out["lstm"] // the class-based output layer: 3 classes of the 12 ids
+	c.OutputLayer = "class"
+	out["lstm-class"] = c
 	return out
 }
 
