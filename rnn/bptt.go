@@ -30,6 +30,8 @@ type layerWork[T Float] struct {
 	tmp    []T // B×H
 
 	times *PhaseTimes // nil: timing off (see Trainer.SetPhaseTimes)
+
+	cw cellWork[T] // the cell's packed weights and loop state (cell.go)
 }
 
 // work is everything a forward (and backward) pass over one window needs

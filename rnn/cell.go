@@ -1,6 +1,10 @@
 package rnn
 
-import "weft/rnn/linalg"
+import (
+	"unsafe"
+
+	"weft/rnn/linalg"
+)
 
 // Cell is the recurrent part of one layer: how the gate pre-activations of a
 // window turn into states, and how gradients flow back through them. The
@@ -51,4 +55,132 @@ func colSumAdd[T Float](dst []T, a []T, rows, cols, lda int) {
 			dst[j] += v
 		}
 	}
+}
+
+// cellWork is the part of a layer's work buffers that the cells own: the
+// recurrent weights packed once per pass for the per-step products, and the
+// state of the elementwise loops they split over the pool's threads.
+type cellWork[T Float] struct {
+	pack [4]recPacked
+	rows rowLoop[T]
+}
+
+// recPacked is op(U) packed by linalg.PackB for the float32 kernels; ok is
+// false when the product goes through linalg.Gemm instead (float64, the
+// openblas build).
+type recPacked struct {
+	pb linalg.PackedB
+	ok bool
+}
+
+// packedKernels says whether linalg.GemmPacked runs the same kernel as
+// linalg.Gemm: not in builds with the openblas tag, where Gemm calls
+// OpenBLAS.
+var packedKernels = linalg.KernelName() != "openblas"
+
+// packRec packs op(U), k×n (U stored n×k with row stride ldu when tU is
+// set), into rp when T is float32 (see recPacked), for the recurrent
+// products of one pass. Packing costs about a quarter of one 32×1024×256
+// product; a pass of T steps then saves it T−1 times.
+func packRec[T Float](rp *recPacked, tU bool, k, n int, u []T, ldu int) {
+	rp.ok = false
+	if !packedKernels || !isF32[T]() {
+		return
+	}
+	linalg.PackB(&rp.pb, tU, k, n, as32(u), ldu)
+	rp.ok = true
+}
+
+// mulRec computes C = A·op(U) + beta·C, A m×k, with op(U) as packRec
+// packed it into rp, or through linalg.Gemm when rp is not packed. Both
+// give the same bits (linalg.GemmPacked is Gemm without the repacking).
+func mulRec[T Float](p *linalg.Pool, rp *recPacked, tU bool, m, n, k int, a []T, lda int, u []T, ldu int, beta T, c []T, ldc int) {
+	if rp.ok {
+		linalg.GemmPacked(p, false, m, 1, as32(a), lda, &rp.pb, float32(beta), as32(c), ldc)
+		return
+	}
+	linalg.Gemm(p, false, tU, m, n, k, 1, a, lda, u, ldu, beta, c, ldc)
+}
+
+// rowLoop is an elementwise pass over the B rows (streams) of one step,
+// split by Pool.For into ranges of whole rows. Each pass computes a row
+// exactly as a loop over all rows would, so the result does not depend on
+// the number of threads.
+type rowLoop[T Float] struct {
+	pass rowPass
+	lp   *layerParams[T]
+	lw   *layerWork[T]
+	t, B int
+}
+
+// rowPass names the row functions of the cells (a switch rather than a
+// function value: an instantiated generic function value allocates).
+type rowPass uint8
+
+const (
+	lstmForwardPass rowPass = iota
+	lstmBackwardPass
+	gruForwardAfterPass
+	gruForwardBeforeRPass
+	gruForwardBeforeHPass
+	gruBackwardAfterPass
+	gruBackwardBeforeZPass
+	gruBackwardBeforeRPass
+	vanillaForwardPass
+	vanillaForwardReLUPass
+	vanillaBackwardPass
+	vanillaBackwardReLUPass
+)
+
+func (r *rowLoop[T]) Range(lo, hi int) {
+	switch r.pass {
+	case lstmForwardPass:
+		lstmForwardRows(r, lo, hi)
+	case lstmBackwardPass:
+		lstmBackwardRows(r, lo, hi)
+	case gruForwardAfterPass:
+		gruForwardAfterRows(r, lo, hi)
+	case gruForwardBeforeRPass:
+		gruForwardBeforeRRows(r, lo, hi)
+	case gruForwardBeforeHPass:
+		gruForwardBeforeHRows(r, lo, hi)
+	case gruBackwardAfterPass:
+		gruBackwardRows(r, lo, hi, true)
+	case gruBackwardBeforeZPass:
+		gruBackwardRows(r, lo, hi, false)
+	case gruBackwardBeforeRPass:
+		gruBackwardBeforeRRows(r, lo, hi)
+	case vanillaForwardPass, vanillaForwardReLUPass:
+		vanillaForwardRows(r, lo, hi, r.pass == vanillaForwardReLUPass)
+	case vanillaBackwardPass, vanillaBackwardReLUPass:
+		vanillaBackwardRows(r, lo, hi, r.pass == vanillaBackwardReLUPass)
+	default:
+		panic("rnn: unknown row pass")
+	}
+}
+
+// forRows runs pass over rows [0, B) of step t on p's threads, in ranges
+// of at least enough rows of width elements each to outweigh handing a
+// range to a worker.
+func forRows[T Float](p *linalg.Pool, lp *layerParams[T], lw *layerWork[T], t, B, width int, pass rowPass) {
+	r := &lw.cw.rows
+	*r = rowLoop[T]{pass: pass, lp: lp, lw: lw, t: t, B: B}
+	p.For(B, max(1, rowGrainElems/max(width, 1)), r)
+	r.lp, r.lw = nil, nil
+}
+
+// rowGrainElems is the number of elements (of a gate row) below which a
+// range of rows is not split further: about a microsecond of gate math,
+// the cost of handing a range to a spinning worker.
+const rowGrainElems = 256
+
+// isF32 reports whether T is float32.
+func isF32[T Float]() bool {
+	var z T
+	return unsafe.Sizeof(z) == 4
+}
+
+// as32 views a []T as []float32; call it only when isF32[T]().
+func as32[T Float](s []T) []float32 {
+	return unsafe.Slice((*float32)(unsafe.Pointer(unsafe.SliceData(s))), len(s))
 }

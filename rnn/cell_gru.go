@@ -37,59 +37,103 @@ func (c *gruCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[T
 	H := lp.hid
 	G := 3 * H
 	n := B * H
+	rz, rn := &lw.cw.pack[0], &lw.cw.pack[2]
+	if c.resetAfter {
+		packRec(rz, true, H, G, lp.wRec, H)
+	} else {
+		packRec(rz, true, H, 2*H, lp.wRec[:2*H*H], H)
+		packRec(rn, true, H, H, lp.wRec[2*H*H:], H)
+	}
 	for t := 0; t < steps; t++ {
 		hp := lw.h[t*n : (t+1)*n]
-		hn := lw.h[(t+1)*n : (t+2)*n]
 		a := lw.xg[t*B*G : (t+1)*B*G]
-		aux := lw.aux[t*n : (t+1)*n]
 		if c.resetAfter {
-			rec := lw.rec[:B*G]
 			t0 := lw.times.start()
-			linalg.Gemm(p, false, true, B, G, H, 1, hp, H, lp.wRec, H, 0, rec, G)
+			mulRec(p, rz, true, B, G, H, hp, H, lp.wRec, H, 0, lw.rec[:B*G], G)
 			lw.times.lap(PhaseRecurrence, t0)
-			for b := 0; b < B; b++ {
-				row, rr := a[b*G:(b+1)*G], rec[b*G:(b+1)*G]
-				for j := 0; j < 2*H; j++ {
-					row[j] += rr[j]
-				}
-				linalg.Sigmoid(row[:2*H], row[:2*H])
-				r, xn := row[:H], row[2*H:]
-				hnb := aux[b*H : (b+1)*H]
-				for j := 0; j < H; j++ {
-					hnb[j] = rr[2*H+j] + lp.bRec[j]
-					xn[j] += r[j] * hnb[j]
-				}
-				linalg.Tanh(xn, xn)
-			}
-		} else {
-			t0 := lw.times.start()
-			linalg.Gemm(p, false, true, B, 2*H, H, 1, hp, H, lp.wRec[:2*H*H], H, 1, a, G)
-			lw.times.lap(PhaseRecurrence, t0)
-			for b := 0; b < B; b++ {
-				row := a[b*G : (b+1)*G]
-				linalg.Sigmoid(row[:2*H], row[:2*H])
-				r := row[:H]
-				hpb, rh := hp[b*H:(b+1)*H], aux[b*H:(b+1)*H]
-				for j := 0; j < H; j++ {
-					rh[j] = r[j] * hpb[j]
-				}
-			}
-			t0 = lw.times.start()
-			linalg.Gemm(p, false, true, B, H, H, 1, aux, H, lp.wRec[2*H*H:], H, 1, a[2*H:], G)
-			lw.times.lap(PhaseRecurrence, t0)
-			for b := 0; b < B; b++ {
-				xn := a[b*G+2*H : (b+1)*G]
-				linalg.Tanh(xn, xn)
-			}
+			forRows(p, lp, lw, t, B, G, gruForwardAfterPass)
+			continue
 		}
-		for b := 0; b < B; b++ {
-			row := a[b*G : (b+1)*G]
-			z, nn := row[H:2*H], row[2*H:]
-			hpb, hb := hp[b*H:(b+1)*H], hn[b*H:(b+1)*H]
-			for j := 0; j < H; j++ {
-				hb[j] = (1-z[j])*nn[j] + z[j]*hpb[j]
-			}
+		t0 := lw.times.start()
+		mulRec(p, rz, true, B, 2*H, H, hp, H, lp.wRec[:2*H*H], H, 1, a, G)
+		lw.times.lap(PhaseRecurrence, t0)
+		forRows(p, lp, lw, t, B, 2*H, gruForwardBeforeRPass)
+		t0 = lw.times.start()
+		mulRec(p, rn, true, B, H, H, lw.aux[t*n:(t+1)*n], H, lp.wRec[2*H*H:], H, 1, a[2*H:], G)
+		lw.times.lap(PhaseRecurrence, t0)
+		forRows(p, lp, lw, t, B, H, gruForwardBeforeHPass)
+	}
+}
+
+// gruForwardAfterRows computes the gates and h_t of rows [lo, hi) of step
+// r.t for the reset-after form, from the input pre-activations in lw.xg and
+// the recurrent product in lw.rec.
+func gruForwardAfterRows[T Float](r *rowLoop[T], lo, hi int) {
+	lw, lp, t, B := r.lw, r.lp, r.t, r.B
+	H := lp.hid
+	G := 3 * H
+	n := B * H
+	a := lw.xg[t*B*G : (t+1)*B*G]
+	hp, hn, aux, rec := lw.h[t*n:(t+1)*n], lw.h[(t+1)*n:(t+2)*n], lw.aux[t*n:(t+1)*n], lw.rec[:B*G]
+	for b := lo; b < hi; b++ {
+		row, rr := a[b*G:(b+1)*G], rec[b*G:(b+1)*G]
+		for j := 0; j < 2*H; j++ {
+			row[j] += rr[j]
 		}
+		linalg.Sigmoid(row[:2*H], row[:2*H])
+		rg, xn := row[:H], row[2*H:]
+		hnb := aux[b*H : (b+1)*H]
+		for j := 0; j < H; j++ {
+			hnb[j] = rr[2*H+j] + lp.bRec[j]
+			xn[j] += rg[j] * hnb[j]
+		}
+		linalg.Tanh(xn, xn)
+		gruNewState(row, hp[b*H:(b+1)*H], hn[b*H:(b+1)*H], H)
+	}
+}
+
+// gruForwardBeforeRRows computes r and z of rows [lo, hi) of step r.t for
+// the reset-before form, and r ⊙ h_{t−1} into lw.aux.
+func gruForwardBeforeRRows[T Float](r *rowLoop[T], lo, hi int) {
+	lw, t, B := r.lw, r.t, r.B
+	H := r.lp.hid
+	G := 3 * H
+	n := B * H
+	a := lw.xg[t*B*G : (t+1)*B*G]
+	hp, aux := lw.h[t*n:(t+1)*n], lw.aux[t*n:(t+1)*n]
+	for b := lo; b < hi; b++ {
+		row := a[b*G : (b+1)*G]
+		linalg.Sigmoid(row[:2*H], row[:2*H])
+		rg := row[:H]
+		hpb, rh := hp[b*H:(b+1)*H], aux[b*H:(b+1)*H]
+		for j := 0; j < H; j++ {
+			rh[j] = rg[j] * hpb[j]
+		}
+	}
+}
+
+// gruForwardBeforeHRows computes n and h_t of rows [lo, hi) of step r.t for
+// the reset-before form.
+func gruForwardBeforeHRows[T Float](r *rowLoop[T], lo, hi int) {
+	lw, t, B := r.lw, r.t, r.B
+	H := r.lp.hid
+	G := 3 * H
+	n := B * H
+	a := lw.xg[t*B*G : (t+1)*B*G]
+	hp, hn := lw.h[t*n:(t+1)*n], lw.h[(t+1)*n:(t+2)*n]
+	for b := lo; b < hi; b++ {
+		row := a[b*G : (b+1)*G]
+		xn := row[2*H:]
+		linalg.Tanh(xn, xn)
+		gruNewState(row, hp[b*H:(b+1)*H], hn[b*H:(b+1)*H], H)
+	}
+}
+
+// gruNewState sets hb = (1 − z) ⊙ n + z ⊙ h_{t−1} for one row of gates.
+func gruNewState[T Float](row, hpb, hb []T, H int) {
+	z, nn := row[H:2*H], row[2*H:]
+	for j := 0; j < H; j++ {
+		hb[j] = (1-z[j])*nn[j] + z[j]*hpb[j]
 	}
 }
 
@@ -99,57 +143,26 @@ func (c *gruCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[
 	n := B * H
 	dnext := lw.dnext[:n]
 	clear(dnext)
+	rz, rn := &lw.cw.pack[1], &lw.cw.pack[3]
+	if c.resetAfter {
+		packRec(rz, false, G, H, lp.wRec, H)
+	} else {
+		packRec(rz, false, 2*H, H, lp.wRec[:2*H*H], H)
+		packRec(rn, false, H, H, lp.wRec[2*H*H:], H)
+	}
 	for t := steps - 1; t >= 0; t-- {
-		a := lw.xg[t*B*G : (t+1)*B*G]
 		d := lw.dxg[t*B*G : (t+1)*B*G]
-		hp := lw.h[t*n : (t+1)*n]
-		aux := lw.aux[t*n : (t+1)*n]
-		dhs := lw.dh[t*n : (t+1)*n]
-		for b := 0; b < B; b++ {
-			row, drow := a[b*G:(b+1)*G], d[b*G:(b+1)*G]
-			r, z, nn := row[:H], row[H:2*H], row[2*H:]
-			dr, dz, dn := drow[:H], drow[H:2*H], drow[2*H:]
-			off := b * H
-			hpb, dh, dnx, ab := hp[off:off+H], dhs[off:off+H], dnext[off:off+H], aux[off:off+H]
-			for j := 0; j < H; j++ {
-				gh := dh[j] + dnx[j]
-				dnp := gh * (1 - z[j]) * (1 - nn[j]*nn[j])
-				dz[j] = gh * (hpb[j] - nn[j]) * z[j] * (1 - z[j])
-				dn[j] = dnp
-				dnx[j] = gh * z[j]
-				if c.resetAfter {
-					dr[j] = dnp * ab[j] * r[j] * (1 - r[j]) // ab = U_n h + b_hn
-				}
-			}
-		}
 		if c.resetAfter {
-			// The recurrent pre-activation gradient differs from the input
-			// one only in the n block, which r scales.
+			forRows(p, lp, lw, t, B, G, gruBackwardAfterPass)
 			drg := lw.drg[t*B*G : (t+1)*B*G]
-			for b := 0; b < B; b++ {
-				row, drow, rrow := a[b*G:(b+1)*G], d[b*G:(b+1)*G], drg[b*G:(b+1)*G]
-				copy(rrow[:2*H], drow[:2*H])
-				for j := 0; j < H; j++ {
-					rrow[2*H+j] = drow[2*H+j] * row[j]
-				}
-			}
-			linalg.Gemm(p, false, false, B, H, G, 1, drg, G, lp.wRec, H, 1, dnext, H)
-		} else {
-			// ∂L/∂(r⊙h) = δn U_n, then through r and h_{t−1}.
-			drh := lw.tmp[:n]
-			linalg.Gemm(p, false, false, B, H, H, 1, d[2*H:], G, lp.wRec[2*H*H:], H, 0, drh, H)
-			for b := 0; b < B; b++ {
-				row, drow := a[b*G:(b+1)*G], d[b*G:(b+1)*G]
-				r := row[:H]
-				off := b * H
-				for j := 0; j < H; j++ {
-					g := drh[off+j]
-					drow[j] = g * hp[off+j] * r[j] * (1 - r[j])
-					dnext[off+j] += g * r[j]
-				}
-			}
-			linalg.Gemm(p, false, false, B, H, 2*H, 1, d, G, lp.wRec[:2*H*H], H, 1, dnext, H)
+			mulRec(p, rz, false, B, H, G, drg, G, lp.wRec, H, 1, dnext, H)
+			continue
 		}
+		forRows(p, lp, lw, t, B, G, gruBackwardBeforeZPass)
+		// ∂L/∂(r⊙h) = δn U_n, then through r and h_{t−1}.
+		mulRec(p, rn, false, B, H, H, d[2*H:], G, lp.wRec[2*H*H:], H, 0, lw.tmp[:n], H)
+		forRows(p, lp, lw, t, B, H, gruBackwardBeforeRPass)
+		mulRec(p, rz, false, B, H, 2*H, d, G, lp.wRec[:2*H*H], H, 1, dnext, H)
 	}
 	sB := steps * B
 	if c.resetAfter {
@@ -158,5 +171,71 @@ func (c *gruCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[
 	} else {
 		linalg.Gemm(p, true, false, 2*H, H, sB, 1, lw.dxg, G, lw.h, H, 1, lp.gwRec[:2*H*H], H)
 		linalg.Gemm(p, true, false, H, H, sB, 1, lw.dxg[2*H:], G, lw.aux, H, 1, lp.gwRec[2*H*H:], H)
+	}
+}
+
+// gruBackwardRows computes ∂L/∂z, ∂L/∂n (and for the reset-after form
+// ∂L/∂r and the recurrent pre-activation gradient in lw.drg) of rows
+// [lo, hi) of step r.t, and the part of ∂L/∂h_{t−1} that flows through z.
+func gruBackwardRows[T Float](r *rowLoop[T], lo, hi int, resetAfter bool) {
+	lw, t, B := r.lw, r.t, r.B
+	H := r.lp.hid
+	G := 3 * H
+	n := B * H
+	a := lw.xg[t*B*G : (t+1)*B*G]
+	d := lw.dxg[t*B*G : (t+1)*B*G]
+	hp := lw.h[t*n : (t+1)*n]
+	aux := lw.aux[t*n : (t+1)*n]
+	dhs := lw.dh[t*n : (t+1)*n]
+	dnext := lw.dnext[:n]
+	for b := lo; b < hi; b++ {
+		row, drow := a[b*G:(b+1)*G], d[b*G:(b+1)*G]
+		rg, z, nn := row[:H], row[H:2*H], row[2*H:]
+		dr, dz, dn := drow[:H], drow[H:2*H], drow[2*H:]
+		off := b * H
+		hpb, dh, dnx, ab := hp[off:off+H], dhs[off:off+H], dnext[off:off+H], aux[off:off+H]
+		for j := 0; j < H; j++ {
+			gh := dh[j] + dnx[j]
+			dnp := gh * (1 - z[j]) * (1 - nn[j]*nn[j])
+			dz[j] = gh * (hpb[j] - nn[j]) * z[j] * (1 - z[j])
+			dn[j] = dnp
+			dnx[j] = gh * z[j]
+			if resetAfter {
+				dr[j] = dnp * ab[j] * rg[j] * (1 - rg[j]) // ab = U_n h + b_hn
+			}
+		}
+		if resetAfter {
+			// The recurrent pre-activation gradient differs from the input
+			// one only in the n block, which r scales.
+			rrow := lw.drg[t*B*G+b*G : t*B*G+(b+1)*G]
+			copy(rrow[:2*H], drow[:2*H])
+			for j := 0; j < H; j++ {
+				rrow[2*H+j] = drow[2*H+j] * row[j]
+			}
+		}
+	}
+}
+
+// gruBackwardBeforeRRows takes ∂L/∂(r⊙h_{t−1}) of rows [lo, hi) of step
+// r.t (in lw.tmp) through r into ∂L/∂r and through h_{t−1} into lw.dnext,
+// for the reset-before form.
+func gruBackwardBeforeRRows[T Float](r *rowLoop[T], lo, hi int) {
+	lw, t, B := r.lw, r.t, r.B
+	H := r.lp.hid
+	G := 3 * H
+	n := B * H
+	a := lw.xg[t*B*G : (t+1)*B*G]
+	d := lw.dxg[t*B*G : (t+1)*B*G]
+	hp := lw.h[t*n : (t+1)*n]
+	drh, dnext := lw.tmp[:n], lw.dnext[:n]
+	for b := lo; b < hi; b++ {
+		row, drow := a[b*G:(b+1)*G], d[b*G:(b+1)*G]
+		rg := row[:H]
+		off := b * H
+		for j := 0; j < H; j++ {
+			g := drh[off+j]
+			drow[j] = g * hp[off+j] * rg[j] * (1 - rg[j])
+			dnext[off+j] += g * rg[j]
+		}
 	}
 }

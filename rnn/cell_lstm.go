@@ -29,34 +29,43 @@ func (c *lstmCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[
 	H := lp.hid
 	G := 4 * H
 	n := B * H
+	rp := &lw.cw.pack[0]
+	packRec(rp, true, H, G, lp.wRec, H)
 	for t := 0; t < steps; t++ {
 		hp := lw.h[t*n : (t+1)*n]
 		a := lw.xg[t*B*G : (t+1)*B*G]
 		t0 := lw.times.start()
-		linalg.Gemm(p, false, true, B, G, H, 1, hp, H, lp.wRec, H, 1, a, G)
+		mulRec(p, rp, true, B, G, H, hp, H, lp.wRec, H, 1, a, G)
 		lw.times.lap(PhaseRecurrence, t0)
-		for b := 0; b < B; b++ {
-			row := a[b*G : (b+1)*G]
-			linalg.Sigmoid(row[:2*H], row[:2*H])
-			linalg.Tanh(row[2*H:3*H], row[2*H:3*H])
-			linalg.Sigmoid(row[3*H:], row[3*H:])
-			i, f, g := row[:H], row[H:2*H], row[2*H:3*H]
-			cp := lw.c[t*n+b*H : t*n+(b+1)*H]
-			cn := lw.c[(t+1)*n+b*H : (t+1)*n+(b+1)*H]
-			for j := range cn {
-				cn[j] = f[j]*cp[j] + i[j]*g[j]
-			}
+		forRows(p, lp, lw, t, B, G, lstmForwardPass)
+	}
+}
+
+// lstmForwardRows computes the gates, c_t, tanh(c_t) and h_t of rows
+// [lo, hi) of step r.t from the pre-activations in lw.xg.
+func lstmForwardRows[T Float](r *rowLoop[T], lo, hi int) {
+	lw, t, B := r.lw, r.t, r.B
+	H := r.lp.hid
+	G := 4 * H
+	n := B * H
+	a := lw.xg[t*B*G : (t+1)*B*G]
+	for b := lo; b < hi; b++ {
+		row := a[b*G : (b+1)*G]
+		linalg.Sigmoid(row[:2*H], row[:2*H])
+		linalg.Tanh(row[2*H:3*H], row[2*H:3*H])
+		linalg.Sigmoid(row[3*H:], row[3*H:])
+		i, f, g, o := row[:H], row[H:2*H], row[2*H:3*H], row[3*H:]
+		off := b * H
+		cp := lw.c[t*n+off : t*n+off+H]
+		cn := lw.c[(t+1)*n+off : (t+1)*n+off+H]
+		for j := range cn {
+			cn[j] = f[j]*cp[j] + i[j]*g[j]
 		}
-		tc := lw.aux[t*n : (t+1)*n]
-		linalg.Tanh(tc, lw.c[(t+1)*n:(t+2)*n])
-		hn := lw.h[(t+1)*n : (t+2)*n]
-		for b := 0; b < B; b++ {
-			o := a[b*G+3*H : (b+1)*G]
-			tcb := tc[b*H : (b+1)*H]
-			hb := hn[b*H : (b+1)*H]
-			for j := range hb {
-				hb[j] = o[j] * tcb[j]
-			}
+		tcb := lw.aux[t*n+off : t*n+off+H]
+		linalg.Tanh(tcb, cn)
+		hb := lw.h[(t+1)*n+off : (t+1)*n+off+H]
+		for j := range hb {
+			hb[j] = o[j] * tcb[j]
 		}
 	}
 }
@@ -65,34 +74,47 @@ func (c *lstmCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork
 	H := lp.hid
 	G := 4 * H
 	n := B * H
-	dnext, dc := lw.dnext[:n], lw.dcnext[:n]
-	clear(dnext)
-	clear(dc)
+	clear(lw.dnext[:n])
+	clear(lw.dcnext[:n])
+	rp := &lw.cw.pack[1]
+	packRec(rp, false, G, H, lp.wRec, H)
 	for t := steps - 1; t >= 0; t-- {
-		a := lw.xg[t*B*G : (t+1)*B*G]
+		forRows(p, lp, lw, t, B, G, lstmBackwardPass)
 		d := lw.dxg[t*B*G : (t+1)*B*G]
-		for b := 0; b < B; b++ {
-			row := a[b*G : (b+1)*G]
-			i, f, g, o := row[:H], row[H:2*H], row[2*H:3*H], row[3*H:]
-			drow := d[b*G : (b+1)*G]
-			di, df, dg, do := drow[:H], drow[H:2*H], drow[2*H:3*H], drow[3*H:]
-			off := b * H
-			dh := lw.dh[t*n+off : t*n+off+H]
-			tc := lw.aux[t*n+off : t*n+off+H]
-			cp := lw.c[t*n+off : t*n+off+H]
-			dn := dnext[off : off+H]
-			dcb := dc[off : off+H]
-			for j := 0; j < H; j++ {
-				gh := dh[j] + dn[j]
-				dct := dcb[j] + gh*o[j]*(1-tc[j]*tc[j])
-				do[j] = gh * tc[j] * o[j] * (1 - o[j])
-				di[j] = dct * g[j] * i[j] * (1 - i[j])
-				dg[j] = dct * i[j] * (1 - g[j]*g[j])
-				df[j] = dct * cp[j] * f[j] * (1 - f[j])
-				dcb[j] = dct * f[j]
-			}
-		}
-		linalg.Gemm(p, false, false, B, H, G, 1, d, G, lp.wRec, H, 0, dnext, H)
+		mulRec(p, rp, false, B, H, G, d, G, lp.wRec, H, 0, lw.dnext[:n], H)
 	}
 	linalg.Gemm(p, true, false, G, H, steps*B, 1, lw.dxg, G, lw.h, H, 1, lp.gwRec, H)
+}
+
+// lstmBackwardRows computes the pre-activation gradients of rows [lo, hi)
+// of step r.t into lw.dxg and carries ∂L/∂c back in lw.dcnext.
+func lstmBackwardRows[T Float](r *rowLoop[T], lo, hi int) {
+	lw, t, B := r.lw, r.t, r.B
+	H := r.lp.hid
+	G := 4 * H
+	n := B * H
+	a := lw.xg[t*B*G : (t+1)*B*G]
+	d := lw.dxg[t*B*G : (t+1)*B*G]
+	dnext, dc := lw.dnext[:n], lw.dcnext[:n]
+	for b := lo; b < hi; b++ {
+		row := a[b*G : (b+1)*G]
+		i, f, g, o := row[:H], row[H:2*H], row[2*H:3*H], row[3*H:]
+		drow := d[b*G : (b+1)*G]
+		di, df, dg, do := drow[:H], drow[H:2*H], drow[2*H:3*H], drow[3*H:]
+		off := b * H
+		dh := lw.dh[t*n+off : t*n+off+H]
+		tc := lw.aux[t*n+off : t*n+off+H]
+		cp := lw.c[t*n+off : t*n+off+H]
+		dn := dnext[off : off+H]
+		dcb := dc[off : off+H]
+		for j := 0; j < H; j++ {
+			gh := dh[j] + dn[j]
+			dct := dcb[j] + gh*o[j]*(1-tc[j]*tc[j])
+			do[j] = gh * tc[j] * o[j] * (1 - o[j])
+			di[j] = dct * g[j] * i[j] * (1 - i[j])
+			dg[j] = dct * i[j] * (1 - g[j]*g[j])
+			df[j] = dct * cp[j] * f[j] * (1 - f[j])
+			dcb[j] = dct * f[j]
+		}
+	}
 }
