@@ -241,7 +241,7 @@ func ModelFromFile(f *File, path string) (*Model, error) {
 	if err != nil {
 		return nil, err
 	}
-	net, err := rnn.NewModel[float32](cfg, v.Len(), 0)
+	net, err := rnn.NewModelWithCounts[float32](cfg, VocabCounts(v), 0)
 	if err != nil {
 		return nil, fmt.Errorf("metadata %q: %w", MetaModelConfig, err)
 	}
@@ -260,6 +260,18 @@ func ModelFromFile(f *File, path string) (*Model, error) {
 		m.Step = st.Step
 	}
 	return m, nil
+}
+
+// VocabCounts returns the training count of every entry of v, by id: what
+// rnn.NewModelWithCounts makes the classes of a class-based output layer
+// from. The checkpoint's vocabulary records the counts, so a model rebuilt
+// from it gets the classes it was trained with.
+func VocabCounts(v *data.Vocab) []int64 {
+	counts := make([]int64, v.Len())
+	for id := range counts {
+		counts[id] = v.Count(id)
+	}
+	return counts
 }
 
 // CopyModel copies the "model." tensors of f into net's parameters. The
@@ -454,12 +466,21 @@ func openLatest(dir string) (*Model, error) {
 
 // marshalModelConfig writes cfg as a JSON object keyed by the run file's
 // key names (the toml tags), so that the metadata reads like the run file.
+// laterModelKeys are model keys added after format version 1, each with
+// the value that means what a file without the key meant. marshalModelConfig
+// writes them only when they differ (or are empty), so a model that does not
+// use them is saved byte for byte as before, and older builds still read it.
+var laterModelKeys = map[string]any{"output_layer": "full", "output_classes": 0}
+
 func marshalModelConfig(cfg rnn.Config) ([]byte, error) {
 	obj := map[string]any{}
 	rv := reflect.ValueOf(cfg)
 	rt := rv.Type()
 	for i := 0; i < rt.NumField(); i++ {
 		if key := tomlKey(rt.Field(i)); key != "" {
+			if d, ok := laterModelKeys[key]; ok && (rv.Field(i).IsZero() || rv.Field(i).Interface() == d) {
+				continue
+			}
 			obj[key] = rv.Field(i).Interface()
 		}
 	}

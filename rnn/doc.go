@@ -64,6 +64,8 @@
 //	projection.weight          P×H     projection_size > 0
 //	output.weight              V×K     unless tie_embeddings
 //	output.bias                V
+//	output.class_weight        C×K     output_layer = "class" (C classes)
+//	output.class_bias          C       output_layer = "class"
 //
 // Rows of the G-wide tensors are gate blocks of H rows each, in this order:
 //
@@ -89,6 +91,34 @@
 // (testdata/torch_reference.py), and the reset-before GRU against the same
 // equations written out in torch operations there.
 //
+// # Output layer
+//
+// The default output layer ("full") is the softmax over all V ids above.
+// With output_layer = "class" it is the two-level softmax of Goodman
+// (2001), "Classes for fast maximum entropy training": the ids are cut into
+// C classes and, with p_t the output layer's input,
+//
+//	s_t = W_c p_t + b_c                       class scores (output.class_weight, output.class_bias)
+//	u_t = W_y[c] p_t + b_y[c]                 word scores over the ids of class c only
+//	P(w | h_t) = softmax(s_t)[c(w)] · softmax(u_t)[w]   with c = c(w)
+//
+// which sums to 1 over the whole vocabulary exactly: no sampled or
+// approximate normaliser enters any reported figure. Training and scoring
+// compute s_t and u_t for the target's class only: C + |c(w)| scores per
+// position instead of V (the positions of a window are grouped by their
+// target's class, one matrix product per class); a Stream computes the whole
+// distribution. The classes are contiguous ranges of ids, made by
+// FrequencyClasses from the training counts (NewModelWithCounts):
+// frequency binning as in Mikolov et al. (2011), "Extensions of recurrent
+// neural network language model" (from memory: their section 3 assigns
+// words to classes by unigram frequency, each class about 1/C of the
+// tokens); the vocabulary lists ids by decreasing count, so the first
+// classes hold few frequent words, the last many rare ones. Rows
+// start(c)…start(c+1)−1 of output.weight and output.bias are class c's, so
+// tie_embeddings works unchanged. output_classes = 0 means C = round(√V),
+// which minimises C + V/C for classes of equal size. With C = 1 or C = V the
+// layer is one softmax (TestClassLimits).
+//
 // # Initialisation
 //
 // NewModel draws every parameter from one math/rand/v2 PCG stream seeded
@@ -103,6 +133,7 @@
 // before sums so that no fused multiply-add enters (the arm64 code was
 // checked for them): the same seed gives bit-identical weights on every
 // platform, which TestInitialisationDigest pins with a frozen digest.
+// output.class_weight follows init like output.weight and is drawn after it.
 //
 // # Training
 //
@@ -168,7 +199,9 @@
 //	+ dropout: R·E + 2·R·H per layer (masks, dropped outputs)
 //
 // plus a few B×H scratch rows per layer and the matrix kernels' packing
-// workspace. At the reference shape (V=96, E=64, H=256, B=32, T=64, one
+// workspace. The class output layer replaces the R·V logits by
+// R·(C + 2K + w) (class scores, grouped input rows and their gradient, word
+// scores, w the largest class). At the reference shape (V=96, E=64, H=256, B=32, T=64, one
 // LSTM layer, Adam, float32) this is 32.9 MB; TestWindowMemory measures the
 // bytes allocated to build the model and trainer and run one window against
 // it (39.7 MB, 1.21×, when written; the bound it enforces is 1.5×).
@@ -177,7 +210,8 @@
 //
 // The gradients are checked by central finite differences in float64 for
 // every tensor of every cell and form, one and two layers, tied and untied,
-// one-hot and with dropout, from a carried state (gradcheck_test.go),
+// one-hot and with dropout, with the class output layer, from a carried
+// state (gradcheck_test.go),
 // against gorgonia's symbolic gradients of the same graphs
 // (gorgonia_test.go; gorgonia is imported by tests only) and against
 // PyTorch's forward values and gradients (reference_test.go). Optimizer

@@ -313,7 +313,7 @@ func (s *session) build(f *checkpoint.File, path string) error {
 		}
 		s.prog = p
 	}
-	net, err := rnn.NewModel[float32](r.Model, s.ds.Vocab.Len(), r.Training.Seed)
+	net, err := rnn.NewModelWithCounts[float32](r.Model, checkpoint.VocabCounts(s.ds.Vocab), r.Training.Seed)
 	if err != nil {
 		return err
 	}
