@@ -1,0 +1,381 @@
+package main
+
+import (
+	"encoding/json"
+	"fmt"
+	"io"
+	"math/rand/v2"
+	"runtime"
+	"slices"
+	"strings"
+	"text/tabwriter"
+	"time"
+
+	"github.com/spf13/cobra"
+
+	"weft/configs"
+	"weft/rnn"
+	"weft/rnn/linalg"
+)
+
+type benchOptions struct {
+	cmdContext
+	Config  string // run file; "" means the defaults (the reference LSTM)
+	Set     []string
+	Vocab   int
+	Windows int
+	Warmup  int
+	Threads int // -1: training.threads of the run file
+	JSON    bool
+}
+
+func newBenchCmd(d *deps, runF func(*benchOptions) error) *cobra.Command {
+	opts := &benchOptions{}
+	cmd := &cobra.Command{
+		Use:   "bench [CONFIG] [--set key=value]... [--vocab N] [--windows N] [--threads N] [--json]",
+		Short: "Measure training speed on synthetic tokens: tokens/s, GFLOP/s, time per phase, peak memory",
+		Long: `Build the model a run file describes (without CONFIG, the defaults: a
+1-layer LSTM with hidden_size 256, embedding_size 64, batch_size 32 and
+unroll_steps 64), feed it synthetic tokens (uniform ids below --vocab, drawn
+from training.seed), train --warmup windows that are not timed, then time
+--windows windows of full training steps (forward, loss, backward, clipping,
+optimizer update) in float32. The corpus of the run file is not read.
+
+It prints tokens per second, GFLOP/s of the matrix products with the
+formula used, the time split by phase (input projection, recurrence, gate
+arithmetic, output layer with softmax, backward pass, update), the peak
+resident memory of the process and the Go heap. --json prints the same as
+one JSON object.`,
+		Args: rangeArgs(0, 1, "at most one run file"),
+		RunE: func(cmd *cobra.Command, args []string) error {
+			opts.cmdContext = cmdContext{cmd.Context(), d}
+			if len(args) == 1 {
+				opts.Config = args[0]
+			}
+			if !cmd.Flags().Changed("threads") {
+				opts.Threads = -1
+			}
+			if runF != nil {
+				return runF(opts)
+			}
+			return runBench(opts)
+		},
+	}
+	f := cmd.Flags()
+	addSetFlag(cmd, &opts.Set)
+	f.IntVar(&opts.Vocab, "vocab", 96, "vocabulary size of the synthetic tokens")
+	f.IntVar(&opts.Windows, "windows", 20, "timed training windows")
+	f.IntVar(&opts.Warmup, "warmup", 2, "untimed windows before them")
+	f.IntVar(&opts.Threads, "threads", 0, "threads for the matrix kernels (default training.threads; 0 means one per core)")
+	f.BoolVar(&opts.JSON, "json", false, "print the measurements as JSON")
+	return cmd
+}
+
+// benchShape is the resolved model and window shape of a bench run.
+type benchShape struct {
+	Cell       string `json:"cell"`
+	Layers     int    `json:"layers"`
+	Vocab      int    `json:"vocab"`
+	Embedding  int    `json:"embedding"`
+	Hidden     int    `json:"hidden"`
+	Projection int    `json:"projection"`
+	Batch      int    `json:"batch"`
+	Unroll     int    `json:"unroll"`
+	Threads    int    `json:"threads"`
+	Optimizer  string `json:"optimizer"`
+	DType      string `json:"dtype"`
+	Parameters int    `json:"parameters"`
+}
+
+// benchReport is what bench measured; its JSON form is for scripts.
+type benchReport struct {
+	Model               benchShape         `json:"model"`
+	WarmupWindows       int                `json:"warmup_windows"`
+	Windows             int                `json:"windows"`
+	Tokens              int64              `json:"tokens"` // positions that added to the loss in the timed windows
+	Seconds             float64            `json:"seconds"`
+	WindowSecondsMedian float64            `json:"window_seconds_median"`
+	TokensPerSecond     float64            `json:"tokens_per_second"`
+	FLOPPerToken        float64            `json:"flop_per_token"`
+	FLOPFormula         string             `json:"flop_formula"`
+	GFLOPsPerSecond     float64            `json:"gflops_per_second"`
+	PhaseSeconds        map[string]float64 `json:"phase_seconds"`
+	FinalLoss           float64            `json:"final_loss_nats"`
+	PeakRSSBytes        int64              `json:"peak_rss_bytes"` // 0 where the system does not say
+	HeapInUseBytes      uint64             `json:"heap_in_use_bytes"`
+	HeapSysBytes        uint64             `json:"heap_sys_bytes"`
+	AllocBytesPerWindow float64            `json:"alloc_bytes_per_window"`
+	AllocsPerWindow     float64            `json:"allocs_per_window"`
+}
+
+func runBench(opts *benchOptions) error {
+	switch {
+	case opts.Vocab < 1:
+		return usagef("--vocab must be at least 1, got %d", opts.Vocab)
+	case opts.Windows < 1:
+		return usagef("--windows must be at least 1, got %d", opts.Windows)
+	case opts.Warmup < 0:
+		return usagef("--warmup must be 0 or more, got %d", opts.Warmup)
+	case opts.Threads < -1:
+		return usagef("--threads must be 0 (one per core) or more, got %d", opts.Threads)
+	}
+	r, err := benchRun(opts.Config, opts.Set)
+	if err != nil {
+		return err
+	}
+	if opts.Threads >= 0 {
+		r.Training.Threads = opts.Threads
+	}
+	if r.Training.Threads == 0 {
+		r.Training.Threads = runtime.NumCPU()
+	}
+	rep, err := bench(opts, r)
+	if err != nil {
+		return err
+	}
+	if opts.JSON {
+		enc := json.NewEncoder(opts.Out)
+		enc.SetIndent("", "  ")
+		return enc.Encode(rep)
+	}
+	printBench(opts.Out, rep)
+	return nil
+}
+
+// benchRun reads the run file, or the defaults with the overrides applied.
+func benchRun(path string, sets []string) (*configs.Run, error) {
+	if path != "" {
+		return configs.Load(path, sets)
+	}
+	// The corpus is never read; data.files only has to be valid.
+	return configs.Parse("--set", []byte("[data]\nfiles = [\"-\"]\n"), sets)
+}
+
+// benchStream is the PCG stream constant of the synthetic tokens.
+const benchStream = 0x77656674_62656e63 // "weftbenc"
+
+// bench builds the model of r and trains it on synthetic windows.
+func bench(opts *benchOptions, r *configs.Run) (*benchReport, error) {
+	tc := r.Training.TrainConfig
+	net, err := rnn.NewModel[float32](r.Model, opts.Vocab, tc.Seed)
+	if err != nil {
+		return nil, err
+	}
+	pool := linalg.NewPool(tc.Threads)
+	defer pool.Close()
+	net.SetPool(pool)
+	tr, err := rnn.NewTrainer(net, tc, pool)
+	if err != nil {
+		return nil, err
+	}
+	B, U := tc.BatchSize, tc.UnrollSteps
+	T := U
+	if tc.BPTTAdvanceSteps > 0 {
+		T = tc.BPTTAdvanceSteps
+	}
+	n := opts.Warmup + opts.Windows
+	wins := synthWindows(opts.Vocab, B, T, n, tc.Seed)
+
+	var pt rnn.PhaseTimes
+	tr.SetPhaseTimes(&pt)
+	ctx := opts.ctx
+	var last rnn.StepInfo
+	for _, w := range wins[:opts.Warmup] {
+		if last, err = tr.Step(ctx, w); err != nil {
+			return nil, err
+		}
+	}
+	pt = rnn.PhaseTimes{}
+	times := make([]time.Duration, opts.Windows)
+	var tokens int64
+	var before, after runtime.MemStats
+	runtime.ReadMemStats(&before)
+	for i, w := range wins[opts.Warmup:] {
+		t0 := time.Now()
+		last, err = tr.Step(ctx, w)
+		times[i] = time.Since(t0)
+		if err != nil {
+			return nil, err
+		}
+		tokens += int64(last.Tokens)
+	}
+	runtime.ReadMemStats(&after)
+
+	var total time.Duration
+	for _, d := range times {
+		total += d
+	}
+	flop, formula := benchFLOPs(r, opts.Vocab)
+	positions := benchPositions(tc, opts.Warmup, opts.Windows)
+	sec := total.Seconds()
+	rep := &benchReport{
+		Model: benchShape{
+			Cell: net.Cell().Name(), Layers: r.Model.Layers, Vocab: opts.Vocab,
+			Embedding: r.Model.EmbeddingSize, Hidden: r.Model.HiddenSize, Projection: r.Model.ProjectionSize,
+			Batch: B, Unroll: U, Threads: pool.Threads(), Optimizer: tc.Optimizer, DType: "float32",
+			Parameters: net.NumParams(),
+		},
+		WarmupWindows:       opts.Warmup,
+		Windows:             opts.Windows,
+		Tokens:              tokens,
+		Seconds:             sec,
+		WindowSecondsMedian: median(times).Seconds(),
+		TokensPerSecond:     float64(tokens) / sec,
+		FLOPPerToken:        flop,
+		FLOPFormula:         formula,
+		GFLOPsPerSecond:     flop * float64(positions) / sec / 1e9,
+		PhaseSeconds:        map[string]float64{},
+		FinalLoss:           last.Loss,
+		HeapInUseBytes:      after.HeapInuse,
+		HeapSysBytes:        after.HeapSys,
+		AllocBytesPerWindow: float64(after.TotalAlloc-before.TotalAlloc) / float64(opts.Windows),
+		AllocsPerWindow:     float64(after.Mallocs-before.Mallocs) / float64(opts.Windows),
+	}
+	for p := range rnn.NumPhases {
+		rep.PhaseSeconds[p.String()] = pt[p].Seconds()
+	}
+	if rss, ok := peakRSS(); ok {
+		rep.PeakRSSBytes = rss
+	}
+	return rep, nil
+}
+
+// synthWindows returns n consecutive windows of B streams and T steps over
+// uniform token ids below V: each stream is one sequence, so the target of
+// a window's last step is the first input of the next window.
+func synthWindows(V, B, T, n int, seed uint64) []rnn.Window {
+	rng := rand.New(rand.NewPCG(seed, benchStream))
+	L := n*T + 1
+	seq := make([]int, B*L) // stream b is seq[b*L : (b+1)*L]
+	for i := range seq {
+		seq[i] = rng.IntN(V)
+	}
+	wins := make([]rnn.Window, n)
+	for k := range wins {
+		in, tg := make([]int, T*B), make([]int, T*B)
+		for t := 0; t < T; t++ {
+			for b := 0; b < B; b++ {
+				in[t*B+b] = seq[b*L+k*T+t]
+				tg[t*B+b] = seq[b*L+k*T+t+1]
+			}
+		}
+		wins[k] = rnn.Window{B: B, T: T, Inputs: in, Targets: tg}
+	}
+	return wins
+}
+
+// benchFLOPs is the floating-point operations of the matrix products per
+// position of a window, and the formula with the numbers put in. Every
+// product of the forward pass (m·n·k multiply-adds) has two of the same
+// size in the backward pass (the gradient with respect to its input and
+// with respect to its weights), and a multiply-add is 2 operations: 6
+// operations per weight per position. The weights a position goes through
+// are those of the input projection (E·G, none for one-hot input, which is
+// a gather), the recurrence (H·G per layer) and the input of layers 2..L
+// (H·G each), together (2L−1)·H·G, the projection (H·P) and the output layer (K·V, K = P or H),
+// with G = gates·H. The output layer is counted as a full softmax over V.
+// Gate arithmetic, the softmax and the embedding gather are not counted.
+func benchFLOPs(r *configs.Run, V int) (float64, string) {
+	c := r.Model
+	gates := map[string]int{"rnn": 1, "gru": 3, "lstm": 4}[c.Cell]
+	E, H, P, L := c.EmbeddingSize, c.HiddenSize, c.ProjectionSize, c.Layers
+	G := gates * H
+	var terms, nums []string
+	macs := 0
+	add := func(term string, count, a, b int) {
+		if count == 0 || a == 0 || b == 0 {
+			return
+		}
+		macs += count * a * b
+		if count > 1 {
+			terms = append(terms, fmt.Sprintf("%d·%s", count, term))
+			nums = append(nums, fmt.Sprintf("%d·%d·%d", count, a, b))
+		} else {
+			terms = append(terms, term)
+			nums = append(nums, fmt.Sprintf("%d·%d", a, b))
+		}
+	}
+	add("E·G", 1, E, G)
+	add("H·G", 2*L-1, H, G) // the recurrence of every layer, the input of layers 2..L
+	add("H·P", 1, H, P)
+	if P > 0 {
+		add("P·V", 1, P, V)
+	} else {
+		add("H·V", 1, H, V)
+	}
+	flop := 6 * float64(macs)
+	formula := fmt.Sprintf("6 × (%s) = 6 × (%s) = %s FLOP per token, G = %d·H",
+		strings.Join(terms, " + "), strings.Join(nums, " + "), thousands(int64(flop)), gates)
+	return flop, formula
+}
+
+// benchPositions is the number of positions the timed windows run through
+// the model: B·T each, and with BPTT(h; h′) replay the replayed steps too.
+func benchPositions(tc rnn.TrainConfig, warmup, windows int) int64 {
+	B, U, a := tc.BatchSize, tc.UnrollSteps, tc.BPTTAdvanceSteps
+	if a == 0 || a >= U {
+		return int64(B) * int64(U) * int64(windows)
+	}
+	keep := U - a
+	var n int64
+	hist := 0
+	for i := 0; i < warmup+windows; i++ {
+		steps := hist + a
+		if i >= warmup {
+			n += int64(B) * int64(steps)
+		}
+		hist = min(keep, steps)
+	}
+	return n
+}
+
+func median(ds []time.Duration) time.Duration {
+	s := slices.Clone(ds)
+	slices.Sort(s)
+	m := len(s) / 2
+	if len(s)%2 == 1 {
+		return s[m]
+	}
+	return (s[m-1] + s[m]) / 2
+}
+
+func printBench(w io.Writer, r *benchReport) {
+	m := r.Model
+	shape := fmt.Sprintf("%s %d×%d", m.Cell, m.Layers, m.Hidden)
+	if m.Projection > 0 {
+		shape += fmt.Sprintf(", projection %d", m.Projection)
+	}
+	fmt.Fprintf(w, "model     %s, vocabulary %d, embedding %d, %s parameters, %s, %s\n",
+		shape, m.Vocab, m.Embedding, thousands(int64(m.Parameters)), m.Optimizer, m.DType)
+	fmt.Fprintf(w, "windows   %d of %d streams × %d steps after %d untimed, %d thread(s)\n",
+		r.Windows, m.Batch, m.Unroll, r.WarmupWindows, m.Threads)
+	fmt.Fprintf(w, "speed     %s tokens/s (%s tokens in %.3f s; median window %.1f ms)\n",
+		thousands(int64(r.TokensPerSecond+0.5)), thousands(r.Tokens), r.Seconds, 1000*r.WindowSecondsMedian)
+	fmt.Fprintf(w, "compute   %.1f GFLOP/s of matrix products\n", r.GFLOPsPerSecond)
+	fmt.Fprintf(w, "          %s\n", r.FLOPFormula)
+	fmt.Fprintf(w, "          (multiply-adds × 2, for each forward product and the two backward products of its size;\n")
+	fmt.Fprintf(w, "          the output layer as a full softmax; gate arithmetic and softmax not counted)\n")
+	fmt.Fprintf(w, "loss      %.4f nats per token on the last window\n", r.FinalLoss)
+	fmt.Fprintln(w)
+	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
+	fmt.Fprintln(tw, "phase\tseconds\tshare\tms/window\t")
+	var sum float64
+	for p := range rnn.NumPhases {
+		s := r.PhaseSeconds[p.String()]
+		sum += s
+		fmt.Fprintf(tw, "%s\t%.3f\t%.1f%%\t%.2f\t\n", p, s, 100*s/r.Seconds, 1000*s/float64(r.Windows))
+	}
+	other := max(r.Seconds-sum, 0)
+	fmt.Fprintf(tw, "other\t%.3f\t%.1f%%\t%.2f\t\n", other, 100*other/r.Seconds, 1000*other/float64(r.Windows))
+	tw.Flush()
+	fmt.Fprintln(w)
+	rss := "unknown on this system"
+	if r.PeakRSSBytes > 0 {
+		rss = megabytes(uint64(r.PeakRSSBytes))
+	}
+	fmt.Fprintf(w, "memory    peak resident %s; Go heap %s in use of %s obtained\n",
+		rss, megabytes(r.HeapInUseBytes), megabytes(r.HeapSysBytes))
+	fmt.Fprintf(w, "          allocated per timed window: %.0f bytes in %.1f objects\n", r.AllocBytesPerWindow, r.AllocsPerWindow)
+}
+
+func megabytes(b uint64) string { return fmt.Sprintf("%.1f MB", float64(b)/1e6) }

@@ -1,0 +1,220 @@
+package main
+
+import (
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"runtime"
+	"slices"
+	"strings"
+	"testing"
+
+	"weft/rnn"
+)
+
+func TestBenchFlags(t *testing.T) {
+	var got *benchOptions
+	cmd := newBenchCmd(&deps{}, func(o *benchOptions) error { got = o; return nil })
+	cmd.SetArgs([]string{"run.toml", "--set", "model.cell=gru", "--set", "training.batch_size=8",
+		"--vocab", "500", "--windows", "7", "--warmup", "1", "--threads", "2", "--json"})
+	if err := cmd.Execute(); err != nil {
+		t.Fatal(err)
+	}
+	if got.Config != "run.toml" || !slices.Equal(got.Set, []string{"model.cell=gru", "training.batch_size=8"}) ||
+		got.Vocab != 500 || got.Windows != 7 || got.Warmup != 1 || got.Threads != 2 || !got.JSON {
+		t.Errorf("parsed %+v", got)
+	}
+	got = nil
+	cmd = newBenchCmd(&deps{}, func(o *benchOptions) error { got = o; return nil })
+	cmd.SetArgs(nil)
+	if err := cmd.Execute(); err != nil {
+		t.Fatal(err)
+	}
+	// Without --threads the run file's training.threads decides (-1).
+	if got.Config != "" || got.Vocab != 96 || got.Windows != 20 || got.Warmup != 2 || got.Threads != -1 || got.JSON {
+		t.Errorf("defaults: parsed %+v", got)
+	}
+}
+
+func TestBenchUsageErrors(t *testing.T) {
+	for _, args := range [][]string{
+		{"bench", "--windows", "0"},
+		{"bench", "--vocab", "0"},
+		{"bench", "--warmup", "-1"},
+		{"bench", "a.toml", "b.toml"},
+	} {
+		code, _, stderr := runCmd(t, "", args...)
+		if code != exitUsage || !strings.HasPrefix(stderr, "weft: ") {
+			t.Errorf("%v: got exit %d stderr %q, want exit %d and a weft: message", args, code, stderr, exitUsage)
+		}
+	}
+	code, _, stderr := runCmd(t, "", "bench", "--set", "model.hidden_size=0")
+	if code != exitFailure || !strings.Contains(stderr, "model.hidden_size") {
+		t.Errorf("bad --set: got exit %d stderr %q, want exit 1 naming the key", code, stderr)
+	}
+}
+
+// TestBenchJSON runs a tiny bench and checks its JSON: the keys scripts
+// read, the resolved shape, the token count (B·T per timed window), positive
+// speeds, phases within the timed total, and a first-window loss near ln V
+// (uniform tokens; an untrained model predicts about uniformly).
+func TestBenchJSON(t *testing.T) {
+	dir := t.TempDir()
+	path := filepath.Join(dir, "run.toml")
+	src := "[data]\nfiles = [\"absent.txt\"]\n[model]\ncell = \"gru\"\nlayers = 2\nhidden_size = 16\nembedding_size = 8\n[training]\nbatch_size = 4\nunroll_steps = 8\n"
+	if err := os.WriteFile(path, []byte(src), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	code, out, stderr := runCmd(t, "", "bench", path, "--set", "model.hidden_size=12", "--vocab", "20",
+		"--windows", "2", "--warmup", "0", "--threads", "1", "--json")
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var keys map[string]any
+	if err := json.Unmarshal([]byte(out), &keys); err != nil {
+		t.Fatalf("output is not JSON: %v\n%s", err, out)
+	}
+	for _, k := range []string{"tokens_per_second", "gflops_per_second", "peak_rss_bytes", "model", "phase_seconds", "flop_formula"} {
+		if _, ok := keys[k]; !ok {
+			t.Errorf("JSON lacks %q", k)
+		}
+	}
+	var rep benchReport
+	if err := json.Unmarshal([]byte(out), &rep); err != nil {
+		t.Fatal(err)
+	}
+	wantShape := benchShape{Cell: "gru", Layers: 2, Vocab: 20, Embedding: 8, Hidden: 12, Batch: 4, Unroll: 8,
+		Threads: 1, Optimizer: "adam", DType: "float32", Parameters: rep.Model.Parameters}
+	if rep.Model != wantShape {
+		t.Errorf("model: got %+v, want %+v", rep.Model, wantShape)
+	}
+	if rep.Tokens != 2*4*8 {
+		t.Errorf("tokens: got %d, want %d (2 windows of 4×8)", rep.Tokens, 2*4*8)
+	}
+	if !(rep.TokensPerSecond > 0 && rep.GFLOPsPerSecond > 0 && rep.Seconds > 0 && rep.FLOPPerToken > 0) {
+		t.Errorf("got %v tokens/s, %v GFLOP/s, %v s, %v FLOP per token, want all positive",
+			rep.TokensPerSecond, rep.GFLOPsPerSecond, rep.Seconds, rep.FLOPPerToken)
+	}
+	if runtime.GOOS == "linux" || runtime.GOOS == "darwin" {
+		if rep.PeakRSSBytes <= 0 {
+			t.Errorf("peak_rss_bytes %d, want positive on %s", rep.PeakRSSBytes, runtime.GOOS)
+		}
+	}
+	var sum float64
+	for p := range rnn.NumPhases {
+		s, ok := rep.PhaseSeconds[p.String()]
+		if !ok || !(s > 0) {
+			t.Errorf("phase %s: got %v (present %v), want a positive time", p, s, ok)
+		}
+		sum += s
+	}
+	if sum > rep.Seconds {
+		t.Errorf("phases sum to %v s, more than the %v s of the timed windows", sum, rep.Seconds)
+	}
+	// A uniform prediction over V = 20 has cross-entropy ln 20 ≈ 3.00 nats
+	// (common practice); two Adam steps from a small initialisation stay
+	// near it.
+	if rep.FinalLoss < 2.5 || rep.FinalLoss > 3.5 {
+		t.Errorf("final loss %v nats, want about ln 20 = 3.00", rep.FinalLoss)
+	}
+
+	code, text, stderr := runCmd(t, "", "bench", "--set", "model.hidden_size=8", "--set", "model.embedding_size=4",
+		"--set", "training.batch_size=2", "--set", "training.unroll_steps=4", "--windows", "1", "--threads", "1")
+	if code != exitOK {
+		t.Fatalf("text output: exit %d: %s", code, stderr)
+	}
+	for _, want := range []string{"tokens/s", "GFLOP/s", "6 × (E·G + H·G + H·V)", "recurrence", "peak resident"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("text output lacks %q:\n%s", want, text)
+		}
+	}
+}
+
+// TestBenchFLOPs checks the operation count against the reference LSTM of
+// the engine notes (ENGINE.md: 6 × (E·4H + H·4H + H·V) = 6 × 352,256 per
+// token for V=96, E=64, H=256) and against counts worked out by hand.
+func TestBenchFLOPs(t *testing.T) {
+	tests := []struct {
+		name string
+		sets []string
+		V    int
+		want float64
+	}{
+		{"reference lstm", nil, 96, 6 * 352256},
+		// 2 layers, E=128, H=512, G=2048: 128·2048 + 3·512·2048 + 512·96
+		// = 262,144 + 3,145,728 + 49,152 = 3,457,024 multiply-adds.
+		{"2-layer lstm", []string{"model.layers=2", "model.hidden_size=512", "model.embedding_size=128"}, 96, 6 * 3457024},
+		// GRU, E=H=256, G=768: 256·768 + 256·768 + 256·10000 = 2,953,216.
+		{"gru word", []string{"model.cell=gru", "model.embedding_size=256"}, 10000, 6 * 2953216},
+		// One-hot input (a gather, no product), projection P=32:
+		// 256·1024 + 256·32 + 32·96 = 262,144 + 8,192 + 3,072 = 273,408.
+		{"one-hot with projection", []string{"model.embedding_size=0", "model.projection_size=32"}, 96, 6 * 273408},
+	}
+	for _, tt := range tests {
+		t.Run(tt.name, func(t *testing.T) {
+			r, err := benchRun("", tt.sets)
+			if err != nil {
+				t.Fatal(err)
+			}
+			got, formula := benchFLOPs(r, tt.V)
+			if got != tt.want {
+				t.Errorf("got %v FLOP per token (%s), want %v", got, formula, tt.want)
+			}
+		})
+	}
+}
+
+// TestSynthWindows checks that the synthetic windows are continuous
+// streams (a window's last target is the next window's first input) of
+// ids below V, the same for the same seed.
+func TestSynthWindows(t *testing.T) {
+	const V, B, T, n = 7, 3, 5, 4
+	w := synthWindows(V, B, T, n, 1)
+	for k := range w {
+		for i := range w[k].Inputs {
+			if w[k].Inputs[i] < 0 || w[k].Inputs[i] >= V || w[k].Targets[i] < 0 || w[k].Targets[i] >= V {
+				t.Fatalf("window %d position %d: ids %d, %d outside 0..%d", k, i, w[k].Inputs[i], w[k].Targets[i], V-1)
+			}
+		}
+		for tt := 0; tt+1 < T; tt++ {
+			for b := 0; b < B; b++ {
+				if w[k].Targets[tt*B+b] != w[k].Inputs[(tt+1)*B+b] {
+					t.Errorf("window %d step %d stream %d: target %d, next input %d", k, tt, b, w[k].Targets[tt*B+b], w[k].Inputs[(tt+1)*B+b])
+				}
+			}
+		}
+		if k+1 < n {
+			for b := 0; b < B; b++ {
+				if got, want := w[k].Targets[(T-1)*B+b], w[k+1].Inputs[b]; got != want {
+					t.Errorf("window %d stream %d: last target %d, next window's first input %d", k, b, got, want)
+				}
+			}
+		}
+	}
+	again := synthWindows(V, B, T, n, 1)
+	if !slices.Equal(w[n-1].Inputs, again[n-1].Inputs) {
+		t.Errorf("same seed gave different tokens")
+	}
+}
+
+// TestPeakRSSUnits touches 64 MiB and checks that the peak resident size
+// is at least that: a kibibyte count read as bytes (the Linux unit of
+// ru_maxrss, getrusage(2)) would fall short by 1024×.
+func TestPeakRSSUnits(t *testing.T) {
+	if runtime.GOOS != "linux" && runtime.GOOS != "darwin" {
+		t.Skip("getrusage not read on", runtime.GOOS)
+	}
+	const size = 64 << 20
+	buf := make([]byte, size)
+	for i := range buf {
+		buf[i] = byte(i)
+	}
+	rss, ok := peakRSS()
+	if !ok || rss < size {
+		t.Errorf("peak RSS %d bytes (ok %v) after touching %d bytes, want at least that", rss, ok, size)
+	}
+	if rss > 1<<40 {
+		t.Errorf("peak RSS %d bytes, implausibly large (bytes counted as kibibytes?)", rss)
+	}
+	runtime.KeepAlive(buf)
+}
