@@ -8,6 +8,7 @@ import (
 	"os"
 	"os/signal"
 	"strings"
+	"sync/atomic"
 	"syscall"
 	"time"
 
@@ -31,8 +32,22 @@ type deps struct {
 	Now           func() time.Time
 	ErrIsTerminal bool // draw progress bars on Err
 	// Signals delivers the signals that stop a run (SIGINT, SIGTERM,
-	// SIGUSR1); nil means none arrive.
+	// SIGUSR1); nil means none arrive. run hands them to a training session
+	// while one is running (see claimSignals) and otherwise cancels the
+	// command's context.
 	Signals <-chan os.Signal
+
+	claimed *atomic.Bool // a training session is watching Signals
+}
+
+// claimSignals tells run's signal handler that the caller watches
+// d.Signals itself until release is called.
+func (d *deps) claimSignals() (release func()) {
+	if d.claimed == nil {
+		return func() {}
+	}
+	d.claimed.Store(true)
+	return func() { d.claimed.Store(false) }
 }
 
 func systemDeps() *deps {
@@ -71,6 +86,17 @@ func (e *exitError) Unwrap() error { return e.err }
 func run(args []string, d *deps) int {
 	ctx, cancel := context.WithCancel(context.Background())
 	defer cancel()
+	var interrupted atomic.Value // the signal that cancelled ctx, as a name
+	if d.Signals != nil {
+		dd := *d
+		dd.claimed = new(atomic.Bool)
+		fwd := make(chan os.Signal, 4)
+		dd.Signals = fwd
+		done := make(chan struct{})
+		defer close(done)
+		go relaySignals(d.Signals, fwd, dd.claimed, done, cancel, &interrupted, d.Err)
+		d = &dd
+	}
 	root := newRootCmd(d)
 	root.SetArgs(args)
 	root.SetIn(d.In)
@@ -90,6 +116,10 @@ func run(args []string, d *deps) int {
 		fmt.Fprintf(d.Err, "weft: %s\nrun '%s --help' for usage\n", msg, name)
 		return exitUsage
 	}
+	if sig, ok := interrupted.Load().(string); ok && errors.Is(err, context.Canceled) {
+		fmt.Fprintf(d.Err, "weft: interrupted by %s\n", sig)
+		return exitAbandoned
+	}
 	var ee *exitError
 	if errors.As(err, &ee) {
 		if ee.err != nil && ee.err.Error() != "" {
@@ -99,6 +129,35 @@ func run(args []string, d *deps) int {
 	}
 	fmt.Fprintf(d.Err, "weft: %s\n", msg)
 	return exitFailure
+}
+
+// relaySignals passes the stopping signals on to a training session while
+// one claims them; otherwise the first cancels the command (which then
+// exits 130 with "interrupted") and a second exits at once.
+func relaySignals(in <-chan os.Signal, fwd chan<- os.Signal, claimed *atomic.Bool, done <-chan struct{}, cancel context.CancelFunc, interrupted *atomic.Value, errw io.Writer) {
+	n := 0
+	for {
+		select {
+		case <-done:
+			return
+		case sig := <-in:
+			if claimed.Load() {
+				select {
+				case fwd <- sig:
+				default:
+				}
+				continue
+			}
+			n++
+			if n == 1 {
+				interrupted.Store(signalName(sig))
+				cancel()
+				continue
+			}
+			fmt.Fprintf(errw, "weft: second %s: exiting at once\n", signalName(sig))
+			exitNow(exitAbandoned)
+		}
+	}
 }
 
 // isCobraUsage recognises the errors cobra itself returns for bad command

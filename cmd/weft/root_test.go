@@ -2,9 +2,12 @@ package main
 
 import (
 	"bytes"
+	"context"
 	"os"
 	"path/filepath"
 	"strings"
+	"sync/atomic"
+	"syscall"
 	"testing"
 	"time"
 
@@ -104,5 +107,35 @@ func TestConfigShow(t *testing.T) {
 	code, _, stderr = runCmd(t, "", "config", "show", filepath.Join(dir, "missing.toml"))
 	if code != exitFailure || !strings.Contains(stderr, "missing.toml: cannot read run file") {
 		t.Errorf("missing file: got exit %d stderr %q", code, stderr)
+	}
+}
+
+func TestRelaySignals(t *testing.T) {
+	in := make(chan os.Signal, 1)
+	fwd := make(chan os.Signal, 1)
+	claimed := new(atomic.Bool)
+	done := make(chan struct{})
+	defer close(done)
+	ctx, cancel := context.WithCancel(context.Background())
+	var interrupted atomic.Value
+	var errb bytes.Buffer
+	go relaySignals(in, fwd, claimed, done, cancel, &interrupted, &errb)
+
+	// While a training session claims the signals, they go to it and the
+	// command's context stays alive.
+	claimed.Store(true)
+	in <- syscall.SIGTERM
+	if got := <-fwd; got != syscall.SIGTERM {
+		t.Fatalf("forwarded %v, want SIGTERM", got)
+	}
+	if ctx.Err() != nil {
+		t.Fatal("context cancelled while a session claimed the signals")
+	}
+	// Unclaimed, the first signal cancels the command.
+	claimed.Store(false)
+	in <- os.Interrupt
+	<-ctx.Done()
+	if got, _ := interrupted.Load().(string); got != "SIGINT" {
+		t.Errorf("recorded %q, want SIGINT", got)
 	}
 }

@@ -116,6 +116,7 @@ func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (
 	done := make(chan struct{})
 	defer close(done)
 	if cc.Signals != nil {
+		defer cc.claimSignals()()
 		go s.watchSignals(done, stop)
 	}
 
