@@ -263,6 +263,7 @@ func TestExactResume(t *testing.T) {
 	cases = append(cases,
 		tc{"adam plain", nil},
 		tc{"gru replay", []string{"model.cell=gru", "training.bptt_advance_steps=8", "model.layers=2"}},
+		tc{"class output layer", []string{"model.output_layer=class", "model.dropout=0.2", "training.optimizer=adamw"}},
 	)
 	if testing.Short() {
 		cases = cases[3:4]
