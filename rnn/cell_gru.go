@@ -83,8 +83,10 @@ func gruForwardAfterRows[T Float](r *rowLoop[T], lo, hi int) {
 		linalg.Sigmoid(row[:2*H], row[:2*H])
 		rg, xn := row[:H], row[2*H:]
 		hnb := aux[b*H : (b+1)*H]
-		for j := 0; j < H; j++ {
-			hnb[j] = rr[2*H+j] + lp.bRec[j]
+		rn, bRec := rr[2*H:3*H], lp.bRec[:H]
+		rg, xn, rn, bRec = rg[:len(hnb)], xn[:len(hnb)], rn[:len(hnb)], bRec[:len(hnb)]
+		for j := range hnb {
+			hnb[j] = rn[j] + bRec[j]
 			xn[j] += rg[j] * hnb[j]
 		}
 		linalg.Tanh(xn, xn)
@@ -131,8 +133,10 @@ func gruForwardBeforeHRows[T Float](r *rowLoop[T], lo, hi int) {
 
 // gruNewState sets hb = (1 − z) ⊙ n + z ⊙ h_{t−1} for one row of gates.
 func gruNewState[T Float](row, hpb, hb []T, H int) {
-	z, nn := row[H:2*H], row[2*H:]
-	for j := 0; j < H; j++ {
+	z, nn := row[H:2*H], row[2*H:3*H]
+	hpb, hb = hpb[:H], hb[:H]
+	z, nn = z[:len(hb)], nn[:len(hb)]
+	for j := range hb {
 		hb[j] = (1-z[j])*nn[j] + z[j]*hpb[j]
 	}
 }
@@ -194,7 +198,10 @@ func gruBackwardRows[T Float](r *rowLoop[T], lo, hi int, resetAfter bool) {
 		dr, dz, dn := drow[:H], drow[H:2*H], drow[2*H:]
 		off := b * H
 		hpb, dh, dnx, ab := hp[off:off+H], dhs[off:off+H], dnext[off:off+H], aux[off:off+H]
-		for j := 0; j < H; j++ {
+		// Equal lengths let the compiler drop the bounds checks.
+		rg, z, nn, dr, dz, dn = rg[:len(dh)], z[:len(dh)], nn[:len(dh)], dr[:len(dh)], dz[:len(dh)], dn[:len(dh)]
+		hpb, dnx, ab = hpb[:len(dh)], dnx[:len(dh)], ab[:len(dh)]
+		for j := range dh {
 			gh := dh[j] + dnx[j]
 			dnp := gh * (1 - z[j]) * (1 - nn[j]*nn[j])
 			dz[j] = gh * (hpb[j] - nn[j]) * z[j] * (1 - z[j])

@@ -58,12 +58,14 @@ func lstmForwardRows[T Float](r *rowLoop[T], lo, hi int) {
 		off := b * H
 		cp := lw.c[t*n+off : t*n+off+H]
 		cn := lw.c[(t+1)*n+off : (t+1)*n+off+H]
+		i, f, g, cp = i[:len(cn)], f[:len(cn)], g[:len(cn)], cp[:len(cn)]
 		for j := range cn {
 			cn[j] = f[j]*cp[j] + i[j]*g[j]
 		}
 		tcb := lw.aux[t*n+off : t*n+off+H]
 		linalg.Tanh(tcb, cn)
 		hb := lw.h[(t+1)*n+off : (t+1)*n+off+H]
+		o, tcb = o[:len(hb)], tcb[:len(hb)]
 		for j := range hb {
 			hb[j] = o[j] * tcb[j]
 		}
@@ -107,7 +109,11 @@ func lstmBackwardRows[T Float](r *rowLoop[T], lo, hi int) {
 		cp := lw.c[t*n+off : t*n+off+H]
 		dn := dnext[off : off+H]
 		dcb := dc[off : off+H]
-		for j := 0; j < H; j++ {
+		// Equal lengths let the compiler drop the bounds checks.
+		i, f, g, o = i[:len(dh)], f[:len(dh)], g[:len(dh)], o[:len(dh)]
+		di, df, dg, do = di[:len(dh)], df[:len(dh)], dg[:len(dh)], do[:len(dh)]
+		tc, cp, dn, dcb = tc[:len(dh)], cp[:len(dh)], dn[:len(dh)], dcb[:len(dh)]
+		for j := range dh {
 			gh := dh[j] + dn[j]
 			dct := dcb[j] + gh*o[j]*(1-tc[j]*tc[j])
 			do[j] = gh * tc[j] * o[j] * (1 - o[j])
