@@ -117,7 +117,13 @@
 // start(c)…start(c+1)−1 of output.weight and output.bias are class c's, so
 // tie_embeddings works unchanged. output_classes = 0 means C = round(√V),
 // which minimises C + V/C for classes of equal size. With C = 1 or C = V the
-// layer is one softmax (TestClassLimits).
+// layer is one softmax (TestClassLimits). BenchmarkOutputLayer (GRU word
+// model, E = H = 256, B = 32, T = 35, one thread) measured training windows
+// 3.4× faster than the full softmax at V = 10,000 and 5.1–5.5× at
+// V = 50,000 when written; at V = 50,000 most of the class model's window
+// is the work done once per parameter (clearing the gradients, the clipping
+// norm and the update of the V×E and V×K matrices), which the layer does not
+// change.
 //
 // # Initialisation
 //
