@@ -79,6 +79,8 @@ type benchShape struct {
 	Embedding  int    `json:"embedding"`
 	Hidden     int    `json:"hidden"`
 	Projection int    `json:"projection"`
+	Output     string `json:"output_layer"`             // "full" or "class"
+	Classes    int    `json:"output_classes,omitempty"` // classes of the "class" layer
 	Batch      int    `json:"batch"`
 	Unroll     int    `json:"unroll"`
 	Threads    int    `json:"threads"`
@@ -205,7 +207,7 @@ func bench(opts *benchOptions, r *configs.Run) (*benchReport, error) {
 	for _, d := range times {
 		total += d
 	}
-	flop, formula := benchFLOPs(r, opts.Vocab)
+	flop, formula := benchFLOPs(r, opts.Vocab, net.OutputClasses())
 	positions := benchPositions(tc, opts.Warmup, opts.Windows)
 	sec := total.Seconds()
 	rep := &benchReport{
@@ -213,7 +215,7 @@ func bench(opts *benchOptions, r *configs.Run) (*benchReport, error) {
 			Cell: net.Cell().Name(), Layers: r.Model.Layers, Vocab: opts.Vocab,
 			Embedding: r.Model.EmbeddingSize, Hidden: r.Model.HiddenSize, Projection: r.Model.ProjectionSize,
 			Batch: B, Unroll: U, Threads: pool.Threads(), Optimizer: tc.Optimizer, DType: "float32",
-			Parameters: net.NumParams(),
+			Parameters: net.NumParams(), Output: "full",
 		},
 		WarmupWindows:       opts.Warmup,
 		Windows:             opts.Windows,
@@ -230,6 +232,9 @@ func bench(opts *benchOptions, r *configs.Run) (*benchReport, error) {
 		HeapSysBytes:        after.HeapSys,
 		AllocBytesPerWindow: float64(after.TotalAlloc-before.TotalAlloc) / float64(opts.Windows),
 		AllocsPerWindow:     float64(after.Mallocs-before.Mallocs) / float64(opts.Windows),
+	}
+	if cs := net.OutputClasses(); cs != nil {
+		rep.Model.Output, rep.Model.Classes = "class", len(cs)-1
 	}
 	for p := range rnn.NumPhases {
 		rep.PhaseSeconds[p.String()] = pt[p].Seconds()
@@ -272,40 +277,57 @@ func synthWindows(V, B, T, n int, seed uint64) []rnn.Window {
 // operations per weight per position. The weights a position goes through
 // are those of the input projection (E·G, none for one-hot input, which is
 // a gather), the recurrence (H·G per layer) and the input of layers 2..L
-// (H·G each), together (2L−1)·H·G, the projection (H·P) and the output layer (K·V, K = P or H),
-// with G = gates·H. The output layer is counted as a full softmax over V.
+// (H·G each), together (2L−1)·H·G, the projection (H·P) and the output
+// layer, with G = gates·H and K = P or H its input width: K·V for the full
+// softmax; for the class layer with class boundaries start (see
+// rnn.FrequencyClasses), K·C for the class scores plus K·n̄ for the scores
+// within the target's class, n̄ = Σ_k n_k²/V being the mean size of the
+// class of a uniformly drawn target (the synthetic tokens are uniform).
 // Gate arithmetic, the softmax and the embedding gather are not counted.
-func benchFLOPs(r *configs.Run, V int) (float64, string) {
+func benchFLOPs(r *configs.Run, V int, start []int) (float64, string) {
 	c := r.Model
 	gates := map[string]int{"rnn": 1, "gru": 3, "lstm": 4}[c.Cell]
 	E, H, P, L := c.EmbeddingSize, c.HiddenSize, c.ProjectionSize, c.Layers
 	G := gates * H
+	K, k := H, "H"
+	if P > 0 {
+		K, k = P, "P"
+	}
 	var terms, nums []string
-	macs := 0
-	add := func(term string, count, a, b int) {
+	macs := 0.0
+	add := func(term string, count, a int, b float64, bs string) {
 		if count == 0 || a == 0 || b == 0 {
 			return
 		}
-		macs += count * a * b
+		macs += float64(count*a) * b
 		if count > 1 {
 			terms = append(terms, fmt.Sprintf("%d·%s", count, term))
-			nums = append(nums, fmt.Sprintf("%d·%d·%d", count, a, b))
+			nums = append(nums, fmt.Sprintf("%d·%d·%s", count, a, bs))
 		} else {
 			terms = append(terms, term)
-			nums = append(nums, fmt.Sprintf("%d·%d", a, b))
+			nums = append(nums, fmt.Sprintf("%d·%s", a, bs))
 		}
 	}
-	add("E·G", 1, E, G)
-	add("H·G", 2*L-1, H, G) // the recurrence of every layer, the input of layers 2..L
-	add("H·P", 1, H, P)
-	if P > 0 {
-		add("P·V", 1, P, V)
+	add("E·G", 1, E, float64(G), fmt.Sprint(G))
+	add("H·G", 2*L-1, H, float64(G), fmt.Sprint(G)) // the recurrence of every layer, the input of layers 2..L
+	add("H·P", 1, H, float64(P), fmt.Sprint(P))
+	note := ""
+	if start == nil {
+		add(k+"·V", 1, K, float64(V), fmt.Sprint(V))
 	} else {
-		add("H·V", 1, H, V)
+		C := len(start) - 1
+		var sq float64
+		for i := 0; i < C; i++ {
+			n := float64(start[i+1] - start[i])
+			sq += n * n
+		}
+		nbar := sq / float64(V)
+		add(k+"·(C+n̄)", 1, K, float64(C)+nbar, fmt.Sprintf("(%d+%.4g)", C, nbar))
+		note = ", C classes, n̄ the mean size of a uniform target's class"
 	}
-	flop := 6 * float64(macs)
-	formula := fmt.Sprintf("6 × (%s) = 6 × (%s) = %s FLOP per token, G = %d·H",
-		strings.Join(terms, " + "), strings.Join(nums, " + "), thousands(int64(flop)), gates)
+	flop := 6 * macs
+	formula := fmt.Sprintf("6 × (%s) = 6 × (%s) = %s FLOP per token, G = %d·H%s",
+		strings.Join(terms, " + "), strings.Join(nums, " + "), thousands(int64(flop+0.5)), gates, note)
 	return flop, formula
 }
 
@@ -345,6 +367,9 @@ func printBench(w io.Writer, r *benchReport) {
 	if m.Projection > 0 {
 		shape += fmt.Sprintf(", projection %d", m.Projection)
 	}
+	if m.Output == "class" {
+		shape += fmt.Sprintf(", class output layer of %d classes", m.Classes)
+	}
 	fmt.Fprintf(w, "model     %s, vocabulary %d, embedding %d, %s parameters, %s, %s\n",
 		shape, m.Vocab, m.Embedding, thousands(int64(m.Parameters)), m.Optimizer, m.DType)
 	fmt.Fprintf(w, "windows   %d of %d streams × %d steps after %d untimed, %d thread(s)\n",
@@ -354,7 +379,7 @@ func printBench(w io.Writer, r *benchReport) {
 	fmt.Fprintf(w, "compute   %.1f GFLOP/s of matrix products\n", r.GFLOPsPerSecond)
 	fmt.Fprintf(w, "          %s\n", r.FLOPFormula)
 	fmt.Fprintf(w, "          (multiply-adds × 2, for each forward product and the two backward products of its size;\n")
-	fmt.Fprintf(w, "          the output layer as a full softmax; gate arithmetic and softmax not counted)\n")
+	fmt.Fprintf(w, "          gate arithmetic, softmax and the embedding gather not counted)\n")
 	fmt.Fprintf(w, "loss      %.4f nats per token on the last window\n", r.FinalLoss)
 	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)

@@ -83,8 +83,11 @@ func TestBenchJSON(t *testing.T) {
 	if err := json.Unmarshal([]byte(out), &rep); err != nil {
 		t.Fatal(err)
 	}
+	// Parameters, by the tensor table of rnn/doc.go (G = 3·12 = 36):
+	// embedding 20·8 = 160; layer 0: 36·8 + 36·12 + 36 + 12 = 768;
+	// layer 1: 36·12 + 36·12 + 36 + 12 = 912; output 20·12 + 20 = 260.
 	wantShape := benchShape{Cell: "gru", Layers: 2, Vocab: 20, Embedding: 8, Hidden: 12, Batch: 4, Unroll: 8,
-		Threads: 1, Optimizer: "adam", DType: "float32", Parameters: rep.Model.Parameters}
+		Threads: 1, Optimizer: "adam", DType: "float32", Parameters: 160 + 768 + 912 + 260, Output: "full"}
 	if rep.Model != wantShape {
 		t.Errorf("model: got %+v, want %+v", rep.Model, wantShape)
 	}
@@ -146,6 +149,10 @@ func TestBenchFLOPs(t *testing.T) {
 		{"2-layer lstm", []string{"model.layers=2", "model.hidden_size=512", "model.embedding_size=128"}, 96, 6 * 3457024},
 		// GRU, E=H=256, G=768: 256·768 + 256·768 + 256·10000 = 2,953,216.
 		{"gru word", []string{"model.cell=gru", "model.embedding_size=256"}, 10000, 6 * 2953216},
+		// Class layer, V=10000 in C=100 classes of 100 ids (equal sizes for
+		// uniform counts; rnn.NewModel): K·(C + n̄) = 256·(100 + 100) =
+		// 51,200, plus the GRU's 256·768 + 256·768 = 393,216.
+		{"gru word, class layer", []string{"model.cell=gru", "model.embedding_size=256", "model.output_layer=class", "model.output_classes=100"}, 10000, 6 * 444416},
 		// One-hot input (a gather, no product), projection P=32:
 		// 256·1024 + 256·32 + 32·96 = 262,144 + 8,192 + 3,072 = 273,408.
 		{"one-hot with projection", []string{"model.embedding_size=0", "model.projection_size=32"}, 96, 6 * 273408},
@@ -156,7 +163,15 @@ func TestBenchFLOPs(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			got, formula := benchFLOPs(r, tt.V)
+			var start []int
+			if r.Model.OutputLayer == "class" {
+				net, err := rnn.NewModel[float32](r.Model, tt.V, 1)
+				if err != nil {
+					t.Fatal(err)
+				}
+				start = net.OutputClasses()
+			}
+			got, formula := benchFLOPs(r, tt.V, start)
 			if got != tt.want {
 				t.Errorf("got %v FLOP per token (%s), want %v", got, formula, tt.want)
 			}
