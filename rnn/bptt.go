@@ -187,12 +187,7 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 		lw.in = in
 		if in != nil {
 			linalg.Gemm(p, false, true, R, G, lp.in, 1, in, lp.in, lp.wIn, lp.in, 0, xg, G)
-			for r := 0; r < R; r++ {
-				row := xg[r*G : (r+1)*G]
-				for j, b := range lp.bias {
-					row[j] += b
-				}
-			}
+			addRowsPool(p, &lw.cw.mat, xg, lp.bias, R, G, G)
 		} else {
 			V := lp.in
 			for r, tok := range inputs[:R] {
@@ -229,12 +224,7 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 		V, K := m.vocab, m.outIn
 		logits := w.logits[:R*V]
 		linalg.Gemm(p, false, true, R, V, K, 1, head, K, m.outW, K, 0, logits, V)
-		for r := 0; r < R; r++ {
-			row := logits[r*V : (r+1)*V]
-			for j, b := range m.outB {
-				row[j] += b
-			}
-		}
+		addRowsPool(p, &w.layers[len(w.layers)-1].cw.mat, logits, m.outB, R, V, V)
 	}
 	w.times.lap(PhaseOutput, t0)
 }
@@ -282,7 +272,7 @@ func (w *work[T]) backward(p *linalg.Pool) {
 		w.classBackward(p, dHead)
 	} else {
 		dl := w.logits[:R*V]
-		colSumAdd(m.gOutB, dl, R, V, V)
+		colSumAddPool(p, &top.cw.mat, m.gOutB, dl, R, V, V)
 		linalg.Gemm(p, true, false, V, K, R, 1, dl, V, w.head, K, 1, m.gOutW, K)
 		linalg.Gemm(p, false, false, R, K, V, 1, dl, V, m.outW, K, 0, dHead, K)
 	}
@@ -299,7 +289,7 @@ func (w *work[T]) backward(p *linalg.Pool) {
 		G := lp.g
 		m.cell.backward(p, lp, lw, steps, B)
 		dxg := lw.dxg[:R*G]
-		colSumAdd(lp.gBias, dxg, R, G, G)
+		colSumAddPool(p, &lw.cw.mat, lp.gBias, dxg, R, G, G)
 		if lw.in == nil {
 			Vin := lp.in
 			for r, tok := range w.inputs[:R] {

@@ -63,6 +63,7 @@ func colSumAdd[T Float](dst []T, a []T, rows, cols, lda int) {
 type cellWork[T Float] struct {
 	pack [4]recPacked
 	rows rowLoop[T]
+	mat  matLoop[T] // bias adds and column sums (bptt.go)
 }
 
 // recPacked is op(U) packed by linalg.PackB for the float32 kernels; ok is
@@ -183,4 +184,53 @@ func isF32[T Float]() bool {
 // as32 views a []T as []float32; call it only when isF32[T]().
 func as32[T Float](s []T) []float32 {
 	return unsafe.Slice((*float32)(unsafe.Pointer(unsafe.SliceData(s))), len(s))
+}
+
+// matLoop is a pass over a rows×cols matrix that Pool.For splits: adding a
+// vector to every row (split over rows) or adding the column sums to a
+// vector (split over columns, each column still summed over the rows in
+// increasing order). Either way every element gets the arithmetic of the
+// loop on one thread.
+type matLoop[T Float] struct {
+	colSums         bool
+	dst, a          []T
+	rows, cols, lda int
+}
+
+func (l *matLoop[T]) Range(lo, hi int) {
+	if l.colSums {
+		colSumAdd(l.dst[lo:hi], l.a[lo:], l.rows, hi-lo, l.lda)
+		return
+	}
+	v := l.a[:l.cols]
+	for r := lo; r < hi; r++ {
+		row := l.dst[r*l.lda : r*l.lda+l.cols]
+		for j, b := range v {
+			row[j] += b
+		}
+	}
+}
+
+// matGrainElems is the number of elements below which matLoop does not
+// split a range further (a few microseconds of adds).
+const matGrainElems = 1 << 14
+
+// addRowsPool adds the vector v (cols long) to each of the rows of the
+// matrix m (row stride ldm), splitting the rows over p's threads. ml is the
+// caller's long-lived loop state.
+func addRowsPool[T Float](p *linalg.Pool, ml *matLoop[T], m, v []T, rows, cols, ldm int) {
+	*ml = matLoop[T]{dst: m, a: v, rows: rows, cols: cols, lda: ldm}
+	p.For(rows, max(1, matGrainElems/max(cols, 1)), ml)
+	*ml = matLoop[T]{}
+}
+
+// colSumAddPool is colSumAdd with the columns split over p's threads, in
+// runs of whole cache lines; each column is summed as colSumAdd sums it, so
+// the result does not depend on the thread count. ml is the caller's
+// long-lived loop state.
+func colSumAddPool[T Float](p *linalg.Pool, ml *matLoop[T], dst, a []T, rows, cols, lda int) {
+	*ml = matLoop[T]{colSums: true, dst: dst, a: a, rows: rows, cols: cols, lda: lda}
+	grain := (max(16, matGrainElems/max(rows, 1)) + 15) / 16 * 16
+	p.For(cols, grain, ml)
+	*ml = matLoop[T]{}
 }

@@ -171,7 +171,7 @@ func (c *gruCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[
 	sB := steps * B
 	if c.resetAfter {
 		linalg.Gemm(p, true, false, G, H, sB, 1, lw.drg, G, lw.h, H, 1, lp.gwRec, H)
-		colSumAdd(lp.gbRec, lw.drg[2*H:], sB, H, G)
+		colSumAddPool(p, &lw.cw.mat, lp.gbRec, lw.drg[2*H:], sB, H, G)
 	} else {
 		linalg.Gemm(p, true, false, 2*H, H, sB, 1, lw.dxg, G, lw.h, H, 1, lp.gwRec[:2*H*H], H)
 		linalg.Gemm(p, true, false, H, H, sB, 1, lw.dxg[2*H:], G, lw.aux, H, 1, lp.gwRec[2*H*H:], H)
