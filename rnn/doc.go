@@ -220,7 +220,9 @@
 // state (gradcheck_test.go),
 // against gorgonia's symbolic gradients of the same graphs
 // (gorgonia_test.go; gorgonia is imported by tests only) and against
-// PyTorch's forward values and gradients (reference_test.go). Optimizer
+// PyTorch's forward values and gradients (reference_test.go; the class
+// output layer against PyTorch autograd of the same factorisation written
+// out in torch operations, reference_class_test.go). Optimizer
 // steps are checked against hand computations of their published rules;
 // the carried state, resets and the BPTT(h; h′) replay against scoring
 // whole sequences (carry_test.go); resuming from exported state against an
