@@ -170,10 +170,10 @@ func forRows[T Float](p *linalg.Pool, lp *layerParams[T], lw *layerWork[T], t, B
 	r.lp, r.lw = nil, nil
 }
 
-// rowGrainElems is the number of elements (of a gate row) below which a
-// range of rows is not split further: about a microsecond of gate math,
-// the cost of handing a range to a spinning worker.
-const rowGrainElems = 256
+// rowGrainElems is the number of elements (of gate rows) below which a
+// range of rows is not split further: about one to two microseconds of gate
+// math, a few times the cost of handing a range to a spinning worker.
+const rowGrainElems = 4096
 
 // isF32 reports whether T is float32.
 func isF32[T Float]() bool {
