@@ -80,12 +80,15 @@ type recPacked struct {
 var packedKernels = linalg.KernelName() != "openblas"
 
 // packRec packs op(U), k×n (U stored n×k with row stride ldu when tU is
-// set), into rp when T is float32 (see recPacked), for the recurrent
-// products of one pass. Packing costs about a quarter of one 32×1024×256
-// product; a pass of T steps then saves it T−1 times.
-func packRec[T Float](rp *recPacked, tU bool, k, n int, u []T, ldu int) {
+// set), into rp when T is float32 (see recPacked) and the pass has more
+// than one step, for the recurrent products of one pass. Packing costs about
+// a quarter of one 32×1024×256 product; a pass of T steps then saves it T−1
+// times. A one-step pass (a Stream's Feed) leaves rp unpacked: linalg.Gemm
+// packs each panel into L1 just before it uses it, which beats writing the
+// whole packed matrix out and reading it back once.
+func packRec[T Float](rp *recPacked, steps int, tU bool, k, n int, u []T, ldu int) {
 	rp.ok = false
-	if !packedKernels || !isF32[T]() {
+	if steps < 2 || !packedKernels || !isF32[T]() {
 		return
 	}
 	linalg.PackB(&rp.pb, tU, k, n, as32(u), ldu)

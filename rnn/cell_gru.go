@@ -39,10 +39,10 @@ func (c *gruCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[T
 	n := B * H
 	rz, rn := &lw.cw.pack[0], &lw.cw.pack[2]
 	if c.resetAfter {
-		packRec(rz, true, H, G, lp.wRec, H)
+		packRec(rz, steps, true, H, G, lp.wRec, H)
 	} else {
-		packRec(rz, true, H, 2*H, lp.wRec[:2*H*H], H)
-		packRec(rn, true, H, H, lp.wRec[2*H*H:], H)
+		packRec(rz, steps, true, H, 2*H, lp.wRec[:2*H*H], H)
+		packRec(rn, steps, true, H, H, lp.wRec[2*H*H:], H)
 	}
 	for t := 0; t < steps; t++ {
 		hp := lw.h[t*n : (t+1)*n]
@@ -149,10 +149,10 @@ func (c *gruCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[
 	clear(dnext)
 	rz, rn := &lw.cw.pack[1], &lw.cw.pack[3]
 	if c.resetAfter {
-		packRec(rz, false, G, H, lp.wRec, H)
+		packRec(rz, steps, false, G, H, lp.wRec, H)
 	} else {
-		packRec(rz, false, 2*H, H, lp.wRec[:2*H*H], H)
-		packRec(rn, false, H, H, lp.wRec[2*H*H:], H)
+		packRec(rz, steps, false, 2*H, H, lp.wRec[:2*H*H], H)
+		packRec(rn, steps, false, H, H, lp.wRec[2*H*H:], H)
 	}
 	for t := steps - 1; t >= 0; t-- {
 		d := lw.dxg[t*B*G : (t+1)*B*G]

@@ -30,7 +30,7 @@ func (c *lstmCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[
 	G := 4 * H
 	n := B * H
 	rp := &lw.cw.pack[0]
-	packRec(rp, true, H, G, lp.wRec, H)
+	packRec(rp, steps, true, H, G, lp.wRec, H)
 	for t := 0; t < steps; t++ {
 		hp := lw.h[t*n : (t+1)*n]
 		a := lw.xg[t*B*G : (t+1)*B*G]
@@ -79,7 +79,7 @@ func (c *lstmCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork
 	clear(lw.dnext[:n])
 	clear(lw.dcnext[:n])
 	rp := &lw.cw.pack[1]
-	packRec(rp, false, G, H, lp.wRec, H)
+	packRec(rp, steps, false, G, H, lp.wRec, H)
 	for t := steps - 1; t >= 0; t-- {
 		forRows(p, lp, lw, t, B, G, lstmBackwardPass)
 		d := lw.dxg[t*B*G : (t+1)*B*G]

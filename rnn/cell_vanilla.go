@@ -24,7 +24,7 @@ func (c *vanillaCell[T]) forward(p *linalg.Pool, lp *layerParams[T], lw *layerWo
 	H := lp.hid
 	n := B * H
 	rp := &lw.cw.pack[0]
-	packRec(rp, true, H, H, lp.wRec, H)
+	packRec(rp, steps, true, H, H, lp.wRec, H)
 	pass := vanillaForwardPass
 	if c.relu {
 		pass = vanillaForwardReLUPass
@@ -61,7 +61,7 @@ func (c *vanillaCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerW
 	dnext := lw.dnext[:n]
 	clear(dnext)
 	rp := &lw.cw.pack[1]
-	packRec(rp, false, H, H, lp.wRec, H)
+	packRec(rp, steps, false, H, H, lp.wRec, H)
 	pass := vanillaBackwardPass
 	if c.relu {
 		pass = vanillaBackwardReLUPass
