@@ -58,3 +58,24 @@ func ExampleGemmPacked() {
 	// [3 7]
 	// [17 37]
 }
+
+// squares is a loop body for Pool.For: each index is computed from itself
+// alone, so the result is the same on any number of threads.
+type squares struct{ dst []float32 }
+
+func (s *squares) Range(lo, hi int) {
+	for i := lo; i < hi; i++ {
+		s.dst[i] = float32(i * i)
+	}
+}
+
+// An elementwise loop split over two threads in chunks of 4 indices.
+func ExamplePool_For() {
+	p := linalg.NewPool(2)
+	defer p.Close()
+	body := &squares{dst: make([]float32, 10)}
+	p.For(len(body.dst), 4, body)
+	fmt.Println(body.dst)
+	// Output:
+	// [0 1 4 9 16 25 36 49 64 81]
+}

@@ -48,6 +48,11 @@
 // Results may differ between kernels (between machines) in the last bits,
 // as fused multiply-adds round once where the portable kernel rounds twice.
 //
+// [Pool.For] splits an elementwise loop the same way: into ranges of whole
+// chunks of indices, one run of chunks per thread. A loop body that computes
+// each index from that index alone (no reduction across the range) gives
+// the same bits on any number of threads.
+//
 // # Elementwise kernels
 //
 // For float32, [Exp], [Sigmoid], [Tanh] and [SoftmaxCrossEntropy] use a

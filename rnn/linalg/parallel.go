@@ -17,9 +17,9 @@ type Ranger interface {
 // pool or a single thread run everything on the caller as one range
 // body.Range(0, n).
 //
-// For allocates nothing (pass a pointer that is already an interface value,
-// or a pointer to a long-lived struct). body must not call the pool itself
-// (no Gemm on p inside body): the pool runs one call at a time.
+// For itself allocates nothing; keep body in a long-lived struct (a
+// pointer to a local variable escapes to the heap at each call). body must
+// not use p (no Gemm on p inside body): the pool runs one call at a time.
 func (p *Pool) For(n, grain int, body Ranger) {
 	if n <= 0 {
 		return
