@@ -89,7 +89,8 @@ func (c *lstmCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork
 }
 
 // lstmBackwardRows computes the pre-activation gradients of rows [lo, hi)
-// of step r.t into lw.dxg and carries ∂L/∂c back in lw.dcnext.
+// of step r.t into lw.dxg and carries ∂L/∂c back in lw.dcnext
+// (linalg.LSTMGateGrads has the equations).
 func lstmBackwardRows[T Float](r *rowLoop[T], lo, hi int) {
 	lw, t, B := r.lw, r.t, r.B
 	H := r.lp.hid
@@ -97,30 +98,9 @@ func lstmBackwardRows[T Float](r *rowLoop[T], lo, hi int) {
 	n := B * H
 	a := lw.xg[t*B*G : (t+1)*B*G]
 	d := lw.dxg[t*B*G : (t+1)*B*G]
-	dnext, dc := lw.dnext[:n], lw.dcnext[:n]
 	for b := lo; b < hi; b++ {
-		row := a[b*G : (b+1)*G]
-		i, f, g, o := row[:H], row[H:2*H], row[2*H:3*H], row[3*H:]
-		drow := d[b*G : (b+1)*G]
-		di, df, dg, do := drow[:H], drow[H:2*H], drow[2*H:3*H], drow[3*H:]
 		off := b * H
-		dh := lw.dh[t*n+off : t*n+off+H]
-		tc := lw.aux[t*n+off : t*n+off+H]
-		cp := lw.c[t*n+off : t*n+off+H]
-		dn := dnext[off : off+H]
-		dcb := dc[off : off+H]
-		// Equal lengths let the compiler drop the bounds checks.
-		i, f, g, o = i[:len(dh)], f[:len(dh)], g[:len(dh)], o[:len(dh)]
-		di, df, dg, do = di[:len(dh)], df[:len(dh)], dg[:len(dh)], do[:len(dh)]
-		tc, cp, dn, dcb = tc[:len(dh)], cp[:len(dh)], dn[:len(dh)], dcb[:len(dh)]
-		for j := range dh {
-			gh := dh[j] + dn[j]
-			dct := dcb[j] + gh*o[j]*(1-tc[j]*tc[j])
-			do[j] = gh * tc[j] * o[j] * (1 - o[j])
-			di[j] = dct * g[j] * i[j] * (1 - i[j])
-			dg[j] = dct * i[j] * (1 - g[j]*g[j])
-			df[j] = dct * cp[j] * f[j] * (1 - f[j])
-			dcb[j] = dct * f[j]
-		}
+		linalg.LSTMGateGrads(d[b*G:(b+1)*G], a[b*G:(b+1)*G], lw.dh[t*n+off:t*n+off+H], lw.dnext[off:off+H],
+			lw.dcnext[off:off+H], lw.aux[t*n+off:t*n+off+H], lw.c[t*n+off:t*n+off+H])
 	}
 }
