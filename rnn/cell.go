@@ -50,10 +50,7 @@ type Cell[T Float] interface {
 // to dst, summing rows in increasing order.
 func colSumAdd[T Float](dst []T, a []T, rows, cols, lda int) {
 	for r := 0; r < rows; r++ {
-		row := a[r*lda : r*lda+cols]
-		for j, v := range row {
-			dst[j] += v
-		}
+		linalg.Add(dst[:cols], a[r*lda:r*lda+cols])
 	}
 }
 
@@ -207,10 +204,7 @@ func (l *matLoop[T]) Range(lo, hi int) {
 	}
 	v := l.a[:l.cols]
 	for r := lo; r < hi; r++ {
-		row := l.dst[r*l.lda : r*l.lda+l.cols]
-		for j, b := range v {
-			row[j] += b
-		}
+		linalg.Add(l.dst[r*l.lda:r*l.lda+l.cols], v)
 	}
 }
 
