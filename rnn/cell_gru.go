@@ -180,7 +180,8 @@ func (c *gruCell[T]) backward(p *linalg.Pool, lp *layerParams[T], lw *layerWork[
 
 // gruBackwardRows computes ∂L/∂z, ∂L/∂n (and for the reset-after form
 // ∂L/∂r and the recurrent pre-activation gradient in lw.drg) of rows
-// [lo, hi) of step r.t, and the part of ∂L/∂h_{t−1} that flows through z.
+// [lo, hi) of step r.t, and the part of ∂L/∂h_{t−1} that flows through z
+// (linalg.GRUGateGrads has the equations).
 func gruBackwardRows[T Float](r *rowLoop[T], lo, hi int, resetAfter bool) {
 	lw, t, B := r.lw, r.t, r.B
 	H := r.lp.hid
@@ -188,38 +189,14 @@ func gruBackwardRows[T Float](r *rowLoop[T], lo, hi int, resetAfter bool) {
 	n := B * H
 	a := lw.xg[t*B*G : (t+1)*B*G]
 	d := lw.dxg[t*B*G : (t+1)*B*G]
-	hp := lw.h[t*n : (t+1)*n]
-	aux := lw.aux[t*n : (t+1)*n]
-	dhs := lw.dh[t*n : (t+1)*n]
-	dnext := lw.dnext[:n]
 	for b := lo; b < hi; b++ {
-		row, drow := a[b*G:(b+1)*G], d[b*G:(b+1)*G]
-		rg, z, nn := row[:H], row[H:2*H], row[2*H:]
-		dr, dz, dn := drow[:H], drow[H:2*H], drow[2*H:]
 		off := b * H
-		hpb, dh, dnx, ab := hp[off:off+H], dhs[off:off+H], dnext[off:off+H], aux[off:off+H]
-		// Equal lengths let the compiler drop the bounds checks.
-		rg, z, nn, dr, dz, dn = rg[:len(dh)], z[:len(dh)], nn[:len(dh)], dr[:len(dh)], dz[:len(dh)], dn[:len(dh)]
-		hpb, dnx, ab = hpb[:len(dh)], dnx[:len(dh)], ab[:len(dh)]
-		for j := range dh {
-			gh := dh[j] + dnx[j]
-			dnp := gh * (1 - z[j]) * (1 - nn[j]*nn[j])
-			dz[j] = gh * (hpb[j] - nn[j]) * z[j] * (1 - z[j])
-			dn[j] = dnp
-			dnx[j] = gh * z[j]
-			if resetAfter {
-				dr[j] = dnp * ab[j] * rg[j] * (1 - rg[j]) // ab = U_n h + b_hn
-			}
-		}
+		var rrow []T // nil: the reset-before form
 		if resetAfter {
-			// The recurrent pre-activation gradient differs from the input
-			// one only in the n block, which r scales.
-			rrow := lw.drg[t*B*G+b*G : t*B*G+(b+1)*G]
-			copy(rrow[:2*H], drow[:2*H])
-			for j := 0; j < H; j++ {
-				rrow[2*H+j] = drow[2*H+j] * row[j]
-			}
+			rrow = lw.drg[t*B*G+b*G : t*B*G+(b+1)*G]
 		}
+		linalg.GRUGateGrads(d[b*G:(b+1)*G], rrow, a[b*G:(b+1)*G], lw.dh[t*n+off:t*n+off+H],
+			lw.dnext[off:off+H], lw.h[t*n+off:t*n+off+H], lw.aux[t*n+off:t*n+off+H])
 	}
 }
 
