@@ -17,8 +17,9 @@ type Pool struct {
 	threads int
 	mu      sync.Mutex // one kernel call at a time
 	workers []*worker
-	pending atomic.Int64 // parts handed to workers and not yet done
-	waiting atomic.Bool  // the caller is parked on done
+	pending atomic.Int64  // parts handed to workers and not yet done
+	waiting atomic.Uint64 // number of the call whose caller is parked on done, 0 for none
+	calls   uint64        // calls run so far, guarded by mu
 	done    chan struct{}
 	once    sync.Once
 	loop1   forJob // the running For call, guarded by mu
@@ -47,6 +48,7 @@ type runner interface{ runPart(part int) }
 type task struct {
 	r    runner // nil tells the worker to exit
 	part int
+	call uint64 // the number of the call the part belongs to
 }
 
 // NewPool returns a pool of n threads (n <= 0 means 1).
@@ -89,11 +91,23 @@ func (p *Pool) loop(w *worker) {
 			return
 		}
 		t.r.runPart(t.part)
-		if p.pending.Add(-1) == 0 && p.waiting.Load() && p.waiting.CompareAndSwap(true, false) {
+		// Only the caller of this very call may be signalled: a worker
+		// preempted between the decrement and this check must not wake
+		// the caller of a later call, which would return before its own
+		// parts are done.
+		left := p.pending.Add(-1)
+		if testHookPartDone != nil {
+			testHookPartDone(p, t.call)
+		}
+		if left == 0 && p.waiting.Load() == t.call && p.waiting.CompareAndSwap(t.call, 0) {
 			p.done <- struct{}{}
 		}
 	}
 }
+
+// testHookPartDone, when set by a test, runs in a worker between the
+// decrement of pending and the check whether to signal the caller.
+var testHookPartDone func(p *Pool, call uint64)
 
 // post hands a task to w and wakes it if it is parked.
 func (w *worker) post(t task) {
@@ -148,9 +162,11 @@ func (p *Pool) run(r runner, parts int) {
 // runLocked is run for a caller that holds p.mu, with 2 ≤ parts ≤
 // p.Threads().
 func (p *Pool) runLocked(r runner, parts int) {
+	p.calls++
+	call := p.calls
 	p.pending.Store(int64(parts - 1))
 	for i := 1; i < parts; i++ {
-		p.workers[i-1].post(task{r: r, part: i})
+		p.workers[i-1].post(task{r: r, part: i, call: call})
 	}
 	r.runPart(0)
 	// Wait for the workers: spin (they usually finish within microseconds
@@ -162,9 +178,9 @@ func (p *Pool) runLocked(r runner, parts int) {
 		if spins < spinLimit {
 			continue
 		}
-		p.waiting.Store(true)
+		p.waiting.Store(call)
 		if p.pending.Load() == 0 {
-			if !p.waiting.CompareAndSwap(true, false) {
+			if !p.waiting.CompareAndSwap(call, 0) {
 				<-p.done // a worker saw us waiting and sent
 			}
 			break

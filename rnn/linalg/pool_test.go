@@ -189,3 +189,39 @@ func TestCacheSurvivesGC(t *testing.T) {
 		t.Errorf("got %d distinct objects (last one put included: %v), want the first %d", len(seen), seen[ws[len(ws)-1]], len(c.slots))
 	}
 }
+
+// flagRunner records which parts ran.
+type flagRunner struct{ ran [2]atomic.Bool }
+
+func (r *flagRunner) runPart(i int) { r.ran[i].Store(true) }
+
+// TestPoolLateWorkerSignal is the regression test for a lost part: a worker
+// preempted between finishing its part of one call and checking whether
+// that call's caller is parked used to wake the caller of the next call,
+// which then returned before its own part had run (and, counts gone wrong,
+// later hung: seen once in a 2-thread weft bench on a loaded machine). The
+// hook holds the worker there past the caller's spin limit.
+func TestPoolLateWorkerSignal(t *testing.T) {
+	p := NewPool(2)
+	defer p.Close()
+	var once atomic.Bool
+	testHookPartDone = func(hp *Pool, call uint64) {
+		if hp == p && once.CompareAndSwap(false, true) {
+			time.Sleep(50 * time.Millisecond) // far beyond the caller's spin
+		}
+	}
+	first := &flagRunner{}
+	p.run(first, 2)
+	// The worker part of the second call takes long enough for an early
+	// return to be seen.
+	second := &sleepyRunner{ran: make([]atomic.Bool, 2), sleep: 20 * time.Millisecond}
+	p.run(second, 2)
+	if !second.ran[1].Load() {
+		t.Fatal("the second call returned before its worker part ran")
+	}
+	third := &flagRunner{}
+	p.run(third, 2) // and the pool still works
+	if !third.ran[0].Load() || !third.ran[1].Load() {
+		t.Fatal("third call: a part did not run")
+	}
+}
