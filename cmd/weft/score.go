@@ -33,6 +33,7 @@ type scoreOptions struct {
 	Unit       string
 	Window     int
 	MaxChars   int
+	Context    int
 	JSON       bool
 	Sort       bool
 	Top        int
@@ -62,9 +63,14 @@ the number of tokens that are the unknown symbol, and the text (cut at 256
 characters). Output is tab-separated with a header line, or one JSON object
 per unit with --json.
 
-Context: every unit is scored on its own from the start of a document (a
-fresh model state), so a line's score does not depend on the lines before it
-or on the order of the files. A unit longer than --max-chars characters is
+Context: by default every unit is scored on its own from the start of a
+document (a fresh model state), so a line's score does not depend on the
+lines before it or on the order of the files. A recurrent model trained on
+continuous text rarely sees a fresh state, so its first few tokens after one
+cost more than they would in the stream; --context N instead warms the model
+up on the N tokens of the same input just before each piece (not scored,
+never across files), so that a line is scored as it occurs in its log, and
+its score then depends on what precedes it. A unit longer than --max-chars characters is
 scored in consecutive pieces of that size, each from a fresh state, and its
 pieces column says into how many; memory stays bounded whatever the length
 of the input.
@@ -94,6 +100,7 @@ bounded memory) and implies --sort.`,
 	f.StringVar(&opts.Unit, "unit", "line", "what to score: line, document or window")
 	f.IntVar(&opts.Window, "window", 0, "tokens per window, with --unit window")
 	f.IntVar(&opts.MaxChars, "max-chars", 64<<10, "longest stretch of a unit scored in one piece, in characters")
+	f.IntVar(&opts.Context, "context", 0, "warm the model up on this many tokens of the preceding text of the same input (0: score each unit from a fresh state)")
 	f.BoolVar(&opts.JSON, "json", false, "print one JSON object per unit")
 	f.BoolVar(&opts.Sort, "sort", false, "print the most surprising units first (bits per character)")
 	f.IntVar(&opts.Top, "top", 0, "print only the N most surprising units (implies --sort)")
@@ -256,7 +263,10 @@ type unitScorer struct {
 	keepText bool
 	skipText int // token id left out of the text: the line end of a line unit
 	workers  int
+	context  int                  // tokens of preceding text each piece is warmed up on
 	emit     func(scoreRow) error // receives the finished rows in order
+
+	recent []int // the last context tokens of the current source, oldest first
 
 	cur   *pieceJob   // the piece being filled
 	queue []*pieceJob // pieces handed to workers, oldest first
@@ -274,6 +284,7 @@ type unitScorer struct {
 // pieceJob is one piece of a unit: its tokens, their characters and, once
 // scored, their log-probabilities.
 type pieceJob struct {
+	warm          []int // context tokens scored before the piece, not counted
 	tokens, chars []int
 	nchars        int
 	logp          []float64
@@ -289,10 +300,17 @@ func (u *unitScorer) newJob() *pieceJob {
 	if n := len(u.free); n > 0 {
 		j := u.free[n-1]
 		u.free = u.free[:n-1]
-		*j = pieceJob{tokens: j.tokens[:0], chars: j.chars[:0], logp: j.logp[:0]}
-		return j
+		*j = pieceJob{warm: j.warm[:0], tokens: j.tokens[:0], chars: j.chars[:0], logp: j.logp[:0]}
+		return u.withContext(j)
 	}
-	return &pieceJob{}
+	return u.withContext(&pieceJob{})
+}
+
+// withContext gives a new piece the tokens of preceding text it is warmed
+// up on.
+func (u *unitScorer) withContext(j *pieceJob) *pieceJob {
+	j.warm = append(j.warm[:0], u.recent...)
+	return j
 }
 
 // start begins a unit at line of source.
@@ -314,6 +332,13 @@ func (u *unitScorer) add(id, chars int) error {
 	j.tokens = append(j.tokens, id)
 	j.chars = append(j.chars, chars)
 	j.nchars += chars
+	if u.context > 0 {
+		if len(u.recent) == u.context {
+			copy(u.recent, u.recent[1:])
+			u.recent = u.recent[:u.context-1]
+		}
+		u.recent = append(u.recent, id)
+	}
 	return nil
 }
 
@@ -371,10 +396,22 @@ func (u *unitScorer) consumeOldest() error {
 // LogProbs: the code weft eval scores with.
 func (u *unitScorer) compute(j *pieceJob) {
 	n := len(j.tokens)
-	j.logp = slices.Grow(j.logp[:0], n)[:n]
-	if n > 0 {
-		j.err = u.sc.lm.LogProbs(u.cc.ctx, j.logp, j.tokens)
+	if n == 0 {
+		j.logp = j.logp[:0]
+		return
 	}
+	if len(j.warm) == 0 {
+		j.logp = slices.Grow(j.logp[:0], n)[:n]
+		j.err = u.sc.lm.LogProbs(u.cc.ctx, j.logp, j.tokens)
+		return
+	}
+	// Score the context and the piece as one sequence and keep the piece's
+	// part: the piece is predicted from the state the context leaves.
+	w := len(j.warm)
+	seq := append(slices.Clip(j.warm), j.tokens...)
+	lp := make([]float64, len(seq))
+	j.err = u.sc.lm.LogProbs(u.cc.ctx, lp, seq)
+	j.logp = append(j.logp[:0], lp[w:]...)
 }
 
 // consume adds a scored piece to its unit, totalled by eval.NewResult as
@@ -584,8 +621,11 @@ func runScore(opts *scoreOptions) error {
 		return fmt.Errorf("the model's vocabulary has no line-end entry, so it cannot score lines; use --unit document or --unit window")
 	}
 	sink := &rowSink{opts: opts}
+	if opts.Context < 0 {
+		return usagef("--context must be 0 or more tokens, got %d", opts.Context)
+	}
 	u := &unitScorer{cc: opts.cmdContext, sc: sc, maxChars: opts.MaxChars, keepText: opts.Unit != "document", skipText: -1,
-		workers: sc.workers, emit: sink.add}
+		workers: sc.workers, context: opts.Context, emit: sink.add}
 	if opts.Unit == "line" {
 		u.skipText = newline
 	}
@@ -617,6 +657,7 @@ func scoreSource(opts *scoreOptions, u *unitScorer, name string, newline int) er
 		r = f
 	}
 	v := u.sc.vocab
+	u.recent = u.recent[:0] // context never crosses files
 	line := 1
 	inUnit := 0 // tokens in the current unit
 	var failed error
