@@ -96,10 +96,28 @@ func learnText(t *testing.T, s string) {
 	// steps the bigram too (81 were needed on Moby-Dick and 60 on the demo
 	// corpus when this was written).
 	const maxSteps, window = 400, 20
+	first, recent, steps := trainUntil(t, tr, tokens, tc, maxSteps, window, bigram)
+	t.Logf("V=%d, unigram %.4f and bigram %.4f nats/char; first step %.4f, mean of last %d steps %.4f after %d steps",
+		V, unigram, bigram, first, len(recent), mean(recent), steps)
+	// The first loss is near ln V (uniform-ish initial model, common practice).
+	if math.Abs(first-math.Log(float64(V))) > 0.2 {
+		t.Errorf("first loss %.4f, want about ln V = %.4f", first, math.Log(float64(V)))
+	}
+	if mean(recent) >= unigram {
+		t.Errorf("after %d steps the training loss is %.4f nats/char, not below the unigram's %.4f", steps, mean(recent), unigram)
+	}
+	if mean(recent) >= bigram {
+		t.Errorf("after %d steps the training loss is %.4f nats/char, not below the bigram's %.4f", steps, mean(recent), bigram)
+	}
+}
+
+// trainUntil trains tr on contiguous streams over tokens until the loss
+// averaged over the last window steps falls below target, or maxSteps
+// steps. It returns the first step's loss, the last window losses and the
+// steps taken.
+func trainUntil(t *testing.T, tr *Trainer[float32], tokens []int, tc TrainConfig, maxSteps, window int, target float64) (first float64, recent []float64, steps int) {
+	t.Helper()
 	b := &streamBatches{tokens: tokens, B: tc.BatchSize, T: tc.UnrollSteps}
-	var recent []float64
-	var first float64
-	steps := 0
 	ctx := context.Background()
 	for steps < maxSteps {
 		w, err := b.Next(ctx)
@@ -118,22 +136,11 @@ func learnText(t *testing.T, s string) {
 		if len(recent) > window {
 			recent = recent[1:]
 		}
-		if len(recent) == window && mean(recent) < bigram {
+		if len(recent) == window && mean(recent) < target {
 			break
 		}
 	}
-	t.Logf("V=%d, unigram %.4f and bigram %.4f nats/char; first step %.4f, mean of last %d steps %.4f after %d steps",
-		V, unigram, bigram, first, len(recent), mean(recent), steps)
-	// The first loss is near ln V (uniform-ish initial model, common practice).
-	if math.Abs(first-math.Log(float64(V))) > 0.2 {
-		t.Errorf("first loss %.4f, want about ln V = %.4f", first, math.Log(float64(V)))
-	}
-	if mean(recent) >= unigram {
-		t.Errorf("after %d steps the training loss is %.4f nats/char, not below the unigram's %.4f", steps, mean(recent), unigram)
-	}
-	if mean(recent) >= bigram {
-		t.Errorf("after %d steps the training loss is %.4f nats/char, not below the bigram's %.4f", steps, mean(recent), bigram)
-	}
+	return first, recent, steps
 }
 
 func mean(v []float64) float64 {

@@ -398,32 +398,7 @@ func TestClassLearnsWords(t *testing.T) {
 		t.Fatal(err)
 	}
 	const maxSteps, window = 300, 20
-	b := &streamBatches{tokens: tokens, B: tc.BatchSize, T: tc.UnrollSteps}
-	var recent []float64
-	var first float64
-	steps := 0
-	ctx := context.Background()
-	for steps < maxSteps {
-		w, err := b.Next(ctx)
-		if err != nil {
-			t.Fatal(err)
-		}
-		info, err := tr.Step(ctx, w)
-		if err != nil {
-			t.Fatal(err)
-		}
-		steps++
-		if steps == 1 {
-			first = info.Loss
-		}
-		recent = append(recent, info.Loss)
-		if len(recent) > window {
-			recent = recent[1:]
-		}
-		if len(recent) == window && mean(recent) < unigram-0.1 {
-			break
-		}
-	}
+	first, recent, steps := trainUntil(t, tr, tokens, tc, maxSteps, window, unigram-0.1)
 	t.Logf("V=%d, %d classes, unigram %.4f nats/word; first step %.4f, mean of last %d steps %.4f after %d steps",
 		V, len(m.OutputClasses())-1, unigram, first, len(recent), mean(recent), steps)
 	// An untrained model is nearly uniform over the classes and within each
