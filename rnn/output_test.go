@@ -266,19 +266,7 @@ func TestClassResume(t *testing.T) {
 	}
 	m2, _ := NewModel[float32](cfg, 12, 777)
 	tr2, _ := NewTrainer(m2, tc, nil)
-	for i, p := range m1.Params() {
-		copy(m2.Params()[i].Value, p.Value)
-	}
-	for i, st := range tr1.StateTensors() {
-		copy(tr2.StateTensors()[i].Value, st.Value)
-	}
-	var st TrainerState
-	if err := json.Unmarshal(js, &st); err != nil {
-		t.Fatal(err)
-	}
-	if err := tr2.SetState(st); err != nil {
-		t.Fatal(err)
-	}
+	restoreTrainer(t, m2, tr2, m1, tr1, js)
 	for i := 0; i < N; i++ {
 		w, _ := b.Next(ctx)
 		if _, err := tr2.Step(ctx, w); err != nil {

@@ -199,22 +199,7 @@ func TestResume(t *testing.T) {
 				}
 				m2, _ := NewModel[float32](cfg, 12, 12345) // other weights, overwritten below
 				tr2, _ := NewTrainer(m2, tc, nil)
-				for i, p := range m1.Params() {
-					copy(m2.Params()[i].Value, p.Value)
-				}
-				for i, st := range tr1.StateTensors() {
-					if tr2.StateTensors()[i].Name != st.Name {
-						t.Fatalf("state tensor %d: %s vs %s", i, tr2.StateTensors()[i].Name, st.Name)
-					}
-					copy(tr2.StateTensors()[i].Value, st.Value)
-				}
-				var st TrainerState
-				if err := json.Unmarshal(js, &st); err != nil {
-					t.Fatal(err)
-				}
-				if err := tr2.SetState(st); err != nil {
-					t.Fatal(err)
-				}
+				restoreTrainer(t, m2, tr2, m1, tr1, js)
 				for i := 0; i < N; i++ {
 					w, _ := b.Next(ctx)
 					if _, err := tr2.Step(ctx, w); err != nil {
@@ -226,6 +211,29 @@ func TestResume(t *testing.T) {
 				}
 			})
 		}
+	}
+}
+
+// restoreTrainer resumes dst from src as a checkpoint would: the
+// parameters and state tensors copied by position (their names must
+// agree), then the scalar state from its JSON form js.
+func restoreTrainer(t *testing.T, dstM *Model[float32], dst *Trainer[float32], srcM *Model[float32], src *Trainer[float32], js []byte) {
+	t.Helper()
+	for i, p := range srcM.Params() {
+		copy(dstM.Params()[i].Value, p.Value)
+	}
+	for i, st := range src.StateTensors() {
+		if dst.StateTensors()[i].Name != st.Name {
+			t.Fatalf("state tensor %d: %s vs %s", i, dst.StateTensors()[i].Name, st.Name)
+		}
+		copy(dst.StateTensors()[i].Value, st.Value)
+	}
+	var st TrainerState
+	if err := json.Unmarshal(js, &st); err != nil {
+		t.Fatal(err)
+	}
+	if err := dst.SetState(st); err != nil {
+		t.Fatal(err)
 	}
 }
 
