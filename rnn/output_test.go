@@ -2,7 +2,6 @@ package rnn
 
 import (
 	"context"
-	"encoding/json"
 	"math"
 	"math/rand/v2"
 	"os"
@@ -244,38 +243,9 @@ func TestClassLimits(t *testing.T) {
 // state like any other, so N steps, an export and N more steps equal 2N
 // straight steps bit for bit.
 func TestClassResume(t *testing.T) {
-	tokens := randomTokens(6000, 12, 4)
-	cfg := smallConfigs()["lstm-class"]
 	tc := DefaultTrainConfig()
 	tc.BatchSize, tc.UnrollSteps, tc.Seed = 3, 10, 5
-	const N = 5
-	_, straight := trainRun(t, cfg, tc, tokens, 2*N, nil)
-	b := &streamBatches{tokens: tokens, B: tc.BatchSize, T: tc.UnrollSteps, reset: true}
-	m1, _ := NewModel[float32](cfg, 12, tc.Seed)
-	tr1, _ := NewTrainer(m1, tc, nil)
-	ctx := context.Background()
-	for i := 0; i < N; i++ {
-		w, _ := b.Next(ctx)
-		if _, err := tr1.Step(ctx, w); err != nil {
-			t.Fatal(err)
-		}
-	}
-	js, err := json.Marshal(tr1.State())
-	if err != nil {
-		t.Fatal(err)
-	}
-	m2, _ := NewModel[float32](cfg, 12, 777)
-	tr2, _ := NewTrainer(m2, tc, nil)
-	restoreTrainer(t, m2, tr2, m1, tr1, js)
-	for i := 0; i < N; i++ {
-		w, _ := b.Next(ctx)
-		if _, err := tr2.Step(ctx, w); err != nil {
-			t.Fatal(err)
-		}
-	}
-	if k := sameBits(straight, m2.values); k >= 0 {
-		t.Errorf("parameter %d after resume: %v, straight run %v", k, m2.values[k], straight[k])
-	}
+	checkResume(t, smallConfigs()["lstm-class"], tc, randomTokens(6000, 12, 4), 5)
 }
 
 func TestClassConfigErrors(t *testing.T) {

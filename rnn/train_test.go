@@ -175,42 +175,47 @@ func TestResume(t *testing.T) {
 			if advance > 0 {
 				name += "/bptt_advance_steps=4"
 			}
-			t.Run(name, func(t *testing.T) {
-				const N = 5
-				_, straight := trainRun(t, cfg, tc, tokens, 2*N, nil)
-
-				T := tc.UnrollSteps
-				if advance > 0 {
-					T = advance
-				}
-				b := &streamBatches{tokens: tokens, B: tc.BatchSize, T: T, reset: true}
-				m1, _ := NewModel[float32](cfg, 12, tc.Seed)
-				tr1, _ := NewTrainer(m1, tc, nil)
-				ctx := context.Background()
-				for i := 0; i < N; i++ {
-					w, _ := b.Next(ctx)
-					if _, err := tr1.Step(ctx, w); err != nil {
-						t.Fatal(err)
-					}
-				}
-				js, err := json.Marshal(tr1.State())
-				if err != nil {
-					t.Fatal(err)
-				}
-				m2, _ := NewModel[float32](cfg, 12, 12345) // other weights, overwritten below
-				tr2, _ := NewTrainer(m2, tc, nil)
-				restoreTrainer(t, m2, tr2, m1, tr1, js)
-				for i := 0; i < N; i++ {
-					w, _ := b.Next(ctx)
-					if _, err := tr2.Step(ctx, w); err != nil {
-						t.Fatal(err)
-					}
-				}
-				if k := sameBits(straight, m2.values); k >= 0 {
-					t.Errorf("parameter %d after resume: %v, straight run %v", k, m2.values[k], straight[k])
-				}
-			})
+			t.Run(name, func(t *testing.T) { checkResume(t, cfg, tc, tokens, 5) })
 		}
+	}
+}
+
+// checkResume trains n steps, exports the trainer (the scalars through
+// JSON), imports it into a fresh model and trainer with other weights, and
+// trains n more: the parameters must equal those of 2n straight steps, bit
+// for bit.
+func checkResume(t *testing.T, cfg Config, tc TrainConfig, tokens []int, n int) {
+	t.Helper()
+	_, straight := trainRun(t, cfg, tc, tokens, 2*n, nil)
+	T := tc.UnrollSteps
+	if tc.BPTTAdvanceSteps > 0 {
+		T = tc.BPTTAdvanceSteps
+	}
+	b := &streamBatches{tokens: tokens, B: tc.BatchSize, T: T, reset: true}
+	m1, _ := NewModel[float32](cfg, 12, tc.Seed)
+	tr1, _ := NewTrainer(m1, tc, nil)
+	ctx := context.Background()
+	for i := 0; i < n; i++ {
+		w, _ := b.Next(ctx)
+		if _, err := tr1.Step(ctx, w); err != nil {
+			t.Fatal(err)
+		}
+	}
+	js, err := json.Marshal(tr1.State())
+	if err != nil {
+		t.Fatal(err)
+	}
+	m2, _ := NewModel[float32](cfg, 12, 12345) // other weights, overwritten below
+	tr2, _ := NewTrainer(m2, tc, nil)
+	restoreTrainer(t, m2, tr2, m1, tr1, js)
+	for i := 0; i < n; i++ {
+		w, _ := b.Next(ctx)
+		if _, err := tr2.Step(ctx, w); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if k := sameBits(straight, m2.values); k >= 0 {
+		t.Errorf("parameter %d after resume: %v, straight run %v", k, m2.values[k], straight[k])
 	}
 }
 
