@@ -10,7 +10,6 @@ import (
 	"fmt"
 	"os"
 	"path/filepath"
-	"slices"
 	"text/tabwriter"
 
 	"github.com/spf13/cobra"
@@ -235,15 +234,7 @@ func runBaselines(opts *baselinesOptions) error {
 		score("score baselines on validation", len(bl.cands), len(bl.cands))
 	}
 	prog.finish()
-	slices.SortStableFunc(rows, func(a, b eval.Result) int {
-		if lessBPC(a.BitsPerChar, b.BitsPerChar) {
-			return -1
-		}
-		if lessBPC(b.BitsPerChar, a.BitsPerChar) {
-			return 1
-		}
-		return 0
-	})
+	sortBestFirst(rows)
 	if opts.JSON {
 		enc := json.NewEncoder(opts.Out)
 		enc.SetIndent("", "  ")

@@ -167,9 +167,15 @@ func compareModels(ctx context.Context, cfg eval.Config, ds *data.Dataset, split
 		}
 	}
 
-	sort.SliceStable(results, func(i, j int) bool { return lessBPC(results[i].BitsPerChar, results[j].BitsPerChar) })
+	sortBestFirst(results)
 	cmp.Rows = results
 	return cmp, nil
+}
+
+// sortBestFirst orders rows by bits per character, best first, NaN last,
+// keeping the given order among equals.
+func sortBestFirst(rows []eval.Result) {
+	sort.SliceStable(rows, func(i, j int) bool { return lessBPC(rows[i].BitsPerChar, rows[j].BitsPerChar) })
 }
 
 // lessBPC orders scores best first, NaN last.
