@@ -96,7 +96,7 @@
 // and fsyncs the directory. If anything before the rename fails (a full
 // disk included), the temporary file is removed and the previous
 // checkpoint is untouched. A process killed mid-save leaves at most a
-// temporary file, which CleanTemp removes.
+// temporary file, which atomicfile.CleanTemp removes.
 //
 // # Run directories
 //

@@ -19,7 +19,7 @@ import (
 // by surprise, say) loads a checkpoint, scores a line and samples a
 // continuation. The model here is a tiny untrained one saved on the spot;
 // a real program opens a trained run's checkpoint with
-// checkpoint.OpenRunModel(runDir, "best").
+// runs.OpenModel(runDir, "best") (package weft/checkpoint/runs).
 func ExampleLoadModel() {
 	ctx := context.Background()
 

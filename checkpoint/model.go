@@ -32,10 +32,6 @@ const (
 	MetaProgress    = "progress"
 )
 
-// CheckpointsDir is the folder of a run directory that holds its
-// checkpoints.
-const CheckpointsDir = "checkpoints"
-
 // Model is a trained model loaded from a checkpoint, ready to score or
 // sample.
 type Model struct {
@@ -421,16 +417,12 @@ func LoadModel(path string) (*Model, error) {
 	return m, nil
 }
 
-// OpenRunModel loads a model from the checkpoints of the run directory
-// runDir. which is "best" (the best-validation copy; the default when
-// empty, falling back to the newest valid checkpoint when the run has not
-// validated yet), "latest" (the newest valid periodic checkpoint), a step
-// number, or a file name inside runDir/checkpoints.
-func OpenRunModel(runDir, which string) (*Model, error) {
-	dir := filepath.Join(runDir, CheckpointsDir)
-	if fi, err := os.Stat(dir); err != nil || !fi.IsDir() {
-		return nil, fmt.Errorf("run directory %q has no %s folder (has it been trained?)", runDir, CheckpointsDir)
-	}
+// OpenModelIn loads a model from the checkpoints folder dir (a run
+// directory's, see runs.OpenModel). which is "best" (the best-validation
+// copy; the default when empty, falling back to the newest valid checkpoint
+// when the run has not validated yet), "latest" (the newest valid periodic
+// checkpoint), a step number, or a file name inside dir.
+func OpenModelIn(dir, which string) (*Model, error) {
 	var path string
 	switch which {
 	case "", "best":

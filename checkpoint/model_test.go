@@ -308,13 +308,9 @@ func TestLoadModelDamaged(t *testing.T) {
 	}
 }
 
-func TestOpenRunModel(t *testing.T) {
+func TestOpenModelIn(t *testing.T) {
 	v := testVocab(t)
-	run := t.TempDir()
-	dir := filepath.Join(run, CheckpointsDir)
-	if err := os.Mkdir(dir, 0o755); err != nil {
-		t.Fatal(err)
-	}
+	dir := t.TempDir()
 	tr := newTrainer(t, smallConfig("lstm"), smallTrainConfig("sgd"), v.Len(), 4)
 	ws := windows(v, 3)
 	save := func(path string) {
@@ -332,7 +328,7 @@ func TestOpenRunModel(t *testing.T) {
 	save(StepPath(dir, 2))
 	// No best copy yet: "best" falls back to the newest.
 	for _, which := range []string{"", "best", "latest"} {
-		m, err := OpenRunModel(run, which)
+		m, err := OpenModelIn(dir, which)
 		if err != nil || m.Step != 2 {
 			t.Fatalf("%q before a best copy: got step %v, error %v; want step 2", which, m, err)
 		}
@@ -344,7 +340,7 @@ func TestOpenRunModel(t *testing.T) {
 		which string
 		step  int64
 	}{{"", 2}, {"best", 2}, {"latest", 3}, {"1", 1}, {StepName(3), 3}} {
-		m, err := OpenRunModel(run, tt.which)
+		m, err := OpenModelIn(dir, tt.which)
 		if err != nil {
 			t.Fatalf("%q: %v", tt.which, err)
 		}
@@ -353,12 +349,12 @@ func TestOpenRunModel(t *testing.T) {
 		}
 	}
 	for _, which := range []string{"7", "../x", "nope.safetensors"} {
-		if _, err := OpenRunModel(run, which); err == nil {
+		if _, err := OpenModelIn(dir, which); err == nil {
 			t.Errorf("%q: got no error", which)
 		}
 	}
-	if _, err := OpenRunModel(t.TempDir(), ""); err == nil || !strings.Contains(err.Error(), "has no checkpoints folder") {
-		t.Errorf("empty run directory: got error %v", err)
+	if _, err := OpenModelIn(t.TempDir(), ""); !errors.Is(err, ErrNoCheckpoint) {
+		t.Errorf("empty folder: got error %v, want ErrNoCheckpoint", err)
 	}
 }
 

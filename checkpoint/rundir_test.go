@@ -8,6 +8,7 @@ import (
 	"strconv"
 	"strings"
 	"testing"
+	"weft/data/atomicfile"
 )
 
 func TestStepNames(t *testing.T) {
@@ -65,7 +66,7 @@ func stepsOf(ents []Entry) []int64 {
 
 func TestList(t *testing.T) {
 	dir := writeRun(t, 100, 2000, 300)
-	for _, junk := range []string{"step-1.safetensors", "notes.txt", tempPrefix + StepName(5000) + ".1.1"} {
+	for _, junk := range []string{"step-1.safetensors", "notes.txt", atomicfile.TempPrefix + StepName(5000) + ".1.1"} {
 		if err := os.WriteFile(filepath.Join(dir, junk), nil, 0o644); err != nil {
 			t.Fatal(err)
 		}

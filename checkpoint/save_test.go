@@ -10,6 +10,8 @@ import (
 	"strings"
 	"syscall"
 	"testing"
+
+	"weft/data/atomicfile"
 )
 
 func TestSaveLoad(t *testing.T) {
@@ -107,7 +109,7 @@ func assertNoTemp(t *testing.T, dir string) {
 		t.Fatal(err)
 	}
 	for _, e := range ents {
-		if strings.HasPrefix(e.Name(), tempPrefix) {
+		if strings.HasPrefix(e.Name(), atomicfile.TempPrefix) {
 			t.Errorf("temporary file %s left in %s", e.Name(), dir)
 		}
 	}
@@ -119,16 +121,16 @@ func assertNoTemp(t *testing.T, dir string) {
 func TestSaveFaults(t *testing.T) {
 	tests := []struct {
 		name   string
-		file   func(*os.File) tempFile // nil: the real file
+		file   func(*os.File) atomicfile.File // nil: the real file
 		rename func(string, string) error
 		is     error
 		want   string
 	}{
-		{name: "disk full mid-write", file: func(f *os.File) tempFile { return &faultyFile{File: f, failWrite: syscall.ENOSPC} }, is: syscall.ENOSPC, want: "disk full"},
-		{name: "short write", file: func(f *os.File) tempFile { return &faultyFile{File: f, shortWrite: true} }, is: io.ErrShortWrite, want: "bytes written"},
-		{name: "fsync fails", file: func(f *os.File) tempFile { return &faultyFile{File: f, failSync: syscall.EIO} }, is: syscall.EIO, want: "sync"},
-		{name: "fsync disk full", file: func(f *os.File) tempFile { return &faultyFile{File: f, failSync: syscall.ENOSPC} }, is: syscall.ENOSPC, want: "disk full"},
-		{name: "close fails", file: func(f *os.File) tempFile { return &faultyFile{File: f, failClose: syscall.EIO} }, is: syscall.EIO, want: "close"},
+		{name: "disk full mid-write", file: func(f *os.File) atomicfile.File { return &faultyFile{File: f, failWrite: syscall.ENOSPC} }, is: syscall.ENOSPC, want: "disk full"},
+		{name: "short write", file: func(f *os.File) atomicfile.File { return &faultyFile{File: f, shortWrite: true} }, is: io.ErrShortWrite, want: "bytes written"},
+		{name: "fsync fails", file: func(f *os.File) atomicfile.File { return &faultyFile{File: f, failSync: syscall.EIO} }, is: syscall.EIO, want: "sync"},
+		{name: "fsync disk full", file: func(f *os.File) atomicfile.File { return &faultyFile{File: f, failSync: syscall.ENOSPC} }, is: syscall.ENOSPC, want: "disk full"},
+		{name: "close fails", file: func(f *os.File) atomicfile.File { return &faultyFile{File: f, failClose: syscall.EIO} }, is: syscall.EIO, want: "close"},
 		{name: "rename fails", rename: func(string, string) error { return &os.LinkError{Op: "rename", Err: syscall.EXDEV} }, is: syscall.EXDEV, want: "rename"},
 	}
 	for _, tc := range tests {
@@ -139,12 +141,13 @@ func TestSaveFaults(t *testing.T) {
 			if err := Save(p, old); err != nil {
 				t.Fatal(err)
 			}
-			defer func(c func(string, string) (tempFile, error), r func(string, string) error) {
-				createTemp, rename = c, r
-			}(createTemp, rename)
+			orig := atomicfile.CreateTemp
+			defer func(c func(string, string) (atomicfile.File, error), r func(string, string) error) {
+				atomicfile.CreateTemp, atomicfile.Rename = c, r
+			}(atomicfile.CreateTemp, atomicfile.Rename)
 			if tc.file != nil {
-				createTemp = func(dir, base string) (tempFile, error) {
-					f, err := createTempFile(dir, base)
+				atomicfile.CreateTemp = func(dir, base string) (atomicfile.File, error) {
+					f, err := orig(dir, base)
 					if err != nil {
 						return nil, err
 					}
@@ -152,7 +155,7 @@ func TestSaveFaults(t *testing.T) {
 				}
 			}
 			if tc.rename != nil {
-				rename = tc.rename
+				atomicfile.Rename = tc.rename
 			}
 			neu := &File{Meta: map[string]string{"which": "new"}, Tensors: []Tensor{NewFloat32("model.w", []int{4096}, make([]float32, 4096))}}
 			err := Save(p, neu)
@@ -173,30 +176,12 @@ func TestSaveFaults(t *testing.T) {
 
 // TestSaveCreateFails covers a directory where no file can be created.
 func TestSaveCreateFails(t *testing.T) {
-	defer func(c func(string, string) (tempFile, error)) { createTemp = c }(createTemp)
-	createTemp = func(string, string) (tempFile, error) {
+	defer func(c func(string, string) (atomicfile.File, error)) { atomicfile.CreateTemp = c }(atomicfile.CreateTemp)
+	atomicfile.CreateTemp = func(string, string) (atomicfile.File, error) {
 		return nil, &fs.PathError{Op: "open", Path: "x", Err: syscall.ENOSPC}
 	}
 	err := Save(filepath.Join(t.TempDir(), BestName), &File{})
 	if !errors.Is(err, syscall.ENOSPC) || !strings.Contains(err.Error(), "disk full: create temporary file") {
 		t.Errorf("got %v, want a disk-full error wrapping ENOSPC", err)
-	}
-}
-
-func TestCleanTemp(t *testing.T) {
-	dir := t.TempDir()
-	stale := filepath.Join(dir, tempPrefix+StepName(3)+".123.1")
-	keep := StepPath(dir, 3)
-	for _, p := range []string{stale, keep} {
-		if err := os.WriteFile(p, []byte("x"), 0o644); err != nil {
-			t.Fatal(err)
-		}
-	}
-	removed, err := CleanTemp(dir)
-	if err != nil || len(removed) != 1 || removed[0] != stale {
-		t.Errorf("got removed %v, %v; want [%s]", removed, err, stale)
-	}
-	if _, err := os.Stat(keep); err != nil {
-		t.Errorf("CleanTemp removed a checkpoint: %v", err)
 	}
 }

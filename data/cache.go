@@ -10,6 +10,7 @@ import (
 	"io/fs"
 	"os"
 	"path/filepath"
+	"weft/data/atomicfile"
 )
 
 // TokenCacheFile is the name of the encoded cache in the cache folder.
@@ -123,8 +124,8 @@ func writeCache(path string, key [32]byte, ds *Dataset) error {
 	if err != nil {
 		return fmt.Errorf("token cache %q: %w", path, err)
 	}
-	if err := writeFileAtomic(path, b); err != nil {
-		return fmt.Errorf("token cache: %w", err)
+	if err := atomicfile.WriteBytes(path, b); err != nil {
+		return fmt.Errorf("token cache %q: %w", path, err)
 	}
 	return nil
 }

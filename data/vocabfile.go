@@ -5,8 +5,8 @@ import (
 	"encoding/json"
 	"fmt"
 	"os"
-	"path/filepath"
 	"unicode/utf8"
+	"weft/data/atomicfile"
 )
 
 // VocabFile is the name of the vocabulary file in a run directory.
@@ -155,14 +155,16 @@ func (v *Vocab) UnmarshalJSON(b []byte) error {
 	return nil
 }
 
-// WriteFile saves the vocabulary at path (a temporary file in the same
-// folder, renamed into place).
+// WriteFile saves the vocabulary at path atomically (atomicfile.WriteBytes).
 func (v *Vocab) WriteFile(path string) error {
 	b, err := json.MarshalIndent(v, "", " ")
 	if err != nil {
 		return fmt.Errorf("write vocabulary %q: %w", path, err)
 	}
-	return writeFileAtomic(path, append(b, '\n'))
+	if err := atomicfile.WriteBytes(path, append(b, '\n')); err != nil {
+		return fmt.Errorf("write vocabulary %q: %w", path, err)
+	}
+	return nil
 }
 
 // ReadVocabFile loads a vocabulary saved by WriteFile.
@@ -176,32 +178,4 @@ func ReadVocabFile(path string) (*Vocab, error) {
 		return nil, fmt.Errorf("read vocabulary %q: %w", path, err)
 	}
 	return v, nil
-}
-
-// writeFileAtomic writes b to a temporary file beside path, syncs it and
-// renames it over path, so a reader sees the old file or the new one.
-func writeFileAtomic(path string, b []byte) (err error) {
-	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
-	if err != nil {
-		return fmt.Errorf("write %q: %w", path, err)
-	}
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(f.Name())
-		}
-	}()
-	if _, err = f.Write(b); err != nil {
-		return fmt.Errorf("write %q: %w", path, err)
-	}
-	if err = f.Sync(); err != nil {
-		return fmt.Errorf("write %q: %w", path, err)
-	}
-	if err = f.Close(); err != nil {
-		return fmt.Errorf("write %q: %w", path, err)
-	}
-	if err = os.Rename(f.Name(), path); err != nil {
-		return fmt.Errorf("write %q: %w", path, err)
-	}
-	return nil
 }

@@ -127,16 +127,25 @@ func (l *Ladder) Models() []LanguageModel {
 	return ms
 }
 
-// Save writes the ladder into the folder dir (which must exist) as
-// "ngram-counts.bin" and "hmm-N.bin" files.
+// CountsFile is the file of a saved ladder's folder that holds the n-gram
+// counts at the largest order (every n-gram and Markov model is rebuilt
+// from them).
+const CountsFile = "ngram-counts.bin"
+
+// HMMFile is the file of a saved ladder's folder that holds the hidden
+// Markov model of the given number of states.
+func HMMFile(states int) string { return fmt.Sprintf("hmm-%d.bin", states) }
+
+// Save writes the ladder into the folder dir (which must exist) as a
+// CountsFile and an HMMFile per hidden Markov model.
 func (l *Ladder) Save(dir string) error {
 	if l.Counts != nil {
-		if err := SaveCounts(filepath.Join(dir, "ngram-counts.bin"), l.Counts); err != nil {
+		if err := SaveCounts(filepath.Join(dir, CountsFile), l.Counts); err != nil {
 			return err
 		}
 	}
 	for _, h := range l.HMMs {
-		if err := SaveHMM(filepath.Join(dir, fmt.Sprintf("hmm-%d.bin", h.States())), h); err != nil {
+		if err := SaveHMM(filepath.Join(dir, HMMFile(h.States())), h); err != nil {
 			return err
 		}
 	}
@@ -152,7 +161,7 @@ func LoadLadder(dir string, cfg Config) (*Ladder, error) {
 	}
 	l := &Ladder{}
 	if maxOrder(cfg) > 0 {
-		c, err := LoadCounts(filepath.Join(dir, "ngram-counts.bin"))
+		c, err := LoadCounts(filepath.Join(dir, CountsFile))
 		if err != nil {
 			return nil, err
 		}
@@ -162,7 +171,7 @@ func LoadLadder(dir string, cfg Config) (*Ladder, error) {
 		}
 	}
 	for _, n := range cfg.HMMStates {
-		h, err := LoadHMM(filepath.Join(dir, fmt.Sprintf("hmm-%d.bin", n)))
+		h, err := LoadHMM(filepath.Join(dir, HMMFile(n)))
 		if err != nil {
 			return nil, err
 		}

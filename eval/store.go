@@ -9,7 +9,7 @@ import (
 	"io"
 	"math"
 	"os"
-	"path/filepath"
+	"weft/data/atomicfile"
 )
 
 // Baseline files. Fitted baselines are cached in a run directory in a
@@ -195,8 +195,7 @@ func ReadHMM(r io.Reader) (*HMM, error) {
 	return h, nil
 }
 
-// SaveCounts writes c to the file path atomically: to a temporary file in
-// the same folder, synced, then renamed over path.
+// SaveCounts writes c to the file path atomically (atomicfile.Write).
 func SaveCounts(path string, c *Counts) error {
 	return saveFile(path, func(w io.Writer) error { return WriteCounts(w, c) })
 }
@@ -234,28 +233,11 @@ func LoadHMM(path string) (*HMM, error) {
 	return h, nil
 }
 
-func saveFile(path string, write func(io.Writer) error) (err error) {
-	f, err := os.CreateTemp(filepath.Dir(path), "."+filepath.Base(path)+".tmp*")
-	if err != nil {
-		return fmt.Errorf("save baseline: %w", err)
+func saveFile(path string, write func(io.Writer) error) error {
+	if err := atomicfile.Write(path, write); err != nil {
+		return fmt.Errorf("save baseline %q: %w", path, err)
 	}
-	defer func() {
-		if err != nil {
-			f.Close()
-			os.Remove(f.Name())
-			err = fmt.Errorf("save baseline %q: %w", path, err)
-		}
-	}()
-	if err = write(f); err != nil {
-		return err
-	}
-	if err = f.Sync(); err != nil {
-		return err
-	}
-	if err = f.Close(); err != nil {
-		return err
-	}
-	return os.Rename(f.Name(), path)
+	return nil
 }
 
 func writeFile(w io.Writer, kind uint16, payload []byte) error {

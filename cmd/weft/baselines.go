@@ -2,11 +2,7 @@ package main
 
 import (
 	"context"
-	"crypto/sha256"
-	"encoding/binary"
-	"encoding/hex"
 	"encoding/json"
-	"errors"
 	"fmt"
 	"os"
 	"path/filepath"
@@ -14,29 +10,11 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"weft/checkpoint/runs"
 	"weft/configs"
 	"weft/data"
 	"weft/eval"
 )
-
-// The baselines folder of a run directory holds the fitted baselines as
-// eval.Ladder saves them (the n-gram counts at the largest configured
-// order, from which every n-gram and Markov model is rebuilt in
-// milliseconds, and one file per hidden Markov model) and a manifest saying
-// what they were fitted on, so that a changed corpus or setting refits them.
-const (
-	baselineManifest = "manifest.json"
-	baselineCounts   = "ngram-counts.bin" // as eval.Ladder.Save names it
-)
-
-type baselineManifestJSON struct {
-	Format      string `json:"format"` // "weft-baselines"
-	Version     int    `json:"version"`
-	TrainSHA256 string `json:"train_sha256"` // of the training token ids
-	VocabSize   int    `json:"vocabulary_size"`
-	Boundary    int    `json:"boundary"`
-	Settings    string `json:"settings"` // the [evaluation] keys that shape the fit
-}
 
 // baselines is the fitted baseline ladder of a run.
 type baselines struct {
@@ -44,50 +22,13 @@ type baselines struct {
 	cands  []*candidate
 }
 
-// fitBaselines builds the configured ladder, loading it from dir (a run's
-// baselines folder; "" for none) when it was fitted there on the same
-// training split with the same settings, and saving it there otherwise. A
-// damaged cache is refitted, never trusted.
+// fitBaselines fits (or loads from the run's baselines folder dir, "" for
+// none) the configured ladder through runs.FitBaselines, and makes a
+// comparison candidate of each model.
 func fitBaselines(ctx context.Context, cfg eval.Config, ds *data.Dataset, dir string, prog *stageProgress) (*baselines, error) {
-	train := ds.Train.Tokens
-	if len(train) == 0 {
-		return nil, errors.New("the training split is empty")
-	}
-	V, boundary := ds.Vocab.Len(), ds.Vocab.Boundary()
-	man := baselineManifestJSON{Format: "weft-baselines", Version: 1, TrainSHA256: tokensSHA256(train),
-		VocabSize: V, Boundary: boundary, Settings: fitSettings(cfg)}
-	var ladder *eval.Ladder
-	if dir != "" {
-		if err := os.MkdirAll(dir, 0o755); err != nil {
-			return nil, fmt.Errorf("baselines folder %s: %w", dir, unwrapPath(err))
-		}
-		var old baselineManifestJSON
-		if b, err := os.ReadFile(filepath.Join(dir, baselineManifest)); err == nil && json.Unmarshal(b, &old) == nil && old == man {
-			l, err := eval.LoadLadder(dir, cfg)
-			if err == nil {
-				ladder = l
-			} else {
-				prog.Status(fmt.Sprintf("cached baselines unusable (%v); fitting them again", err))
-			}
-		}
-	}
-	if ladder == nil {
-		l, err := eval.FitLadder(ctx, train, V, boundary, cfg, prog.Func())
-		if err != nil {
-			return nil, err
-		}
-		ladder = l
-		if dir != "" {
-			// The manifest goes last: a crash before it leaves a cache
-			// that the next run refits.
-			os.Remove(filepath.Join(dir, baselineManifest))
-			if err := ladder.Save(dir); err != nil {
-				return nil, err
-			}
-			if err := writeJSONAtomic(filepath.Join(dir, baselineManifest), man); err != nil {
-				return nil, err
-			}
-		}
+	ladder, err := runs.FitBaselines(ctx, cfg, ds, dir, prog.Func(), prog.Status)
+	if err != nil {
+		return nil, err
 	}
 	prog.finish()
 	bl := &baselines{ladder: ladder}
@@ -102,29 +43,6 @@ func fitBaselines(ctx context.Context, cfg eval.Config, ds *data.Dataset, dir st
 		bl.cands = append(bl.cands, c)
 	}
 	return bl, nil
-}
-
-// fitSettings are the [evaluation] keys a fitted ladder depends on.
-func fitSettings(cfg eval.Config) string {
-	b, _ := json.Marshal(struct {
-		Orders, Markov, HMM []int
-		Smoothers           []string
-		AddK, Tol           float64
-		Iter, Tokens        int
-		Seed                uint64
-	}{cfg.NgramOrders, cfg.MarkovOrders, cfg.HMMStates, cfg.NgramSmoothers, cfg.AddK, cfg.HMMTolerance,
-		cfg.HMMMaxIterations, cfg.HMMMaxTokens, cfg.Seed})
-	return string(b)
-}
-
-func tokensSHA256(tokens []int) string {
-	h := sha256.New()
-	var buf [8]byte
-	for _, t := range tokens {
-		binary.LittleEndian.PutUint64(buf[:], uint64(t))
-		h.Write(buf[:])
-	}
-	return hex.EncodeToString(h.Sum(nil))
 }
 
 type baselinesOptions struct {
@@ -177,11 +95,7 @@ func resolveTarget(target, runFlag string, sets []string) (*configs.Run, string,
 		if runFlag != "" && filepath.Clean(runFlag) != filepath.Clean(target) {
 			return nil, "", usagef("give either a run directory or --run, not both")
 		}
-		path := filepath.Join(target, runConfigFile)
-		if _, err := os.Stat(path); err != nil {
-			return nil, "", fmt.Errorf("%s is not a run directory (no %s): train or prepare into it first, or pass a run file", target, runConfigFile)
-		}
-		r, err := configs.Load(path, sets)
+		r, err := runs.ReadRunFile(target, sets)
 		return r, target, err
 	}
 	r, err := configs.Load(target, sets)
@@ -193,7 +107,7 @@ func runBaselines(opts *baselinesOptions) error {
 	if err != nil {
 		return err
 	}
-	var rd *runDir
+	var rd *runs.Dir
 	if dir != "" {
 		if rd, err = openRunDir(dir); err != nil {
 			return err
@@ -207,7 +121,7 @@ func runBaselines(opts *baselinesOptions) error {
 	prog := newStageProgress(opts.deps, opts.JSON)
 	blDir := ""
 	if rd != nil {
-		blDir = rd.file(baselinesDir)
+		blDir = rd.Baselines()
 	}
 	bl, err := fitBaselines(opts.ctx, r.Evaluation.Config, ds, blDir, prog)
 	if err != nil {

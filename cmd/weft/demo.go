@@ -13,6 +13,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"weft/checkpoint/runs"
 	"weft/configs"
 	"weft/data"
 	"weft/data/demo"
@@ -149,7 +150,7 @@ func runDemo(opts *demoOptions) error {
 	fmt.Fprintln(opts.Out)
 	printDemoVerdict(opts, cmp)
 	fmt.Fprintf(opts.Out, "\nrun directory: %s\nreport: %s (comparison-test.png, learning-curve.png, eval-test.json)\n",
-		runPath, filepath.Join(runPath, reportDir))
+		runPath, runs.Layout(runPath).Report())
 	fmt.Fprintf(opts.Out, "next: weft sample --run %s --prompt \"06:12 \"   or   weft eval --run %s\n", runPath, runPath)
 	return nil
 }

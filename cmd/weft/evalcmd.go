@@ -10,6 +10,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"weft/checkpoint"
+	"weft/checkpoint/runs"
 	"weft/configs"
 	"weft/eval"
 )
@@ -125,19 +126,19 @@ type evalSettings struct {
 
 // evaluateRun compares a run's model and its baselines and saves the
 // report (JSON and plots) in the run's report folder.
-func evaluateRun(cc cmdContext, r *configs.Run, rd *runDir, s evalSettings) (*comparison, error) {
+func evaluateRun(cc cmdContext, r *configs.Run, rd *runs.Dir, s evalSettings) (*comparison, error) {
 	ds, err := prepareData(cc, r, rd)
 	if err != nil {
 		return nil, err
 	}
 	prog := newStageProgress(cc.deps, s.Quiet)
-	bl, err := fitBaselines(cc.ctx, r.Evaluation.Config, ds, rd.file(baselinesDir), prog)
+	bl, err := fitBaselines(cc.ctx, r.Evaluation.Config, ds, rd.Baselines(), prog)
 	if err != nil {
 		return nil, err
 	}
 	cands := bl.cands
 	if !s.NoRNN {
-		m, err := checkpoint.OpenRunModel(rd.Path, s.Checkpoint)
+		m, err := runs.OpenModel(rd.Path(), s.Checkpoint)
 		if err != nil {
 			return nil, fmt.Errorf("%w (train first, or pass --baselines-only)", err)
 		}
@@ -158,17 +159,17 @@ func evaluateRun(cc cmdContext, r *configs.Run, rd *runDir, s evalSettings) (*co
 		return nil, err
 	}
 	prog.finish()
-	if err := os.MkdirAll(rd.file(reportDir), 0o755); err != nil {
+	if err := os.MkdirAll(rd.Report(), 0o755); err != nil {
 		return nil, fmt.Errorf("report folder: %w", err)
 	}
-	if err := writeJSONAtomic(filepath.Join(rd.file(reportDir), "eval-"+s.Split+".json"), cmp.report()); err != nil {
+	if err := rd.WriteJSON(filepath.Join(runs.ReportDir, "eval-"+s.Split+".json"), cmp.report()); err != nil {
 		return nil, err
 	}
 	if r.Output.Plots {
-		if err := plotComparison(filepath.Join(rd.file(reportDir), "comparison-"+s.Split+".png"), cmp); err != nil {
+		if err := plotComparison(filepath.Join(rd.Report(), "comparison-"+s.Split+".png"), cmp); err != nil {
 			return nil, err
 		}
-		if err := plotLearningCurve(filepath.Join(rd.file(reportDir), "learning-curve.png"), rd.file(metricsFile), cmp); err != nil {
+		if err := plotLearningCurve(filepath.Join(rd.Report(), "learning-curve.png"), rd.Metrics(), cmp); err != nil {
 			return nil, err
 		}
 	}

@@ -6,13 +6,13 @@ import (
 	"fmt"
 	"io"
 	"os"
-	"path/filepath"
 	"strings"
 	"text/tabwriter"
 
 	"github.com/spf13/cobra"
 
 	"weft/checkpoint"
+	"weft/checkpoint/runs"
 	"weft/configs"
 )
 
@@ -70,7 +70,7 @@ func runInspect(opts *inspectOptions) error {
 	var targets []struct{ role, path string }
 	if fi.IsDir() {
 		dir := opts.Path
-		if sub := filepath.Join(dir, checkpointsDir); isDir(sub) {
+		if sub := runs.Layout(dir).Checkpoints(); isDir(sub) {
 			dir = sub
 		}
 		ents, err := checkpoint.List(dir)
@@ -80,7 +80,7 @@ func runInspect(opts *inspectOptions) error {
 		if len(ents) > 0 {
 			targets = append(targets, struct{ role, path string }{"newest", ents[0].Path})
 		}
-		if p := checkpoint.BestPath(dir); fileExists(p) {
+		if p := checkpoint.BestPath(dir); isFile(p) {
 			targets = append(targets, struct{ role, path string }{"best", p})
 		}
 		if len(targets) == 0 {
@@ -129,6 +129,11 @@ func runInspect(opts *inspectOptions) error {
 func isDir(p string) bool {
 	fi, err := os.Stat(p)
 	return err == nil && fi.IsDir()
+}
+
+func isFile(p string) bool {
+	fi, err := os.Stat(p)
+	return err == nil && fi.Mode().IsRegular()
 }
 
 // inspectFile verifies and describes one checkpoint. A damaged file is a

@@ -9,6 +9,7 @@ import (
 
 	"github.com/spf13/cobra"
 
+	"weft/checkpoint/runs"
 	"weft/configs"
 	"weft/data"
 )
@@ -59,7 +60,7 @@ func runPrepare(opts *prepareOptions) error {
 	if err != nil {
 		return err
 	}
-	var rd *runDir
+	var rd *runs.Dir
 	if opts.Run != "" {
 		if rd, err = openRunDir(opts.Run); err != nil {
 			return err
@@ -77,7 +78,7 @@ func runPrepare(opts *prepareOptions) error {
 	}
 	printSplitReport(opts.Out, ds)
 	if rd != nil {
-		fmt.Fprintf(opts.Out, "saved in %s: %s, %s, %s\n", rd.Path, data.VocabFile, splitFile, data.TokenCacheFile)
+		fmt.Fprintf(opts.Out, "saved in %s: %s, %s, %s\n", rd.Path(), data.VocabFile, runs.SplitFile, data.TokenCacheFile)
 	}
 	return nil
 }

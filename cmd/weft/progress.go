@@ -7,23 +7,13 @@ import (
 	"strings"
 	"sync"
 	"time"
+	"weft/checkpoint/runs"
 
 	"github.com/schollz/progressbar/v3"
 )
 
-// progressStatus is what the progress display shows of a training run.
-type progressStatus struct {
-	Step           int64
-	Epoch          int
-	TokensPerSec   float64
-	Loss           float64 // training loss of the last window, nats per token
-	GradNorm       float64 // its gradient norm before clipping
-	ValBitsPerChar float64 // of the last validation; NaN before the first
-	ETA            time.Duration
-	MaxSteps       int64 // the step budget, 0 when none: the bar's length
-}
-
-func (st progressStatus) text() string {
+// statusText is the progress line of a training run.
+func statusText(st runs.Status) string {
 	var b strings.Builder
 	fmt.Fprintf(&b, "step %s", thousands(st.Step))
 	if st.Epoch > 0 {
@@ -70,7 +60,7 @@ func newReporter(d *deps, every time.Duration, quiet bool) *reporter {
 }
 
 // update shows st: redraws the bar, or prints a line when one is due.
-func (r *reporter) update(st progressStatus) {
+func (r *reporter) update(st runs.Status) {
 	if r.quiet {
 		return
 	}
@@ -88,7 +78,7 @@ func (r *reporter) update(st progressStatus) {
 		for !now.Before(r.next) {
 			r.next = r.next.Add(r.every)
 		}
-		fmt.Fprintf(r.w, "%s  %s\n", now.Format("15:04:05"), st.text())
+		fmt.Fprintf(r.w, "%s  %s\n", now.Format("15:04:05"), statusText(st))
 		return
 	}
 	max := int64(-1)
@@ -114,7 +104,7 @@ func (r *reporter) update(st progressStatus) {
 		r.barMax = max
 	}
 	r.bar.Set64(st.Step)
-	r.bar.Describe(st.text())
+	r.bar.Describe(statusText(st))
 }
 
 func (r *reporter) print(format string, args []any) {

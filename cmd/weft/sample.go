@@ -15,6 +15,7 @@ import (
 	"github.com/spf13/cobra"
 
 	"weft/checkpoint"
+	"weft/checkpoint/runs"
 	"weft/data"
 	"weft/rnn"
 	"weft/rnn/linalg"
@@ -189,7 +190,7 @@ func loadRunModel(run, which string) (*checkpoint.Model, error) {
 	case strings.ContainsAny(which, `/\`):
 		return checkpoint.LoadModel(which)
 	}
-	return checkpoint.OpenRunModel(run, which)
+	return runs.OpenModel(run, which)
 }
 
 // encodePrompt encodes a prompt. Pieces outside the vocabulary are an

@@ -15,7 +15,7 @@ import (
 
 	"github.com/spf13/cobra"
 
-	"weft/configs"
+	"weft/checkpoint/runs"
 	"weft/data"
 	"weft/eval"
 )
@@ -156,7 +156,7 @@ var (
 // openBaseline rebuilds a fitted baseline from the run's baselines folder,
 // from the files eval.SaveCounts and eval.SaveHMM wrote.
 func openBaseline(run, name string) (eval.LanguageModel, string, error) {
-	dir := filepath.Join(run, baselinesDir)
+	dir := runs.Layout(run).Baselines()
 	addK := func(label string) (float64, error) {
 		if label != "" {
 			k, err := strconv.ParseFloat(label, 64)
@@ -165,14 +165,14 @@ func openBaseline(run, name string) (eval.LanguageModel, string, error) {
 			}
 			return k, nil
 		}
-		r, err := configs.Load(filepath.Join(run, runConfigFile), nil)
+		r, err := runs.ReadRunFile(run, nil)
 		if err != nil {
 			return 0, err
 		}
 		return r.Evaluation.AddK, nil
 	}
 	counts := func() (*eval.Counts, error) {
-		c, err := eval.LoadCounts(filepath.Join(dir, baselineCounts))
+		c, err := eval.LoadCounts(filepath.Join(dir, eval.CountsFile))
 		if os.IsNotExist(err) || (err != nil && strings.Contains(err.Error(), "no such file")) {
 			return nil, fmt.Errorf("run directory %s has no fitted n-gram counts; run 'weft baselines --run %s' first", run, run)
 		}

@@ -1,22 +1,22 @@
 package main
 
 import (
-	"bytes"
-	"errors"
+	"context"
 	"fmt"
 	"math"
 	"os"
 	"path/filepath"
-	"reflect"
-	"sort"
 	"strings"
+	"sync/atomic"
+	"syscall"
 	"time"
 
-	toml "github.com/pelletier/go-toml/v2"
 	"github.com/spf13/cobra"
 
 	"weft/checkpoint"
+	"weft/checkpoint/runs"
 	"weft/configs"
+	"weft/rnn"
 )
 
 // exitAbandoned is the status of a run stopped by a second signal, which
@@ -141,6 +141,14 @@ func parseUntil(s string, now time.Time) (time.Time, error) {
 	return t, nil
 }
 
+// Seams for tests: the checkpoint writer (to inject a full disk), a hook
+// after every training step, and the immediate exit of a second signal.
+var (
+	saveCheckpoint = checkpoint.Save
+	trainStepHook  func(step int64, net *rnn.Model[float32])
+	exitNow        = os.Exit
+)
+
 // trainRunOptions are the settings of one training invocation that are
 // not part of the run file.
 type trainRunOptions struct {
@@ -155,137 +163,142 @@ type trainRunOptions struct {
 	Quiet bool
 }
 
-// trainResult is what a training invocation reached.
+// trainResult is what a training invocation reached, with the signal that
+// stopped it when one did.
 type trainResult struct {
-	BestPath   string // the best-validation checkpoint, "" when none
-	LatestPath string // the newest checkpoint
-	Steps      int64  // training steps in all (all invocations)
-	Epochs     int    // completed epochs
-	// BestValBitsPerChar is the best validation bits per character, NaN
-	// when the run never validated.
-	BestValBitsPerChar float64
-	// Interrupted says a signal stopped the run (after it saved).
-	Interrupted bool
-	Signal      string // the signal that stopped it
-	// Reason says why the run ended: the budget reached, early stopping,
-	// or "interrupted".
-	Reason string
-	// ResumedFrom is the checkpoint this invocation started from, "" for
-	// a fresh start.
-	ResumedFrom string
+	*runs.Result
+	Signal string
 }
 
-// safeOnResume reports whether a run-file key may change between the
-// invocations of one run without changing what has been trained: the
-// budgets, the evaluation and saving cadence, the output settings and the
-// thread count. r is the new run.
-func safeOnResume(key string, r *configs.Run) bool {
-	switch key {
-	case "training.max_steps":
-		// The cosine schedule's length defaults to max_steps.
-		return !(r.Training.Schedule == "cosine" && r.Training.CosineSteps == 0)
-	case "training.max_epochs", "training.max_tokens", "training.max_duration",
-		"training.early_stop_patience", "training.threads",
-		"training.divergence_factor", "training.divergence_retries", "training.divergence_lr_factor":
-		return true
+// trainRun trains r in runDir through runs.Train, drawing its progress and
+// turning the first stopping signal into a graceful stop (the session
+// finishes the window and saves) and a second into an immediate exit. demo
+// calls it too.
+func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (*trainResult, error) {
+	rep := newReporter(cc.deps, time.Duration(r.Output.LogEverySeconds*float64(time.Second)), o.Quiet)
+	defer rep.finish()
+	ctx, stop := context.WithCancel(cc.ctx)
+	defer stop()
+	var sig atomic.Value // the name of the signal that stopped the run
+	if cc.Signals != nil {
+		done := make(chan struct{})
+		defer close(done)
+		defer cc.claimSignals()()
+		go watchSignals(cc.Signals, done, stop, &sig, rep, filepath.Join(runDir, runs.CheckpointsDir))
 	}
-	for _, p := range []string{"evaluation.", "checkpoint.", "output."} {
-		if strings.HasPrefix(key, p) {
-			return true
-		}
-	}
-	return false
-}
-
-// changedKeys compares two resolved run files key by key (configs.Keys)
-// and returns the keys whose values differ, sorted.
-func changedKeys(old, cur []byte) ([]string, error) {
-	var a, b map[string]any
-	if err := toml.Unmarshal(old, &a); err != nil {
-		return nil, fmt.Errorf("run file recorded in the checkpoint: %w", err)
-	}
-	if err := toml.Unmarshal(cur, &b); err != nil {
+	res, err := runs.Train(ctx, r, runDir, runs.TrainOptions{
+		Duration: o.Duration, Deadline: o.Deadline, Restart: o.Restart,
+		Observer: &trainObserver{rep: rep}, Now: cc.Now, Save: saveCheckpoint, AfterStep: trainStepHook, Stdin: cc.In,
+	})
+	if err != nil {
 		return nil, err
 	}
-	lookup := func(m map[string]any, key string) any {
-		sec, name, _ := strings.Cut(key, ".")
-		t, ok := m[sec].(map[string]any)
-		if !ok {
-			return nil
+	rep.finish()
+	out := &trainResult{Result: res}
+	if res.Interrupted {
+		out.Signal, _ = sig.Load().(string)
+		if out.Signal == "" {
+			out.Signal = "cancellation"
 		}
-		return t[name]
-	}
-	var out []string
-	for _, k := range configs.Keys() {
-		if !reflect.DeepEqual(lookup(a, k), lookup(b, k)) {
-			out = append(out, k)
+	} else if !res.NothingToDo && !o.Quiet {
+		fmt.Fprintf(cc.Out, "%s at step %s (%d epochs completed).", res.Reason, thousands(res.Steps), res.Epochs)
+		if res.BestPath != "" && finite(res.BestValBitsPerChar) {
+			fmt.Fprintf(cc.Out, " Best validation: %.4f bits per character at step %s (%s).", res.BestValBitsPerChar, thousands(res.BestStep), res.BestPath)
 		}
+		fmt.Fprintf(cc.Out, " Newest checkpoint: %s\n", res.LatestPath)
 	}
-	sort.Strings(out)
 	return out, nil
 }
 
-// moveAside renames the run's checkpoints folder and metrics log to names
-// stamped with the time, for --restart.
-func moveAside(rd *runDir, now time.Time) ([]string, error) {
-	stamp := now.Format("20060102-150405")
-	var moved []string
-	move := func(name, dest string) error {
-		src := rd.file(name)
-		if _, err := os.Lstat(src); errors.Is(err, os.ErrNotExist) {
-			return nil
-		}
-		dst := rd.file(dest)
-		for i := 2; ; i++ {
-			if _, err := os.Lstat(dst); errors.Is(err, os.ErrNotExist) {
-				break
+// watchSignals turns the first stopping signal into a graceful stop and a
+// second into an immediate exit.
+func watchSignals(signals <-chan os.Signal, done <-chan struct{}, stop context.CancelFunc, name *atomic.Value, rep *reporter, ckdir string) {
+	n := 0
+	for {
+		select {
+		case <-done:
+			return
+		case sig := <-signals:
+			n++
+			if n == 1 {
+				name.Store(signalName(sig))
+				rep.warnf("%s: finishing the current window and saving; send it again to quit at once without saving", signalName(sig))
+				stop()
+				continue
 			}
-			dst = rd.file(fmt.Sprintf("%s-%d", dest, i))
+			rep.warnf("second %s: exiting at once without saving (status %d); the checkpoints in %s are intact", signalName(sig), exitAbandoned, ckdir)
+			exitNow(exitAbandoned)
+			return
 		}
-		if err := os.Rename(src, dst); err != nil {
-			return fmt.Errorf("restart: move %s aside: %w", src, unwrapPath(err))
-		}
-		moved = append(moved, filepath.Base(src)+" → "+filepath.Base(dst))
-		return nil
 	}
-	if err := move(checkpointsDir, checkpointsDir+".old-"+stamp); err != nil {
-		return moved, err
-	}
-	if err := move(metricsFile, strings.TrimSuffix(metricsFile, ".jsonl")+".old-"+stamp+".jsonl"); err != nil {
-		return moved, err
-	}
-	return moved, nil
 }
 
-// checkResume refuses a resume whose run file changed in a key that is not
-// safe to change.
-func checkResume(f *checkpoint.File, path string, runTOML []byte, r *configs.Run) error {
-	old, ok := f.Meta[checkpoint.MetaRunConfig]
-	if !ok {
-		return fmt.Errorf("checkpoint %s records no run file; cannot check it belongs to this run (use --restart to start over)", path)
+// signalName names the stopping signals as a user knows them.
+func signalName(sig os.Signal) string {
+	switch sig {
+	case os.Interrupt:
+		return "SIGINT"
+	case syscall.SIGTERM:
+		return "SIGTERM"
+	case syscall.SIGUSR1:
+		return "SIGUSR1"
 	}
-	keys, err := changedKeys([]byte(old), runTOML)
-	if err != nil {
-		return fmt.Errorf("checkpoint %s: %w", path, err)
-	}
-	var unsafe []string
-	for _, k := range keys {
-		if !safeOnResume(k, r) {
-			unsafe = append(unsafe, k)
-		}
-	}
-	if len(unsafe) > 0 {
-		return fmt.Errorf("the run file differs from the one this run was trained with in %s, which cannot change on resume "+
-			"(only budgets, evaluation, checkpoint and output settings and training.threads may); use another --run directory, or --restart to start over",
-			strings.Join(unsafe, ", "))
-	}
-	return nil
+	return sig.String()
 }
 
-// sameVocab reports whether the vocabulary a checkpoint records is the one
-// prepared now (the corpus and its settings are unchanged).
-func sameVocab(f *checkpoint.File, cur []byte) bool {
-	return bytes.Equal([]byte(f.Meta[checkpoint.MetaVocab]), cur)
+// trainObserver prints what a training session reports through the
+// reporter: the start line, validations, notices and the progress display.
+type trainObserver struct{ rep *reporter }
+
+func (o *trainObserver) Started(st runs.Start) {
+	what := "training"
+	if st.ResumedFrom != "" {
+		what = fmt.Sprintf("resuming from %s: step %d, %d epochs completed;", st.ResumedFrom, st.Step, st.Epochs)
+	}
+	o.rep.logf("%s %s, %s parameters, %s training tokens, %d streams × %d steps, %s",
+		what, st.Model, thousands(st.Params), thousands(st.TrainTokens), st.Streams, st.UnrollSteps, budgetText(st.Budget))
+}
+
+func (o *trainObserver) Progress(st runs.Status) { o.rep.update(st) }
+
+func (o *trainObserver) Validated(v runs.Validation) {
+	note := " (best so far)"
+	if !v.Improved {
+		note = fmt.Sprintf(" (best %.4f at step %s)", v.BestBitsPerChar, thousands(v.BestStep))
+	}
+	o.rep.logf("validation at step %s: %.4f bits per character, perplexity %.3f, %.4f nats per token%s",
+		thousands(v.Step), v.BitsPerChar, v.Perplexity, v.CrossEntropy, note)
+	if v.LearningRateDivided {
+		o.rep.logf("validation loss stopped improving: learning rate divided to %g", v.LearningRate)
+	}
+}
+
+func (o *trainObserver) Notice(n runs.Notice) {
+	if n.Warning {
+		o.rep.warnf("%s", n.Text)
+		return
+	}
+	o.rep.logf("%s", n.Text)
+}
+
+func budgetText(b runs.Budget) string {
+	var parts []string
+	if b.MaxSteps > 0 {
+		parts = append(parts, fmt.Sprintf("%s steps", thousands(int64(b.MaxSteps))))
+	}
+	if b.MaxEpochs > 0 {
+		parts = append(parts, fmt.Sprintf("%d epochs", b.MaxEpochs))
+	}
+	if b.MaxTokens > 0 {
+		parts = append(parts, fmt.Sprintf("%s tokens", thousands(b.MaxTokens)))
+	}
+	if !b.Deadline.IsZero() {
+		parts = append(parts, "until "+b.Deadline.Format("2006-01-02 15:04:05"))
+	}
+	if len(parts) == 0 {
+		return "no budget (stop with Ctrl-C; the state is saved)"
+	}
+	return "budget: " + strings.Join(parts, ", ") + ", whichever comes first"
 }
 
 func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }

@@ -21,6 +21,7 @@ import (
 	"time"
 
 	"weft/checkpoint"
+	"weft/checkpoint/runs"
 	"weft/rnn"
 )
 
@@ -530,7 +531,7 @@ func TestResumeConfigChecks(t *testing.T) {
 	if ents, err := checkpoint.List(old); err != nil || len(ents) == 0 || ents[0].Step != 40 {
 		t.Errorf("old checkpoints not moved to %s: %v %v", old, ents, err)
 	}
-	m, err := checkpoint.OpenRunModel(runDir, "latest")
+	m, err := runs.OpenModel(runDir, "latest")
 	if err != nil || m.Step != 10 || m.Config.HiddenSize != 20 {
 		t.Errorf("after --restart: got %v, %v; want a new run at step 10 with hidden_size 20", m, err)
 	}
@@ -556,7 +557,7 @@ func TestTrainLocked(t *testing.T) {
 	if err := os.MkdirAll(runDir, 0o755); err != nil {
 		t.Fatal(err)
 	}
-	l, err := checkpoint.Lock(runDir)
+	l, err := runs.Lock(runDir)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -617,7 +618,7 @@ func TestTimeBudget(t *testing.T) {
 		if code != exitOK {
 			t.Fatalf("%v: exit %d: %s", tt.args, code, stderr)
 		}
-		m, err := checkpoint.OpenRunModel(runDir, "latest")
+		m, err := runs.OpenModel(runDir, "latest")
 		if err != nil {
 			t.Fatal(err)
 		}

@@ -1,16 +1,12 @@
-package checkpoint
+package runs
 
 import (
 	"encoding/json"
 	"errors"
 	"fmt"
 	"os"
-	"path/filepath"
 	"time"
 )
-
-// LockName is the lock file of a run directory.
-const LockName = "lock"
 
 // ErrLocked is wrapped by the error Lock returns when another live process
 // holds the directory; errors.As gives the *LockedError with the holder.
@@ -139,7 +135,7 @@ func parseHolder(b []byte) *Holder {
 // lockExcl is the portable lock: create the lock file exclusively; take
 // over a leftover file only if it names this host and a dead process.
 func lockExcl(dir string, me Holder) (*DirLock, error) {
-	path := filepath.Join(dir, LockName)
+	path := Layout(dir).Lock()
 	var stale *Holder
 	for range 3 {
 		f, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_EXCL, 0o644)
@@ -153,7 +149,7 @@ func lockExcl(dir string, me Holder) (*DirLock, error) {
 			}
 			if err != nil {
 				os.Remove(path)
-				return nil, fmt.Errorf("lock run directory %q: write %s: %w", dir, LockName, err)
+				return nil, fmt.Errorf("lock run directory %q: write %s: %w", dir, LockFile, err)
 			}
 			return &DirLock{Held: me, TookOver: stale, path: path, held: true}, nil
 		}

@@ -1,4 +1,4 @@
-package checkpoint
+package runs
 
 import (
 	"bufio"
@@ -7,7 +7,6 @@ import (
 	"io"
 	"os"
 	"os/exec"
-	"path/filepath"
 	"strconv"
 	"strings"
 	"testing"
@@ -127,7 +126,7 @@ func TestLockSameProcess(t *testing.T) {
 			if l.TookOver != nil {
 				t.Errorf("fresh lock reports a takeover of %v", l.TookOver)
 			}
-			b, err := os.ReadFile(filepath.Join(dir, LockName))
+			b, err := os.ReadFile(Layout(dir).Lock())
 			if h := parseHolder(b); err != nil || h == nil || h.PID != os.Getpid() {
 				t.Errorf("lock file holds %q (%v), want our pid %d", b, err, os.Getpid())
 			}
@@ -139,7 +138,7 @@ func TestLockSameProcess(t *testing.T) {
 			if err := l.Unlock(); err != nil {
 				t.Errorf("second Unlock: %v", err)
 			}
-			if _, err := os.Stat(filepath.Join(dir, LockName)); !errors.Is(err, os.ErrNotExist) {
+			if _, err := os.Stat(Layout(dir).Lock()); !errors.Is(err, os.ErrNotExist) {
 				t.Errorf("lock file after Unlock: got %v, want it removed", err)
 			}
 			l2, err := lf.lock(dir)
@@ -183,7 +182,7 @@ func TestLockStale(t *testing.T) {
 		t.Run(lf.name, func(t *testing.T) {
 			// Restore the dead child's lock file for each variant.
 			h := Holder{Host: hostname(t), PID: pid, Started: time.Now().UTC().Truncate(time.Second)}
-			if err := os.WriteFile(filepath.Join(dir, LockName), encodeHolder(h), 0o644); err != nil {
+			if err := os.WriteFile(Layout(dir).Lock(), encodeHolder(h), 0o644); err != nil {
 				t.Fatal(err)
 			}
 			l, err := lf.lock(dir)
@@ -211,7 +210,7 @@ func TestLockPortableOtherHost(t *testing.T) {
 		{"unreadable", []byte("garbage"), "another process"},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			if err := os.WriteFile(filepath.Join(dir, LockName), tc.content, 0o644); err != nil {
+			if err := os.WriteFile(Layout(dir).Lock(), tc.content, 0o644); err != nil {
 				t.Fatal(err)
 			}
 			_, err := lockFuncs[1].lock(dir)

@@ -1,13 +1,12 @@
 //go:build linux || darwin || freebsd || netbsd || openbsd || dragonfly
 
-package checkpoint
+package runs
 
 import (
 	"errors"
 	"fmt"
 	"io"
 	"os"
-	"path/filepath"
 	"syscall"
 )
 
@@ -15,7 +14,7 @@ import (
 // process exits, so content left in a lock file that can be locked is a
 // stale holder's.
 func lockDir(dir string, me Holder) (*DirLock, error) {
-	path := filepath.Join(dir, LockName)
+	path := Layout(dir).Lock()
 	for range 10 {
 		f, err := os.OpenFile(path, os.O_RDWR|os.O_CREATE, 0o644)
 		if err != nil {
@@ -27,7 +26,7 @@ func lockDir(dir string, me Holder) (*DirLock, error) {
 			if errors.Is(err, syscall.EWOULDBLOCK) {
 				return nil, &LockedError{Dir: dir, Holder: parseHolder(b)}
 			}
-			return nil, fmt.Errorf("lock run directory %q: flock %s: %w", dir, LockName, err)
+			return nil, fmt.Errorf("lock run directory %q: flock %s: %w", dir, LockFile, err)
 		}
 		// An Unlock may have removed the file between our open and flock:
 		// then we hold a lock on a file no longer in the directory. Retry.
@@ -43,7 +42,7 @@ func lockDir(dir string, me Holder) (*DirLock, error) {
 		}
 		if err != nil {
 			f.Close()
-			return nil, fmt.Errorf("lock run directory %q: %s: %w", dir, LockName, err)
+			return nil, fmt.Errorf("lock run directory %q: %s: %w", dir, LockFile, err)
 		}
 		return &DirLock{Held: me, TookOver: parseHolder(b), path: path, file: f, held: true}, nil
 	}

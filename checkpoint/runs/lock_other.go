@@ -1,6 +1,6 @@
 //go:build !(linux || darwin || freebsd || netbsd || openbsd || dragonfly)
 
-package checkpoint
+package runs
 
 // lockDir uses the portable exclusive-create lock where flock(2) is not
 // available.

@@ -1,10 +1,7 @@
-package main
+package runs
 
 import (
-	"bufio"
-	"bytes"
 	"context"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -12,41 +9,85 @@ import (
 	"os"
 	"path/filepath"
 	"runtime"
-	"strings"
-	"sync/atomic"
-	"syscall"
 	"time"
 
 	"weft/checkpoint"
 	"weft/configs"
 	"weft/data"
+	"weft/data/atomicfile"
 	"weft/eval"
 	"weft/rnn"
 	"weft/rnn/linalg"
 )
 
-// Seams for tests: the checkpoint writer (to inject a full disk), a hook
-// after every training step, and the immediate exit of a second signal.
-var (
-	saveCheckpoint = checkpoint.Save
-	trainStepHook  func(step int64, net *rnn.Model[float32])
-	exitNow        = os.Exit
-)
-
 // Divergence guard: the moving average of the training loss spans about
 // lossAverageWindows windows, and spikes are judged only after
-// lossWarmupWindows windows of it.
+// lossWarmupWindows windows of it (until then against ln V).
 const (
 	lossAverageWindows = 50
 	lossWarmupWindows  = 20
 )
 
+// ErrGaveUp is wrapped by Train's error when the divergence guard ran out
+// of retries.
+var ErrGaveUp = errors.New("training diverged")
+
+// TrainOptions are the settings of one training invocation that are not
+// part of the run file, and the session's dependencies.
+type TrainOptions struct {
+	// Duration is the time budget of this invocation (--for); 0 means none
+	// (training.max_duration still applies).
+	Duration time.Duration
+	// Deadline is the wall-clock time to stop at; zero means none.
+	Deadline time.Time
+	// Restart moves the old checkpoints and metrics log aside and starts
+	// over.
+	Restart bool
+
+	// Observer hears what the session does; nil hears nothing.
+	Observer Observer
+	// Now is the clock; nil means time.Now.
+	Now func() time.Time
+	// Save writes a checkpoint; nil means checkpoint.Save. Tests inject
+	// failures (a full disk) here.
+	Save func(path string, f *checkpoint.File) error
+	// AfterStep, when non-nil, is called after every training step with
+	// the model (tests poison weights or advance a fake clock here).
+	AfterStep func(step int64, net *rnn.Model[float32])
+	// Stdin is read when the run file's corpus is "-".
+	Stdin io.Reader
+}
+
+// Result is what a training invocation reached.
+type Result struct {
+	BestPath   string // the best-validation checkpoint, "" when none
+	LatestPath string // the newest checkpoint
+	Steps      int64  // training steps in all (all invocations)
+	Epochs     int    // completed epochs
+	// BestValBitsPerChar is the best validation bits per character, NaN
+	// when the run never validated; BestStep is its step.
+	BestValBitsPerChar float64
+	BestStep           int64
+	// Interrupted says the context was cancelled and the run stopped after
+	// saving its state.
+	Interrupted bool
+	// Reason says why the run ended: the budget reached, early stopping,
+	// or "interrupted".
+	Reason string
+	// ResumedFrom is the checkpoint this invocation started from, "" for
+	// a fresh start.
+	ResumedFrom string
+	// NothingToDo says a resumed run had already reached its budget.
+	NothingToDo bool
+}
+
 // session is one invocation of training on a run directory.
 type session struct {
-	cc      cmdContext
 	r       *configs.Run
-	o       trainRunOptions
-	rd      *runDir
+	o       TrainOptions
+	obs     Observer
+	ctx     context.Context // cancelled to stop: finish the window, save
+	d       *Dir
 	ckdir   string
 	runTOML []byte
 	ds      *data.Dataset
@@ -61,8 +102,7 @@ type session struct {
 	lastGood     *checkpoint.File // the newest state known good, restored on divergence
 	lastGoodPath string
 
-	rep     *reporter
-	metrics *os.File
+	metrics *metricsLog
 
 	start       time.Time // of this invocation
 	deadline    time.Time // zero: none
@@ -79,51 +119,41 @@ type session struct {
 	winLoss   float64
 	winTokens int64
 	lastInfo  rnn.StepInfo
-	val       *valFigures // of the current step, for its metrics line
+	val       *Validation // of the current step, for its metrics line
 
-	stopCtx context.Context
-	stopSig atomic.Value // string
-	res     trainResult
+	res Result
 }
 
-type valFigures struct {
-	CrossEntropy float64 // nats per token
-	Perplexity   float64
-	BitsPerChar  float64
-}
-
-// trainRun trains r in runDir: it creates or resumes the run directory,
-// trains until a budget, early stopping, a signal or an error, and saves.
-// An interruption by signal is not an error: the result says Interrupted.
-// demo calls it too.
-func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (*trainResult, error) {
-	rd, err := openRunDir(runDir)
+// Train trains the run r in the run directory dir, creating it or resuming
+// it from the newest intact checkpoint, until a budget, early stopping, the
+// cancellation of ctx or an error; it saves the state at the end. A
+// cancelled run is not an error: it finishes the current window, saves, and
+// the result says Interrupted. A resumed run must use the same run file but
+// for the keys SafeOnResume allows and the same vocabulary.
+func Train(ctx context.Context, r *configs.Run, dir string, o TrainOptions) (*Result, error) {
+	d, err := Open(dir)
 	if err != nil {
 		return nil, err
 	}
-	defer rd.Close()
+	defer d.Close()
 	r, err = absoluteFiles(r)
 	if err != nil {
 		return nil, err
 	}
-	s := &session{cc: cc, r: r, o: o, rd: rd, ckdir: rd.file(checkpointsDir), lastSavedStep: -1}
-	s.rep = newReporter(cc.deps, time.Duration(r.Output.LogEverySeconds*float64(time.Second)), o.Quiet)
-	defer s.rep.finish()
-
-	stopCtx, stop := context.WithCancel(cc.ctx)
-	defer stop()
-	s.stopCtx = stopCtx
-	done := make(chan struct{})
-	defer close(done)
-	if cc.Signals != nil {
-		defer cc.claimSignals()()
-		go s.watchSignals(done, stop)
+	if o.Now == nil {
+		o.Now = time.Now
 	}
-
+	if o.Save == nil {
+		o.Save = checkpoint.Save
+	}
+	s := &session{r: r, o: o, obs: o.Observer, ctx: ctx, d: d, ckdir: d.Checkpoints(), lastSavedStep: -1}
+	if s.obs == nil {
+		s.obs = nopObserver{}
+	}
 	res, err := s.run()
 	if s.metrics != nil {
 		if cerr := s.metrics.Close(); err == nil && cerr != nil {
-			err = fmt.Errorf("metrics log: %w", cerr)
+			err = cerr
 		}
 	}
 	if s.pool != nil {
@@ -151,67 +181,39 @@ func absoluteFiles(r *configs.Run) (*configs.Run, error) {
 	return &c, nil
 }
 
-// signalName names the stopping signals as a user knows them.
-func signalName(sig os.Signal) string {
-	switch sig {
-	case os.Interrupt:
-		return "SIGINT"
-	case syscall.SIGTERM:
-		return "SIGTERM"
-	case syscall.SIGUSR1:
-		return "SIGUSR1"
-	}
-	return sig.String()
+func (s *session) stopped() bool { return s.ctx.Err() != nil }
+
+func (s *session) info(format string, args ...any) {
+	s.obs.Notice(Notice{Text: fmt.Sprintf(format, args...)})
 }
 
-// watchSignals turns the first stopping signal into a graceful stop and a
-// second into an immediate exit.
-func (s *session) watchSignals(done <-chan struct{}, stop context.CancelFunc) {
-	n := 0
-	for {
-		select {
-		case <-done:
-			return
-		case sig := <-s.cc.Signals:
-			n++
-			if n == 1 {
-				s.stopSig.Store(signalName(sig))
-				s.rep.warnf("%s: finishing the current window and saving; send it again to quit at once without saving", signalName(sig))
-				stop()
-				continue
-			}
-			s.rep.warnf("second %s: exiting at once without saving (status %d); the checkpoints in %s are intact", signalName(sig), exitAbandoned, s.ckdir)
-			exitNow(exitAbandoned)
-			return
-		}
-	}
+func (s *session) warn(format string, args ...any) {
+	s.obs.Notice(Notice{Warning: true, Text: fmt.Sprintf(format, args...)})
 }
 
-func (s *session) stopped() bool { return s.stopCtx.Err() != nil }
-
-func (s *session) run() (*trainResult, error) {
-	r, rd := s.r, s.rd
-	now := s.cc.Now()
+func (s *session) run() (*Result, error) {
+	r, d := s.r, s.d
+	now := s.o.Now()
 	s.start, s.lastSave = now, now
 	if err := s.setDeadline(now); err != nil {
 		return nil, err
 	}
 	if s.o.Restart {
-		moved, err := moveAside(rd, now)
+		moved, err := d.MoveAside(now)
 		if err != nil {
 			return nil, err
 		}
 		for _, m := range moved {
-			s.rep.logf("restart: moved %s", m)
+			s.info("restart: moved %s", m)
 		}
 	}
 	if err := os.MkdirAll(s.ckdir, 0o755); err != nil {
-		return nil, fmt.Errorf("run directory %s: %w", rd.Path, unwrapPath(err))
+		return nil, fmt.Errorf("run directory %s: %w", d.Path(), unwrapPath(err))
 	}
-	if removed, err := checkpoint.CleanTemp(s.ckdir); err != nil {
+	if removed, err := atomicfile.CleanTemp(s.ckdir); err != nil {
 		return nil, err
 	} else if len(removed) > 0 {
-		s.rep.logf("removed %d temporary file(s) left by an interrupted save", len(removed))
+		s.info("removed %d temporary file(s) left by an interrupted save", len(removed))
 	}
 	runTOML, err := configs.Encode(r)
 	if err != nil {
@@ -222,7 +224,7 @@ func (s *session) run() (*trainResult, error) {
 	// Resume from the newest intact checkpoint, if any.
 	path, f, skipped, err := checkpoint.LoadNewestValid(s.ckdir)
 	for _, e := range skipped {
-		s.rep.warnf("skipped a damaged checkpoint: %s", oneLine(e.Error()))
+		s.warn("skipped a damaged checkpoint: %s", oneLine(e.Error()))
 	}
 	switch {
 	case errors.Is(err, checkpoint.ErrNoCheckpoint):
@@ -237,13 +239,13 @@ func (s *session) run() (*trainResult, error) {
 			return nil, err
 		}
 		if len(skipped) > 0 {
-			s.rep.warnf("resuming from %s, the newest intact checkpoint", path)
+			s.warn("resuming from %s, the newest intact checkpoint", path)
 		}
 	}
-	if err := writeFileAtomic(rd.file(runConfigFile), runTOML); err != nil {
-		return nil, err
+	if err := atomicfile.WriteBytes(d.RunFile(), runTOML); err != nil {
+		return nil, fmt.Errorf("write %s: %w", d.RunFile(), err)
 	}
-	ds, err := prepareData(s.cc, r, rd)
+	ds, err := Prepare(s.ctx, r, d, s.o.Stdin)
 	if err != nil {
 		return nil, err
 	}
@@ -257,7 +259,7 @@ func (s *session) run() (*trainResult, error) {
 	if err := s.build(f, path); err != nil {
 		return nil, err
 	}
-	if err := s.openMetrics(); err != nil {
+	if s.metrics, err = openMetricsLog(d.Metrics(), s.tr.Steps()); err != nil {
 		return nil, err
 	}
 	return s.train()
@@ -362,41 +364,8 @@ func (s *session) build(f *checkpoint.File, path string) error {
 
 // file returns the current state as a checkpoint file.
 func (s *session) file() (*checkpoint.File, error) {
-	s.prog.WallSeconds = s.wallBase + s.cc.Now().Sub(s.start).Seconds()
+	s.prog.WallSeconds = s.wallBase + s.o.Now().Sub(s.start).Seconds()
 	return checkpoint.NewTrainingFile(s.tr, s.ds.Vocab, s.runTOML, s.prog)
-}
-
-// openMetrics opens the metrics log for appending, first dropping the
-// lines past the state training resumes from (written before a crash) and
-// any line a crash cut short.
-func (s *session) openMetrics() error {
-	path := s.rd.file(metricsFile)
-	if old, err := os.ReadFile(path); err == nil {
-		var keep bytes.Buffer
-		sc := bufio.NewScanner(bytes.NewReader(old))
-		sc.Buffer(nil, 1<<20)
-		for sc.Scan() {
-			var l struct {
-				Step *int64 `json:"step"`
-			}
-			if json.Unmarshal(sc.Bytes(), &l) != nil || l.Step == nil || *l.Step > s.tr.Steps() {
-				continue
-			}
-			keep.Write(sc.Bytes())
-			keep.WriteByte('\n')
-		}
-		if !bytes.Equal(keep.Bytes(), old) {
-			if err := writeFileAtomic(path, keep.Bytes()); err != nil {
-				return err
-			}
-		}
-	}
-	m, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_APPEND, 0o644)
-	if err != nil {
-		return fmt.Errorf("metrics log %s: %w", path, unwrapPath(err))
-	}
-	s.metrics = m
-	return nil
 }
 
 // doneReason says which budget the run has reached, or "".
@@ -411,34 +380,36 @@ func (s *session) doneReason() string {
 		return fmt.Sprintf("token budget reached (training.max_tokens = %d)", t.MaxTokens)
 	case t.EarlyStopPatience > 0 && p.BadValidations >= t.EarlyStopPatience:
 		return fmt.Sprintf("early stopping: no validation improvement in %d evaluations (training.early_stop_patience)", p.BadValidations)
-	case !s.deadline.IsZero() && !s.cc.Now().Before(s.deadline):
-		return "time budget reached"
+	case !s.deadline.IsZero() && !s.o.Now().Before(s.deadline):
+		return timeBudgetReached
 	}
 	return ""
 }
 
-func (s *session) train() (*trainResult, error) {
+const timeBudgetReached = "time budget reached"
+
+func (s *session) train() (*Result, error) {
 	r, tr := s.r, s.tr
-	what := "training"
-	if s.res.ResumedFrom != "" {
-		what = fmt.Sprintf("resuming from %s: step %d, %d epochs completed;", s.res.ResumedFrom, tr.Steps(), s.prog.Epoch)
-	}
-	s.rep.logf("%s %s, %s parameters, %s training tokens, %d streams × %d steps, %s",
-		what, s.net.Name(), thousands(int64(s.net.NumParams())), thousands(int64(len(s.ds.Train.Tokens))),
-		r.Training.BatchSize, r.Training.UnrollSteps, s.budgetText())
+	s.obs.Started(Start{
+		ResumedFrom: s.res.ResumedFrom, Step: tr.Steps(), Epochs: s.prog.Epoch,
+		Model: s.net.Name(), Params: int64(s.net.NumParams()), TrainTokens: int64(len(s.ds.Train.Tokens)),
+		Streams: r.Training.BatchSize, UnrollSteps: r.Training.UnrollSteps,
+		Budget: Budget{MaxSteps: r.Training.MaxSteps, MaxEpochs: r.Training.MaxEpochs, MaxTokens: r.Training.MaxTokens, Deadline: s.deadline},
+	})
 	due := s.prog.ValidationDue
-	if due { // a signal interrupted it: run it before anything else
+	if due { // a cancellation interrupted it: run it before anything else
 		if err := s.validate(); err != nil {
 			return nil, err
 		}
 	}
-	if reason := s.doneReason(); reason != "" && reason != "time budget reached" && s.res.ResumedFrom != "" {
+	if reason := s.doneReason(); reason != "" && reason != timeBudgetReached && s.res.ResumedFrom != "" {
 		if due {
 			if _, err := s.saveStep(true); err != nil {
 				return nil, err
 			}
 		}
-		s.rep.logf("nothing to do: %s at step %d; raise a budget to train on", reason, tr.Steps())
+		s.info("nothing to do: %s at step %d; raise a budget to train on", reason, tr.Steps())
+		s.res.NothingToDo = true
 		return s.result(reason), nil
 	}
 	s.prog.Finished, s.prog.FinishReason = false, ""
@@ -446,18 +417,13 @@ func (s *session) train() (*trainResult, error) {
 	if err != nil {
 		return nil, err
 	}
-	if reason == "" { // stopped by a signal
+	if reason == "" { // cancelled
 		path, err := s.saveStep(true)
 		if err != nil {
 			return nil, err
 		}
 		s.res.Interrupted = true
-		s.res.Signal, _ = s.stopSig.Load().(string)
-		if s.res.Signal == "" {
-			s.res.Signal = "cancellation"
-		}
 		s.res.LatestPath = path
-		s.rep.finish()
 		return s.result("interrupted"), nil
 	}
 	// At a budget: validate (unless just done), save, report.
@@ -468,19 +434,10 @@ func (s *session) train() (*trainResult, error) {
 	if _, err := s.saveStep(true); err != nil {
 		return nil, err
 	}
-	s.rep.finish()
-	res := s.result(reason)
-	if !s.o.Quiet {
-		fmt.Fprintf(s.cc.Out, "%s at step %s (%d epochs completed).", reason, thousands(res.Steps), res.Epochs)
-		if s.prog.HaveBest {
-			fmt.Fprintf(s.cc.Out, " Best validation: %.4f bits per character at step %s (%s).", s.prog.BestBitsPerChar, thousands(s.prog.BestStep), res.BestPath)
-		}
-		fmt.Fprintf(s.cc.Out, " Newest checkpoint: %s\n", res.LatestPath)
-	}
-	return res, nil
+	return s.result(reason), nil
 }
 
-func (s *session) result(reason string) *trainResult {
+func (s *session) result(reason string) *Result {
 	res := s.res
 	res.Reason = reason
 	res.Steps = s.tr.Steps()
@@ -488,6 +445,7 @@ func (s *session) result(reason string) *trainResult {
 	res.BestValBitsPerChar = math.NaN()
 	if s.prog.HaveBest {
 		res.BestValBitsPerChar = s.prog.BestBitsPerChar
+		res.BestStep = s.prog.BestStep
 	}
 	if p := checkpoint.BestPath(s.ckdir); fileExists(p) {
 		res.BestPath = p
@@ -505,32 +463,11 @@ func fileExists(p string) bool {
 	return err == nil
 }
 
-func (s *session) budgetText() string {
-	t := s.r.Training
-	var parts []string
-	if t.MaxSteps > 0 {
-		parts = append(parts, fmt.Sprintf("%s steps", thousands(int64(t.MaxSteps))))
-	}
-	if t.MaxEpochs > 0 {
-		parts = append(parts, fmt.Sprintf("%d epochs", t.MaxEpochs))
-	}
-	if t.MaxTokens > 0 {
-		parts = append(parts, fmt.Sprintf("%s tokens", thousands(t.MaxTokens)))
-	}
-	if !s.deadline.IsZero() {
-		parts = append(parts, "until "+s.deadline.Format("2006-01-02 15:04:05"))
-	}
-	if len(parts) == 0 {
-		return "no budget (stop with Ctrl-C; the state is saved)"
-	}
-	return "budget: " + strings.Join(parts, ", ") + ", whichever comes first"
-}
-
-// loop trains until a budget (its reason returned), a stop signal ("") or
-// an error.
+// loop trains until a budget (its reason returned), a cancellation ("")
+// or an error.
 func (s *session) loop() (string, error) {
 	r := s.r
-	bg := context.WithoutCancel(s.cc.ctx) // a window once started is finished
+	bg := context.WithoutCancel(s.ctx) // a window once started is finished
 	for {
 		if reason := s.doneReason(); reason != "" {
 			return reason, nil
@@ -588,8 +525,8 @@ func (s *session) loop() (string, error) {
 		s.winLoss += info.Loss * float64(info.Tokens)
 		s.winTokens += int64(info.Tokens)
 		s.lastInfo = info
-		if trainStepHook != nil {
-			trainStepHook(info.Step, s.net)
+		if s.o.AfterStep != nil {
+			s.o.AfterStep(info.Step, s.net)
 		}
 
 		if every := r.Evaluation.EverySteps; every > 0 && info.Step%int64(every) == 0 {
@@ -602,7 +539,7 @@ func (s *session) loop() (string, error) {
 				return "", err
 			}
 		}
-		s.report()
+		s.progress()
 		if s.periodicDue(info.Step) {
 			if _, err := s.saveStep(false); err != nil {
 				return "", err
@@ -616,7 +553,7 @@ func (s *session) periodicDue(step int64) bool {
 	if c.EverySteps > 0 && step%int64(c.EverySteps) == 0 {
 		return true
 	}
-	return c.EveryMinutes > 0 && s.cc.Now().Sub(s.lastSave) >= time.Duration(c.EveryMinutes*float64(time.Minute))
+	return c.EveryMinutes > 0 && s.o.Now().Sub(s.lastSave) >= time.Duration(c.EveryMinutes*float64(time.Minute))
 }
 
 // recoverDivergence restores the last good state with a lowered learning
@@ -631,9 +568,9 @@ func (s *session) recoverDivergence(why string) error {
 		if s.lastGoodPath != "" {
 			where = s.lastGoodPath
 		}
-		return fmt.Errorf("training diverged (%s) and did not recover in %d tries with the learning rate lowered each time to %g; gave up. "+
+		return &gaveUpError{fmt.Sprintf("training diverged (%s) and did not recover in %d tries with the learning rate lowered each time to %g; gave up. "+
 			"The last good state is %s; lower training.learning_rate or training.clip_norm and train again",
-			why, t.DivergenceRetries, s.r.Training.LearningRate*s.prog.LearningRateScale, where)
+			why, t.DivergenceRetries, s.r.Training.LearningRate*s.prog.LearningRateScale, where)}
 	}
 	scale := s.prog.LearningRateScale * t.DivergenceLRFactor
 	tr, err := rnn.NewTrainer(s.net, s.trainConfig(scale), s.pool)
@@ -658,14 +595,20 @@ func (s *session) recoverDivergence(why string) error {
 	st := tr.State()
 	s.tokens = st.Tokens
 	s.winLoss, s.winTokens = 0, 0
-	s.rep.warnf("divergence guard: %s; restored step %d and lowered the learning rate to %g (try %d of %d)",
+	s.warn("divergence guard: %s; restored step %d and lowered the learning rate to %g (try %d of %d)",
 		why, tr.Steps(), tr.LearningRate(), s.prog.Divergences, t.DivergenceRetries)
 	return nil
 }
 
+// gaveUpError is the divergence guard's final error; it wraps ErrGaveUp.
+type gaveUpError struct{ msg string }
+
+func (e *gaveUpError) Error() string { return e.msg }
+func (e *gaveUpError) Unwrap() error { return ErrGaveUp }
+
 // validate measures the validation split once per step: cross-entropy,
 // perplexity and bits per character; it feeds the schedule, keeps the best
-// copy and counts the early-stopping patience. A stop signal abandons it,
+// copy and counts the early-stopping patience. A cancellation abandons it,
 // marking it due for the resumed run.
 func (s *session) validate() error {
 	step := s.tr.Steps()
@@ -680,7 +623,7 @@ func (s *session) validate() error {
 		s.logp = make([]float64, len(v.Tokens))
 	}
 	logp := s.logp[:len(v.Tokens)]
-	if err := s.net.LogProbs(s.stopCtx, logp, v.Tokens); err != nil {
+	if err := s.net.LogProbs(s.ctx, logp, v.Tokens); err != nil {
 		if s.stopped() {
 			s.prog.ValidationDue = true
 			return nil
@@ -688,41 +631,32 @@ func (s *session) validate() error {
 		return fmt.Errorf("validation at step %d: %w", step, err)
 	}
 	res := eval.NewResult("rnn", "rnn", data.SplitValidation, logp, int(v.Characters))
-	fig := valFigures{CrossEntropy: res.CrossEntropyNats / float64(res.Tokens), Perplexity: res.Perplexity, BitsPerChar: res.BitsPerChar}
-	s.val = &fig
+	val := Validation{Step: step, CrossEntropy: res.CrossEntropyNats / float64(res.Tokens), Perplexity: res.Perplexity, BitsPerChar: res.BitsPerChar}
 	s.prog.ValidationDue = false
 	s.prog.LastValidationStep = step
-	s.prog.LastBitsPerChar = fig.BitsPerChar
-	divided := s.tr.ReportValidation(fig.CrossEntropy)
-	improved := !s.prog.HaveBest || fig.CrossEntropy < s.prog.BestValidation
-	if improved {
+	s.prog.LastBitsPerChar = val.BitsPerChar
+	val.LearningRateDivided = s.tr.ReportValidation(val.CrossEntropy)
+	val.Improved = !s.prog.HaveBest || val.CrossEntropy < s.prog.BestValidation
+	if val.Improved {
 		s.prog.HaveBest = true
-		s.prog.BestValidation, s.prog.BestBitsPerChar, s.prog.BestStep = fig.CrossEntropy, fig.BitsPerChar, step
+		s.prog.BestValidation, s.prog.BestBitsPerChar, s.prog.BestStep = val.CrossEntropy, val.BitsPerChar, step
 		s.prog.BadValidations = 0
 	} else {
 		s.prog.BadValidations++
 	}
-	note := ""
-	switch {
-	case improved:
-		note = " (best so far)"
-	case s.prog.HaveBest:
-		note = fmt.Sprintf(" (best %.4f at step %s)", s.prog.BestBitsPerChar, thousands(s.prog.BestStep))
-	}
-	s.rep.logf("validation at step %s: %.4f bits per character, perplexity %.3f, %.4f nats per token%s",
-		thousands(step), fig.BitsPerChar, fig.Perplexity, fig.CrossEntropy, note)
-	if divided {
-		s.rep.logf("validation loss stopped improving: learning rate divided to %g", s.tr.LearningRate())
-	}
+	val.BestBitsPerChar, val.BestStep = s.prog.BestBitsPerChar, s.prog.BestStep
+	val.LearningRate = s.tr.LearningRate()
+	s.val = &val
+	s.obs.Validated(val)
 	if err := s.writeMetrics(); err != nil {
 		return err
 	}
-	if improved {
+	if val.Improved {
 		f, err := s.file()
 		if err != nil {
 			return err
 		}
-		if err := saveCheckpoint(checkpoint.BestPath(s.ckdir), f); err != nil {
+		if err := s.o.Save(checkpoint.BestPath(s.ckdir), f); err != nil {
 			if err := s.saveFailed(err, false); err != nil {
 				return err
 			}
@@ -744,88 +678,56 @@ func (s *session) saveStep(final bool) (string, error) {
 	if err != nil {
 		return "", err
 	}
-	s.lastSave = s.cc.Now()
-	if err := saveCheckpoint(path, f); err != nil {
+	s.lastSave = s.o.Now()
+	if err := s.o.Save(path, f); err != nil {
 		return "", s.saveFailed(err, final)
 	}
 	s.lastGood, s.lastGoodPath, s.lastSavedStep = f, path, step
 	if _, err := checkpoint.Prune(s.ckdir, s.r.Checkpoint.KeepLast, path); err != nil {
-		s.rep.warnf("%s", oneLine(err.Error()))
+		s.warn("%s", oneLine(err.Error()))
 	}
 	return path, nil
 }
 
-// saveFailed applies checkpoint.on_save_error to a failed save.
+// saveFailed applies checkpoint.on_save_error to a failed save: it returns
+// the error, still wrapping its cause (errors.Is(err, syscall.ENOSPC) holds
+// for a full disk), or warns and returns nil.
 func (s *session) saveFailed(err error, final bool) error {
-	msg := oneLine(err.Error())
 	if final || s.r.Checkpoint.OnSaveError == "stop" {
-		return fmt.Errorf("%s; the previous checkpoints are untouched", msg)
+		return fmt.Errorf("%w; the previous checkpoints are untouched", err)
 	}
-	s.rep.warnf("%s; the previous checkpoints are untouched, training goes on (checkpoint.on_save_error = \"continue\")", msg)
+	s.warn("%s; the previous checkpoints are untouched, training goes on (checkpoint.on_save_error = \"continue\")", oneLine(err.Error()))
 	return nil
 }
 
-// jnum is a float written as JSON null when it is not finite.
-type jnum float64
-
-func (f jnum) MarshalJSON() ([]byte, error) {
-	if !finite(float64(f)) {
-		return []byte("null"), nil
-	}
-	return json.Marshal(float64(f))
-}
-
-// metricsLine is one line of metrics.jsonl.
-type metricsLine struct {
-	Step         int64   `json:"step"`
-	Epoch        int     `json:"epoch"`
-	Tokens       int64   `json:"tokens"`
-	WallSeconds  float64 `json:"wall_seconds"`
-	LearningRate jnum    `json:"learning_rate"`
-	// TrainLoss is the token-weighted mean training loss, in nats per
-	// token, of the windows since the previous line; GradNorm is the
-	// gradient norm before clipping of the last window.
-	TrainLoss *jnum `json:"train_loss,omitempty"`
-	GradNorm  *jnum `json:"grad_norm,omitempty"`
-	ValCE     *jnum `json:"val_cross_entropy,omitempty"`
-	ValPPL    *jnum `json:"val_perplexity,omitempty"`
-	ValBPC    *jnum `json:"val_bits_per_char,omitempty"`
-}
-
 func (s *session) writeMetrics() error {
-	l := metricsLine{
-		Step: s.tr.Steps(), Epoch: s.prog.Epoch, Tokens: s.tokens,
-		WallSeconds:  s.wallBase + s.cc.Now().Sub(s.start).Seconds(),
-		LearningRate: jnum(s.tr.LearningRate()),
+	l := MetricsLine{
+		Version: metricsVersion,
+		Step:    s.tr.Steps(), Epoch: s.prog.Epoch, Tokens: s.tokens,
+		WallSeconds:  s.wallBase + s.o.Now().Sub(s.start).Seconds(),
+		LearningRate: Number(s.tr.LearningRate()),
 	}
 	if s.winTokens > 0 {
-		loss, g := jnum(s.winLoss/float64(s.winTokens)), jnum(s.lastInfo.GradNorm)
+		loss, g := Number(s.winLoss/float64(s.winTokens)), Number(s.lastInfo.GradNorm)
 		l.TrainLoss, l.GradNorm = &loss, &g
 		s.winLoss, s.winTokens = 0, 0
 	}
 	if v := s.val; v != nil {
-		ce, ppl, bpc := jnum(v.CrossEntropy), jnum(v.Perplexity), jnum(v.BitsPerChar)
+		ce, ppl, bpc := Number(v.CrossEntropy), Number(v.Perplexity), Number(v.BitsPerChar)
 		l.ValCE, l.ValPPL, l.ValBPC = &ce, &ppl, &bpc
 		s.val = nil
 	}
 	if l.TrainLoss == nil && l.ValCE == nil {
 		return nil
 	}
-	b, err := json.Marshal(l)
-	if err != nil {
-		return err
-	}
-	if _, err := s.metrics.Write(append(b, '\n')); err != nil {
-		return fmt.Errorf("metrics log %s: %w", s.metrics.Name(), unwrapPath(err))
-	}
-	return nil
+	return s.metrics.Append(l)
 }
 
-// report updates the progress display.
-func (s *session) report() {
-	now := s.cc.Now()
+// progress tells the observer where the run stands.
+func (s *session) progress() {
+	now := s.o.Now()
 	el := now.Sub(s.start).Seconds()
-	st := progressStatus{
+	st := Status{
 		Step: s.tr.Steps(), Epoch: s.prog.Epoch, Loss: s.lastInfo.Loss, GradNorm: s.lastInfo.GradNorm,
 		ValBitsPerChar: math.NaN(), ETA: -1, MaxSteps: int64(s.r.Training.MaxSteps),
 	}
@@ -837,7 +739,7 @@ func (s *session) report() {
 		stepsPerSec := float64(s.tr.Steps()-s.startStep) / el
 		st.ETA = s.eta(now, stepsPerSec, st.TokensPerSec)
 	}
-	s.rep.update(st)
+	s.obs.Progress(st)
 }
 
 // eta estimates the time to the first budget, or -1 when there is none.
