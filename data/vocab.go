@@ -428,6 +428,17 @@ func (v *Vocab) EncodeReader(ctx context.Context, r io.Reader, name string, emit
 	return nil
 }
 
+// TokenText is the text token id adds to a decoded sequence after token
+// prev (-1 for none): the token's own text, except for symbols, whose
+// separating space depends on what comes before.
+func (v *Vocab) TokenText(prev, id int) string {
+	if v.Kind() == KindSymbols && prev >= 0 {
+		p := v.Decode([]int{prev})
+		return v.Decode([]int{prev, id})[len(p):]
+	}
+	return v.Decode([]int{id})
+}
+
 // Decode returns the text of ids: the pieces joined (for symbols, with one
 // space between the symbols of a line), the unknown entry as U+FFFD, the
 // line entry as "\n", the document entry as nothing.

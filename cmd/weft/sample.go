@@ -338,16 +338,6 @@ func (st *stopText) flush(upto int) error {
 // finish writes what is held back.
 func (st *stopText) finish() error { return st.flush(len(st.text)) }
 
-// tokenText is the text token id adds after token prev (-1 for none): its
-// piece, with the space the symbols tokenizer puts between symbols.
-func tokenText(v *data.Vocab, prev, id int) string {
-	if v.Kind() == data.KindSymbols && prev >= 0 {
-		p := v.Decode([]int{prev})
-		return v.Decode([]int{prev, id})[len(p):]
-	}
-	return v.Decode([]int{id})
-}
-
 func runSample(opts *sampleOptions) error {
 	length, err := parseSampleLength(opts.Length)
 	if err != nil {
@@ -433,7 +423,7 @@ func runSample(opts *sampleOptions) error {
 		_, err := rnn.Generate(opts.ctx, s, sp, length.maxTokens(), func(tk rnn.Token) (bool, error) {
 			t := ""
 			if tk.ID != v.Boundary() {
-				t = tokenText(v, prev, tk.ID)
+				t = v.TokenText(prev, tk.ID)
 			}
 			rec.Tokens = append(rec.Tokens, tokenJSON{ID: tk.ID, Text: t, LogProb: round6(tk.LogProb), Bits: round6(-tk.LogProb / math.Ln2)})
 			rec.LogProb += tk.LogProb
@@ -496,7 +486,7 @@ func sampleBeam(opts *sampleOptions, m *checkpoint.Model, promptText string, pro
 		for _, tk := range h.Tokens {
 			t := ""
 			if tk.ID != v.Boundary() {
-				t = tokenText(v, prev, tk.ID)
+				t = v.TokenText(prev, tk.ID)
 			} else {
 				rec.Stop = "boundary"
 			}

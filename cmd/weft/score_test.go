@@ -3,9 +3,7 @@ package main
 import (
 	"context"
 	"encoding/json"
-	"fmt"
 	"math"
-	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"slices"
@@ -15,7 +13,6 @@ import (
 	"weft/configs"
 	"weft/data"
 	"weft/eval"
-	"weft/rnn"
 )
 
 // scoreTol bounds the difference between two sums of the same float64
@@ -152,26 +149,6 @@ func TestScoreMatchesEval(t *testing.T) {
 			bits, bpc := evalBits(t, r.Net, r.Vocab, text, extra...)
 			if len(rows) != 1 || !closeRel(rows[0].Bits, bits, 1e-6) || !closeRel(rows[0].BitsPerChar, bpc, 1e-6) || rows[0].Characters != len(text) {
 				t.Errorf("got %+v, want bits %v bits/char %v characters %d", rows, bits, bpc, len(text))
-			}
-			// Before rounding for print, the unit scorer itself: one piece
-			// goes through the same LogProbs call and the same
-			// eval.NewResult sum, so the bits are identical, not merely
-			// close (a second implementation would show here).
-			sc := &scorer{lm: r.Net, kind: "rnn", vocab: r.Vocab}
-			var row scoreRow
-			u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: 1 << 20, skipText: -1,
-				emit: func(r scoreRow) error { row = r; return nil }}
-			u.start("x", 1)
-			for _, id := range append(r.Vocab.Encode(nil, text), extra...) {
-				if err := u.add(id, r.Vocab.Chars(id)); err != nil {
-					t.Fatal(err)
-				}
-			}
-			if err := u.end(); err != nil {
-				t.Fatal(err)
-			}
-			if row.Bits != bits {
-				t.Errorf("unit scorer: %v bits, eval %v", row.Bits, bits)
 			}
 		})
 	}
@@ -346,188 +323,5 @@ func TestScoreBaseline(t *testing.T) {
 	code, _, stderr := runCmd(t, "", "score", "--run", r.Dir, "--baseline", "hmm-9", file)
 	if code != exitFailure || !strings.Contains(stderr, "9-state") {
 		t.Errorf("missing HMM: got exit %d stderr %q", code, stderr)
-	}
-}
-
-var sinkRow scoreRow
-
-// BenchmarkScore measures scoring throughput (characters/s) of the
-// reference LSTM (vocabulary 96, embedding 64, one layer of 256) through
-// the unit scorer: 80-character lines each from a fresh state, or one
-// document with its state carried through.
-func BenchmarkScore(b *testing.B) {
-	var chars strings.Builder
-	for c := ' ' + 1; c < '~'; c++ { // 93 printable characters, space, unknown, line end: 96
-		chars.WriteRune(c)
-	}
-	chars.WriteString(" \n")
-	v, err := data.LearnVocab(context.Background(), strings.NewReader(chars.String()), "ascii", data.VocabOptions{Tokenizer: "char", Boundary: "line"})
-	if err != nil {
-		b.Fatal(err)
-	}
-	cfg := rnn.DefaultConfig()
-	cfg.HiddenSize, cfg.EmbeddingSize, cfg.Layers = 256, 64, 1
-	net, err := rnn.NewModel[float32](cfg, v.Len(), 1)
-	if err != nil {
-		b.Fatal(err)
-	}
-	if v.Len() != 96 {
-		b.Fatalf("vocabulary of %d entries, want 96", v.Len())
-	}
-	rng := rand.New(rand.NewPCG(1, 1))
-	const lineChars, lines = 80, 64
-	var toks []int
-	for i := 0; i < lines; i++ {
-		for j := 0; j < lineChars-1; j++ {
-			toks = append(toks, 2+rng.IntN(94))
-		}
-		toks = append(toks, v.Boundary())
-	}
-	for _, tc := range []struct {
-		unit    string
-		workers int
-	}{{"line", 1}, {"line", 2}, {"document", 1}} {
-		b.Run(fmt.Sprintf("lstm/vocab=96/embed=64/hidden=256/unit=%s/threads=%d", tc.unit, tc.workers), func(b *testing.B) {
-			sc := &scorer{lm: net, kind: "rnn", vocab: v, workers: tc.workers}
-			u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: 1 << 20, keepText: tc.unit == "line",
-				skipText: v.Boundary(), workers: tc.workers, emit: func(r scoreRow) error { sinkRow = r; return nil }}
-			b.ReportAllocs()
-			b.ResetTimer()
-			for i := 0; i < b.N; i++ {
-				u.start("bench", 1)
-				for k, id := range toks {
-					if err := u.add(id, 1); err != nil {
-						b.Fatal(err)
-					}
-					if tc.unit == "line" && id == v.Boundary() && k+1 < len(toks) {
-						if err := u.end(); err != nil {
-							b.Fatal(err)
-						}
-						u.start("bench", 1)
-					}
-				}
-				if err := u.end(); err != nil {
-					b.Fatal(err)
-				}
-				if err := u.flush(); err != nil {
-					b.Fatal(err)
-				}
-			}
-			b.ReportMetric(float64(b.N*len(toks))/b.Elapsed().Seconds(), "chars/s")
-		})
-	}
-}
-
-func TestScoreBadInput(t *testing.T) {
-	r := newDecodeRun(t, "line")
-	file := writeTemp(t, "bad.txt", "the cat\nsat \xff\xfe on\n")
-	code, out, stderr := runCmd(t, "", "score", "--run", r.Dir, file)
-	if code != exitFailure || strings.Count(stderr, "\n") != 1 || !strings.Contains(stderr, "bad.txt") {
-		t.Errorf("invalid UTF-8: got exit %d stdout %q stderr %q, want exit 1 and one line naming the file", code, out, stderr)
-	}
-}
-
-// TestScoreThreads checks that scoring several pieces at once gives the
-// same bytes as one at a time, for lines, long lines in pieces, windows
-// and documents.
-func TestScoreThreads(t *testing.T) {
-	r := newDecodeRun(t, "line")
-	var b strings.Builder
-	for i := 0; i < 30; i++ {
-		b.WriteString([]string{"the cat sat on the mat.\n", "a dog\n", "\n", "the log met a cat and a dog on a mat.\n"}[i%4])
-	}
-	file := writeTemp(t, "in.txt", b.String())
-	for _, args := range [][]string{
-		{"--json"},
-		{"--max-chars", "7"},
-		{"--unit", "window", "--window", "11", "--top", "5"},
-		{"--unit", "document", "--max-chars", "50"},
-	} {
-		_, want, _ := runCmd(t, "", append(append([]string{"score", "--run", r.Dir}, args...), file)...)
-		for _, threads := range []string{"2", "3"} {
-			code, got, stderr := runCmd(t, "", append(append([]string{"score", "--run", r.Dir, "--threads", threads}, args...), file)...)
-			if code != exitOK || got != want {
-				t.Errorf("%v --threads %s: exit %d %s, output differs from 1 thread:\n%s\nwant:\n%s", args, threads, code, stderr, got, want)
-			}
-		}
-	}
-}
-
-// TestScoreBoundedBuffers checks that a long unit is held one piece at a
-// time: after scoring a 3000-character line with pieces of 64 characters,
-// no buffer grew past what one piece needs.
-func TestScoreBoundedBuffers(t *testing.T) {
-	r := newDecodeRun(t, "")
-	const n, piece = 3000, 64
-	var rows []scoreRow
-	sc := &scorer{lm: r.Net, kind: "rnn", vocab: r.Vocab}
-	u := &unitScorer{cc: cmdContext{ctx: context.Background()}, sc: sc, maxChars: piece, keepText: true, skipText: -1,
-		emit: func(row scoreRow) error { rows = append(rows, row); return nil }}
-	u.start("long", 1)
-	id, _ := r.Vocab.ID("a")
-	for i := 0; i < n; i++ {
-		if err := u.add(id, 1); err != nil {
-			t.Fatal(err)
-		}
-	}
-	if err := u.end(); err != nil {
-		t.Fatal(err)
-	}
-	if len(rows) != 1 || rows[0].Pieces != (n+piece-1)/piece || rows[0].Characters != n {
-		t.Fatalf("got %+v, want one row of %d characters in %d pieces", rows, n, (n+piece-1)/piece)
-	}
-	if len(u.free) > 2 {
-		t.Errorf("%d piece buffers kept, want at most 2", len(u.free))
-	}
-	for _, j := range u.free {
-		if cap(j.tokens) > 2*piece || cap(j.logp) > 2*piece {
-			t.Errorf("a piece buffer holds %d tokens and %d log-probabilities, want at most %d", cap(j.tokens), cap(j.logp), 2*piece)
-		}
-	}
-	if got := len([]rune(rows[0].Text)); got != scoreTextLimit+1 {
-		t.Errorf("text of %d runes, want the first %d and an ellipsis", got, scoreTextLimit)
-	}
-}
-
-// TestEveryTokenizer runs both commands on a model of each tokenizer: a
-// sample's token texts spell its text, and scoring counts every character
-// of the input.
-func TestEveryTokenizer(t *testing.T) {
-	text := "the cat met the dog.\na mat sat on a log.\n"
-	for _, tok := range []string{"char", "byte", "word", "bpe", "symbols"} {
-		t.Run(tok, func(t *testing.T) {
-			r := newDecodeRunTokens(t, tok, "line")
-			code, out, stderr := runCmd(t, "", "sample", "--run", r.Dir, "--prompt", "the ", "--length", "15", "--seed", "3", "--json")
-			if code != exitOK {
-				t.Fatalf("sample: exit %d %s", code, stderr)
-			}
-			var rec sampleJSON
-			if err := json.Unmarshal([]byte(out), &rec); err != nil {
-				t.Fatal(err)
-			}
-			joined := ""
-			for _, tk := range rec.Tokens {
-				joined += tk.Text
-			}
-			if rec.Stop != "stop_string" && joined != rec.Text {
-				t.Errorf("sample: tokens spell %q, text %q", joined, rec.Text)
-			}
-			code, out, stderr = runCmd(t, "", "score", "--run", r.Dir, "--json", writeTemp(t, "in.txt", text))
-			if code != exitOK {
-				t.Fatalf("score: exit %d %s", code, stderr)
-			}
-			rows := parseRows(t, out)
-			chars := 0
-			for _, row := range rows {
-				chars += row.Characters
-			}
-			want := len(text)
-			if tok == "symbols" { // spaces separate symbols and are not tokens
-				want -= strings.Count(text, " ")
-			}
-			if len(rows) != 2 || chars != want {
-				t.Errorf("score: %d rows with %d characters, want 2 rows with %d", len(rows), chars, want)
-			}
-		})
 	}
 }

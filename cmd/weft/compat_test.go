@@ -3,11 +3,13 @@ package main
 import (
 	"weft/checkpoint/runs"
 	"weft/eval"
+	"weft/eval/surprise"
 )
 
-// The names the command-line tests use for the run directory's parts,
-// which package runs now owns (and eval, for the files inside the
-// baselines folder). The tests predate the move and keep their names.
+// Names the command-line tests use for what moved into library packages
+// (the run directory's parts into runs, the baselines folder's files into
+// eval, a scored row into eval/surprise). The tests predate the moves and
+// keep their names.
 const (
 	checkpointsDir   = runs.CheckpointsDir
 	metricsFile      = runs.MetricsFile
@@ -19,5 +21,7 @@ const (
 )
 
 var changedKeys = runs.ChangedKeys
+
+type scoreRow = surprise.Row
 
 func fileExists(p string) bool { return isFile(p) }

@@ -1,0 +1,383 @@
+// Package surprise scores text by how surprising a language model finds
+// it, unit by unit: each line, each document, or each window of a fixed
+// number of tokens. For each unit it gives the total surprise in bits
+// (−log₂ of the probability the model gives the text), bits per character,
+// the most surprising token with its surprise and character offset, and the
+// count of tokens that are the unknown symbol. It is the engine of
+// 'weft score', for any eval.LanguageModel: a recurrent model or a fitted
+// baseline.
+//
+// A unit is scored in pieces of at most Options.MaxChars characters, each
+// from the start of a document (a fresh model state) unless Options.Context
+// warms the model up on the tokens of the same input just before it. Up to
+// Options.Workers pieces are scored at once; the rows, and every number in
+// them, are the same for any number of workers.
+package surprise
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"math"
+	"slices"
+	"unicode/utf8"
+
+	"weft/data"
+	"weft/eval"
+)
+
+// Units.
+const (
+	Line     = "line"     // a line with its line end (which counts as one character)
+	Document = "document" // a whole input, followed by the document boundary when the vocabulary has one
+	Window   = "window"   // Options.Window consecutive tokens, across line ends
+)
+
+// TextLimit is the most characters of a unit's text a Row keeps; a longer
+// text is cut and ends with "…".
+const TextLimit = 256
+
+// Options say how text is cut into units and scored.
+type Options struct {
+	// Unit is Line, Document or Window.
+	Unit string
+	// Window is the tokens per window, with Unit Window.
+	Window int
+	// MaxChars is the longest stretch of a unit scored in one piece, in
+	// characters; a longer unit is scored in consecutive pieces.
+	MaxChars int
+	// Context is the number of tokens of the preceding text of the same
+	// input each piece is warmed up on (not scored); 0 scores each piece
+	// from a fresh state.
+	Context int
+	// Workers is the number of pieces scored at once; the model must be
+	// safe for concurrent LogProbs calls (rnn.Model is). 0 or 1: one.
+	Workers int
+}
+
+// Row is one scored unit.
+type Row struct {
+	Source         string  `json:"source"`
+	Line           int     `json:"line"` // where the unit starts, from 1
+	Characters     int     `json:"characters"`
+	Tokens         int     `json:"tokens"`
+	Bits           float64 `json:"bits"`
+	BitsPerChar    float64 `json:"bits_per_char"`
+	SurpriseBits   float64 `json:"surprise_bits"`
+	SurpriseOffset int     `json:"surprise_offset"` // in characters from the unit's start
+	SurpriseToken  string  `json:"surprise_token"`
+	UnknownTokens  int     `json:"unknown_tokens"`
+	Pieces         int     `json:"pieces"`
+	Text           string  `json:"text"` // empty for Document units
+
+	// Seq is the order in which the row was scored, from 0.
+	Seq int `json:"-"`
+}
+
+// Scorer scores inputs unit by unit and hands each finished row to its
+// emit function, in input order. It is not safe for concurrent use.
+type Scorer struct {
+	lm       eval.LanguageModel
+	kind     string
+	vocab    *data.Vocab
+	o        Options
+	newline  int // the line-end token, -1 when the vocabulary has none
+	skipText int // token id left out of the text: the line end of a line unit
+	emit     func(Row) error
+	seq      int
+
+	recent []int // the last Context tokens of the current input, oldest first
+
+	cur   *piece   // the piece being filled
+	queue []*piece // pieces handed to workers, oldest first
+	free  []*piece
+	sem   chan struct{}
+
+	// The unit being assembled.
+	row   Row
+	nats  float64
+	worst float64 // surprise of the most surprising token so far, in nats
+	text  []byte
+	runes int
+	prev  int
+}
+
+// piece is one piece of a unit: its tokens, their characters and, once
+// scored, their log-probabilities.
+type piece struct {
+	ctx           context.Context
+	warm          []int // context tokens scored before the piece, not counted
+	tokens, chars []int
+	nchars        int
+	logp          []float64
+	err           error
+	done          chan struct{}
+
+	first, last bool // the piece starts or ends its unit
+	source      string
+	line        int
+}
+
+// New returns a scorer of text encoded with v, scored by lm (whose kind,
+// such as "rnn" or "ngram", labels its results), that hands every row to
+// emit.
+func New(lm eval.LanguageModel, kind string, v *data.Vocab, o Options, emit func(Row) error) (*Scorer, error) {
+	switch o.Unit {
+	case Line, Document:
+		if o.Window != 0 {
+			return nil, fmt.Errorf("a window size goes with unit %q only", Window)
+		}
+	case Window:
+		if o.Window < 1 {
+			return nil, fmt.Errorf("unit %q needs a window of 1 token or more, got %d", Window, o.Window)
+		}
+	default:
+		return nil, fmt.Errorf("unknown unit %q: want line, document or window", o.Unit)
+	}
+	if o.MaxChars < 1 {
+		return nil, fmt.Errorf("the longest piece must be at least 1 character, got %d", o.MaxChars)
+	}
+	if o.Context < 0 {
+		return nil, fmt.Errorf("the context must be 0 or more tokens, got %d", o.Context)
+	}
+	s := &Scorer{lm: lm, kind: kind, vocab: v, o: o, newline: -1, skipText: -1, emit: emit}
+	if id, ok := v.ID("\n"); ok {
+		s.newline = id
+	}
+	if o.Unit == Line {
+		if s.newline < 0 {
+			return nil, ErrNoLineEnd
+		}
+		s.skipText = s.newline
+	}
+	return s, nil
+}
+
+// ErrNoLineEnd is New's error for line units with a vocabulary that has
+// no line-end entry.
+var ErrNoLineEnd = fmt.Errorf("the model's vocabulary has no line-end entry, so it cannot score lines")
+
+// Score encodes and scores the input r, named source in the rows. Context
+// never crosses inputs. It returns false when r held no token. Rows of
+// pieces still being scored are emitted by a later Score or by Flush.
+func (s *Scorer) Score(ctx context.Context, r io.Reader, source string) (bool, error) {
+	v := s.vocab
+	s.recent = s.recent[:0]
+	line := 1
+	inUnit := 0 // tokens in the current unit
+	any := false
+	var failed error
+	err := v.EncodeReader(ctx, r, source, func(id, chars int) {
+		if failed != nil {
+			return
+		}
+		any = true
+		if inUnit == 0 {
+			s.start(ctx, source, line)
+		}
+		if failed = s.add(ctx, id, chars); failed != nil {
+			return
+		}
+		inUnit++
+		if id == s.newline {
+			line++
+		}
+		switch {
+		case s.o.Unit == Line && id == s.newline,
+			s.o.Unit == Window && inUnit == s.o.Window:
+			failed = s.end()
+			inUnit = 0
+		}
+	})
+	if err == nil {
+		err = failed
+	}
+	if err != nil {
+		return any, err
+	}
+	if inUnit == 0 {
+		return any, nil
+	}
+	if s.o.Unit == Document && v.Boundary() >= 0 && v.Piece(v.Boundary()) == data.DocumentPiece {
+		// The document end, as the corpus pipeline adds it.
+		if err := s.add(ctx, v.Boundary(), 0); err != nil {
+			return any, err
+		}
+	}
+	return any, s.end()
+}
+
+// Flush waits for every piece handed over and emits the rows they finish.
+func (s *Scorer) Flush() error {
+	for len(s.queue) > 0 {
+		if err := s.consumeOldest(); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+func (s *Scorer) newPiece(ctx context.Context) *piece {
+	var p *piece
+	if n := len(s.free); n > 0 {
+		p = s.free[n-1]
+		s.free = s.free[:n-1]
+		*p = piece{warm: p.warm[:0], tokens: p.tokens[:0], chars: p.chars[:0], logp: p.logp[:0]}
+	} else {
+		p = &piece{}
+	}
+	p.ctx = ctx
+	p.warm = append(p.warm[:0], s.recent...)
+	return p
+}
+
+// start begins a unit at line of source.
+func (s *Scorer) start(ctx context.Context, source string, line int) {
+	s.cur = s.newPiece(ctx)
+	s.cur.first, s.cur.source, s.cur.line = true, source, line
+}
+
+// add appends one token of the current unit, handing the piece over first
+// when the token would take it past MaxChars.
+func (s *Scorer) add(ctx context.Context, id, chars int) error {
+	if s.cur.nchars+chars > s.o.MaxChars && len(s.cur.tokens) > 0 {
+		if err := s.submit(s.cur); err != nil {
+			return err
+		}
+		s.cur = s.newPiece(ctx)
+	}
+	p := s.cur
+	p.tokens = append(p.tokens, id)
+	p.chars = append(p.chars, chars)
+	p.nchars += chars
+	if s.o.Context > 0 {
+		if len(s.recent) == s.o.Context {
+			copy(s.recent, s.recent[1:])
+			s.recent = s.recent[:s.o.Context-1]
+		}
+		s.recent = append(s.recent, id)
+	}
+	return nil
+}
+
+// end ends the current unit; its row goes to emit once its pieces are
+// scored (a unit without tokens gives no row).
+func (s *Scorer) end() error {
+	p := s.cur
+	s.cur = nil
+	p.last = true
+	return s.submit(p)
+}
+
+func (s *Scorer) submit(p *piece) error {
+	if s.o.Workers <= 1 {
+		s.compute(p)
+		return s.consume(p)
+	}
+	if s.sem == nil {
+		s.sem = make(chan struct{}, s.o.Workers)
+	}
+	p.done = make(chan struct{})
+	s.queue = append(s.queue, p)
+	s.sem <- struct{}{}
+	go func() {
+		s.compute(p)
+		<-s.sem
+		close(p.done)
+	}()
+	for len(s.queue) > 2*s.o.Workers {
+		if err := s.consumeOldest(); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+func (s *Scorer) consumeOldest() error {
+	p := s.queue[0]
+	<-p.done
+	s.queue = s.queue[1:]
+	return s.consume(p)
+}
+
+// compute scores one piece from the start of a document with the model's
+// LogProbs: the code weft eval scores a split with.
+func (s *Scorer) compute(p *piece) {
+	n := len(p.tokens)
+	if n == 0 {
+		p.logp = p.logp[:0]
+		return
+	}
+	if len(p.warm) == 0 {
+		p.logp = slices.Grow(p.logp[:0], n)[:n]
+		p.err = s.lm.LogProbs(p.ctx, p.logp, p.tokens)
+		return
+	}
+	// Score the context and the piece as one sequence and keep the piece's
+	// part: the piece is predicted from the state the context leaves.
+	w := len(p.warm)
+	seq := append(slices.Clip(p.warm), p.tokens...)
+	lp := make([]float64, len(seq))
+	p.err = s.lm.LogProbs(p.ctx, lp, seq)
+	p.logp = append(p.logp[:0], lp[w:]...)
+}
+
+// consume adds a scored piece to its unit, totalled by eval.NewResult as
+// weft eval totals a split, and emits the row after the unit's last piece.
+func (s *Scorer) consume(p *piece) error {
+	defer func() { s.free = append(s.free, p) }()
+	if p.err != nil {
+		return p.err
+	}
+	if p.first {
+		s.row = Row{Source: p.source, Line: p.line}
+		s.nats, s.worst = 0, math.Inf(-1)
+		s.text, s.runes, s.prev = s.text[:0], 0, -1
+	}
+	v := s.vocab
+	keepText := s.o.Unit != Document
+	if len(p.tokens) > 0 {
+		res := eval.NewResult(s.lm.Name(), s.kind, "", p.logp, p.nchars)
+		res.SetUnknown(p.tokens, v.Unknown(), false)
+		offset := s.row.Characters
+		for i, lp := range p.logp {
+			id := p.tokens[i]
+			if -lp > s.worst {
+				s.worst = -lp
+				s.row.SurpriseBits = -lp / math.Ln2
+				s.row.SurpriseOffset = offset
+				s.row.SurpriseToken = v.Decode(p.tokens[i : i+1])
+				if id == v.Boundary() || id == v.Unknown() {
+					s.row.SurpriseToken = v.Piece(id)
+				}
+			}
+			offset += p.chars[i]
+			if keepText && s.runes <= TextLimit && id != s.skipText {
+				t := v.TokenText(s.prev, id)
+				s.text = append(s.text, t...)
+				s.runes += utf8.RuneCountInString(t)
+				s.prev = id
+			}
+		}
+		s.nats += res.CrossEntropyNats
+		s.row.Characters += p.nchars
+		s.row.Tokens += res.Tokens
+		s.row.UnknownTokens += res.UnknownTokens
+		s.row.Pieces++
+	}
+	if !p.last || s.row.Tokens == 0 {
+		return nil
+	}
+	r := s.row
+	r.Bits = s.nats / math.Ln2
+	r.BitsPerChar = r.Bits / float64(r.Characters)
+	if keepText {
+		r.Text = string(s.text)
+		if s.runes > TextLimit {
+			r.Text = string(append([]rune(r.Text)[:TextLimit], '…'))
+		}
+	}
+	r.Seq = s.seq
+	s.seq++
+	return s.emit(r)
+}
