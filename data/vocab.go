@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"io"
 	"sort"
+	"strconv"
+	"strings"
 	"unicode/utf8"
 )
 
@@ -472,4 +474,64 @@ func (v *Vocab) AppendDecode(dst []byte, ids []int) []byte {
 		dst = append(dst, p...)
 	}
 	return dst
+}
+
+// UnknownPiecesError lists the pieces of a text that are outside a
+// vocabulary, each once, in order of appearance.
+type UnknownPiecesError struct {
+	What   string // the text's name, e.g. "prompt"
+	Kind   string // what a piece is: "character", "word" or "symbol"
+	Pieces []string
+}
+
+func (e *UnknownPiecesError) Error() string {
+	what := e.Kind
+	if len(e.Pieces) > 1 {
+		what += "s"
+	}
+	list := make([]string, 0, min(len(e.Pieces), 10))
+	for _, u := range e.Pieces[:min(len(e.Pieces), 10)] {
+		list = append(list, strconv.Quote(u))
+	}
+	more := ""
+	if len(e.Pieces) > 10 {
+		more = fmt.Sprintf(" and %d more", len(e.Pieces)-10)
+	}
+	return fmt.Sprintf("%s has %d %s outside the model's vocabulary: %s%s", e.What, len(e.Pieces), what, strings.Join(list, ", "), more)
+}
+
+// EncodeKnown encodes text, named what in errors. With mapUnknown, pieces
+// outside the vocabulary become the unknown entry; without it they are an
+// *UnknownPiecesError listing them.
+func (v *Vocab) EncodeKnown(ctx context.Context, text, what string, mapUnknown bool) ([]int, error) {
+	var ids []int
+	var unknown []string
+	seen := map[string]bool{}
+	runes := []rune(text)
+	pos := 0
+	err := v.EncodeReader(ctx, strings.NewReader(text), what, func(id, chars int) {
+		if id == v.Unknown() {
+			end := min(pos+max(chars, 1), len(runes))
+			if p := string(runes[min(pos, end):end]); !seen[p] {
+				seen[p] = true
+				unknown = append(unknown, p)
+			}
+		}
+		pos += chars
+		ids = append(ids, id)
+	})
+	if err != nil {
+		return nil, err
+	}
+	if len(unknown) > 0 && !mapUnknown {
+		kind := "character"
+		switch v.Kind() {
+		case KindWord, KindBPE:
+			kind = "word"
+		case KindSymbols:
+			kind = "symbol"
+		}
+		return nil, &UnknownPiecesError{What: what, Kind: kind, Pieces: unknown}
+	}
+	return ids, nil
 }

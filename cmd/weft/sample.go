@@ -1,29 +1,23 @@
 package main
 
 import (
-	"bytes"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
 	"math"
-	"math/rand/v2"
 	"os"
-	"strconv"
 	"strings"
 
 	"github.com/spf13/cobra"
 
 	"weft/checkpoint"
+	"weft/checkpoint/generate"
 	"weft/checkpoint/runs"
 	"weft/data"
 	"weft/rnn"
 	"weft/rnn/linalg"
 )
-
-// pcgStream is the second PCG seed word of weft sample: --seed S seeds
-// PCG(S, pcgStream), so a seed names one sequence of draws everywhere.
-const pcgStream = 0x7765667473616d70 // "weftsamp"
 
 // generatedTextWarning ends the help of the commands that generate text.
 const generatedTextWarning = `Generated text can be wrong, biased or offensive. It reflects the corpus the
@@ -130,35 +124,6 @@ With --samples N above 1, each continuation is preceded by a line
 	return cmd
 }
 
-// sampleLength is a parsed --length: tokens, or characters.
-type sampleLength struct {
-	n     int
-	chars bool
-}
-
-func parseSampleLength(s string) (sampleLength, error) {
-	l := sampleLength{}
-	t := s
-	if strings.HasSuffix(t, "c") {
-		l.chars, t = true, strings.TrimSuffix(t, "c")
-	}
-	n, err := strconv.Atoi(t)
-	if err != nil || n < 1 {
-		return l, usagef("--length must be a positive number of tokens (200) or characters (200c), got %q", s)
-	}
-	l.n = n
-	return l, nil
-}
-
-// maxTokens is the most tokens a continuation of l may take: l.n tokens,
-// or enough for l.n characters of four-byte characters one byte token each.
-func (l sampleLength) maxTokens() int {
-	if l.chars {
-		return 4*l.n + 16
-	}
-	return l.n
-}
-
 // addThreadsFlag adds --threads, the thread count of the model's matrix
 // products. Results do not depend on it.
 func addThreadsFlag(cmd *cobra.Command, dst *int) {
@@ -193,51 +158,15 @@ func loadRunModel(run, which string) (*checkpoint.Model, error) {
 	return runs.OpenModel(run, which)
 }
 
-// encodePrompt encodes a prompt. Pieces outside the vocabulary are an
+// encodePrompt encodes a prompt; pieces outside the vocabulary are an
 // error listing them, or the unknown id with mapUnknown.
 func encodePrompt(cc cmdContext, v *data.Vocab, text string, mapUnknown bool) ([]int, error) {
-	var ids []int
-	var unknown []string
-	seen := map[string]bool{}
-	runes := []rune(text)
-	pos := 0
-	err := v.EncodeReader(cc.ctx, strings.NewReader(text), "prompt", func(id, chars int) {
-		if id == v.Unknown() {
-			end := min(pos+max(chars, 1), len(runes))
-			if p := string(runes[min(pos, end):end]); !seen[p] {
-				seen[p] = true
-				unknown = append(unknown, p)
-			}
-		}
-		pos += chars
-		ids = append(ids, id)
-	})
-	if err != nil {
-		return nil, err
+	ids, err := v.EncodeKnown(cc.ctx, text, "prompt", mapUnknown)
+	var ue *data.UnknownPiecesError
+	if errors.As(err, &ue) {
+		return nil, fmt.Errorf("%w (pass --map-unknown to read them as %s)", err, data.UnknownPiece)
 	}
-	if len(unknown) > 0 && !mapUnknown {
-		what := "character"
-		switch v.Kind() {
-		case data.KindWord, data.KindBPE:
-			what = "word"
-		case data.KindSymbols:
-			what = "symbol"
-		}
-		if len(unknown) > 1 {
-			what += "s"
-		}
-		list := make([]string, 0, min(len(unknown), 10))
-		for _, u := range unknown[:min(len(unknown), 10)] {
-			list = append(list, strconv.Quote(u))
-		}
-		more := ""
-		if len(unknown) > 10 {
-			more = fmt.Sprintf(" and %d more", len(unknown)-10)
-		}
-		return nil, fmt.Errorf("prompt has %d %s outside the model's vocabulary: %s%s (pass --map-unknown to read them as %s)",
-			len(unknown), what, strings.Join(list, ", "), more, data.UnknownPiece)
-	}
-	return ids, nil
+	return ids, err
 }
 
 func readPrompt(opts *sampleOptions) (string, error) {
@@ -278,6 +207,15 @@ type tokenJSON struct {
 	Bits    float64 `json:"bits"`
 }
 
+func newSampleJSON(i int, seed *uint64, prompt string, c generate.Continuation) sampleJSON {
+	rec := sampleJSON{Sample: i, Seed: seed, Prompt: prompt, Text: c.Text, Stop: c.Stop, Characters: len([]rune(c.Text)),
+		LogProb: round6(c.LogProb), Bits: round6(-c.LogProb / math.Ln2), Tokens: make([]tokenJSON, len(c.Tokens))}
+	for k, tk := range c.Tokens {
+		rec.Tokens[k] = tokenJSON{ID: tk.ID, Text: tk.Text, LogProb: round6(tk.LogProb), Bits: round6(-tk.LogProb / math.Ln2)}
+	}
+	return rec
+}
+
 // round6 rounds to 6 decimals, so that printed numbers do not depend on
 // the last bits of a machine's arithmetic.
 func round6(x float64) float64 {
@@ -287,61 +225,10 @@ func round6(x float64) float64 {
 	return math.Round(x*1e6) / 1e6
 }
 
-// stopText collects a continuation's text, writing it to out (when not
-// nil) as soon as no stop string can begin in it, and cuts it before the
-// first stop string.
-type stopText struct {
-	stops   []string
-	out     io.Writer
-	text    []byte
-	written int
-}
-
-// add appends s and reports whether a stop string now occurs; the text is
-// then cut just before it.
-func (st *stopText) add(s string) (bool, error) {
-	old := len(st.text)
-	st.text = append(st.text, s...)
-	cut := -1
-	for _, stop := range st.stops {
-		from := max(0, old-len(stop)+1)
-		if i := bytes.Index(st.text[from:], []byte(stop)); i >= 0 && (cut < 0 || from+i < cut) {
-			cut = from + i
-		}
-	}
-	if cut >= 0 {
-		st.text = st.text[:cut]
-		return true, st.flush(cut)
-	}
-	// Hold back the longest tail that could start a stop string.
-	safe := len(st.text)
-	for _, stop := range st.stops {
-		for k := min(len(stop)-1, len(st.text)); k > 0; k-- {
-			if bytes.HasSuffix(st.text, []byte(stop[:k])) {
-				safe = min(safe, len(st.text)-k)
-				break
-			}
-		}
-	}
-	return false, st.flush(max(safe, st.written))
-}
-
-func (st *stopText) flush(upto int) error {
-	if st.out == nil || upto <= st.written {
-		return nil
-	}
-	_, err := st.out.Write(st.text[st.written:upto])
-	st.written = upto
-	return err
-}
-
-// finish writes what is held back.
-func (st *stopText) finish() error { return st.flush(len(st.text)) }
-
 func runSample(opts *sampleOptions) error {
-	length, err := parseSampleLength(opts.Length)
+	length, err := generate.ParseLength(opts.Length)
 	if err != nil {
-		return err
+		return usagef("--length: %v", err)
 	}
 	if opts.Samples < 1 {
 		return usagef("--samples must be at least 1, got %d", opts.Samples)
@@ -386,140 +273,54 @@ func runSample(opts *sampleOptions) error {
 		seed = uint64(opts.Now().UnixNano())
 		fmt.Fprintf(opts.Err, "weft: seed %d (pass --seed %d to repeat)\n", seed, seed)
 	}
-	if opts.Beam > 0 {
-		return sampleBeam(opts, m, promptText, prompt, length)
+	var seedp *uint64
+	if opts.Beam == 0 && !scfg.Greedy() {
+		seedp = &seed
 	}
-	sp, err := rnn.NewSampler(scfg, rand.New(rand.NewPCG(seed, pcgStream)))
-	if err != nil {
-		return err
-	}
-	primed := m.Net.NewStream(1)
-	if err := rnn.Prime(opts.ctx, primed, prompt); err != nil {
-		return err
-	}
-	v := m.Vocab
-	last := -1
-	if len(prompt) > 0 {
-		last = prompt[len(prompt)-1]
-	}
-	for i := 1; i <= opts.Samples; i++ {
-		var out io.Writer
-		if !opts.JSON {
-			out = opts.Out
-			if opts.Samples > 1 {
-				fmt.Fprintf(out, "== sample %d ==\n", i)
+	o := generate.Options{Length: length, Samples: opts.Samples, Sampling: scfg, Seed: seed, Beam: opts.Beam, Stop: opts.Stop}
+	// Drawn text streams as it comes, after a heading and the prompt; a
+	// beam's is printed whole at the end, its heading with its bits.
+	started := 0
+	begin := func(i int, bits float64) error {
+		for ; started < i; started++ {
+			if opts.Samples > 1 && opts.Beam > 0 {
+				fmt.Fprintf(opts.Out, "== sample %d: %.4f bits ==\n", started+1, bits)
+			} else if opts.Samples > 1 {
+				fmt.Fprintf(opts.Out, "== sample %d ==\n", started+1)
 			}
-			if _, err := io.WriteString(out, promptText); err != nil {
+			if _, err := io.WriteString(opts.Out, promptText); err != nil {
 				return err
 			}
 		}
-		st := &stopText{stops: opts.Stop, out: out}
-		rec := sampleJSON{Sample: i, Prompt: promptText, Stop: "length", Tokens: []tokenJSON{}}
-		if !scfg.Greedy() {
-			rec.Seed = &seed
-		}
-		prev, chars := last, 0
-		s := primed.Clone()
-		_, err := rnn.Generate(opts.ctx, s, sp, length.maxTokens(), func(tk rnn.Token) (bool, error) {
-			t := ""
-			if tk.ID != v.Boundary() {
-				t = v.TokenText(prev, tk.ID)
+		return nil
+	}
+	var stream func(int, string) error
+	if !opts.JSON && opts.Beam == 0 {
+		stream = func(i int, text string) error {
+			if err := begin(i, 0); err != nil {
+				return err
 			}
-			rec.Tokens = append(rec.Tokens, tokenJSON{ID: tk.ID, Text: t, LogProb: round6(tk.LogProb), Bits: round6(-tk.LogProb / math.Ln2)})
-			rec.LogProb += tk.LogProb
-			prev = tk.ID
-			if tk.ID == v.Boundary() {
-				rec.Stop = "boundary"
-				return true, nil
-			}
-			chars += v.Chars(tk.ID)
-			stop, err := st.add(t)
-			if stop {
-				rec.Stop = "stop_string"
-			}
-			return stop || (length.chars && chars >= length.n), err
-		})
-		if err != nil {
+			_, err := opts.Out.Write([]byte(text))
 			return err
 		}
-		if err := st.finish(); err != nil {
-			return err
-		}
+	}
+	return generate.Continue(opts.ctx, m, prompt, o, stream, func(i int, c generate.Continuation) error {
 		if opts.JSON {
-			rec.Text = string(st.text)
-			rec.Characters = len([]rune(rec.Text))
-			rec.Bits = round6(-rec.LogProb / math.Ln2)
-			rec.LogProb = round6(rec.LogProb)
-			if err := writeJSONLine(opts.Out, rec); err != nil {
-				return err
-			}
-			continue
+			return writeJSONLine(opts.Out, newSampleJSON(i, seedp, promptText, c))
 		}
-		if full := promptText + string(st.text); !strings.HasSuffix(full, "\n") {
-			if _, err := io.WriteString(opts.Out, "\n"); err != nil {
-				return err
-			}
-		}
-	}
-	return nil
-}
-
-func sampleBeam(opts *sampleOptions, m *checkpoint.Model, promptText string, prompt []int, length sampleLength) error {
-	v := m.Vocab
-	cfg := rnn.BeamConfig{Width: opts.Beam, MaxTokens: length.maxTokens(), End: v.Boundary()}
-	if length.chars {
-		cfg.Chars, cfg.MaxChars = v.Chars, length.n
-	}
-	hyps, err := rnn.BeamSearch(opts.ctx, m.Net, prompt, cfg)
-	if err != nil {
-		return err
-	}
-	last := -1
-	if len(prompt) > 0 {
-		last = prompt[len(prompt)-1]
-	}
-	for i, h := range hyps[:min(opts.Samples, len(hyps))] {
-		rec := sampleJSON{Sample: i + 1, Prompt: promptText, Stop: "length", Tokens: []tokenJSON{}}
-		st := &stopText{stops: opts.Stop}
-		prev, stopped := last, false
-		var total float64
-		for _, tk := range h.Tokens {
-			t := ""
-			if tk.ID != v.Boundary() {
-				t = v.TokenText(prev, tk.ID)
-			} else {
-				rec.Stop = "boundary"
-			}
-			prev = tk.ID
-			if !stopped {
-				rec.Tokens = append(rec.Tokens, tokenJSON{ID: tk.ID, Text: t, LogProb: round6(tk.LogProb), Bits: round6(-tk.LogProb / math.Ln2)})
-				total += tk.LogProb
-				if s, _ := st.add(t); s {
-					stopped, rec.Stop = true, "stop_string"
-				}
-			}
-		}
-		rec.Text = string(st.text)
-		if opts.JSON {
-			rec.Characters = len([]rune(rec.Text))
-			rec.LogProb, rec.Bits = round6(total), round6(-total/math.Ln2)
-			if err := writeJSONLine(opts.Out, rec); err != nil {
-				return err
-			}
-			continue
-		}
-		if opts.Samples > 1 {
-			fmt.Fprintf(opts.Out, "== sample %d: %.4f bits ==\n", i+1, -total/math.Ln2)
-		}
-		full := promptText + rec.Text
-		if !strings.HasSuffix(full, "\n") {
-			full += "\n"
-		}
-		if _, err := io.WriteString(opts.Out, full); err != nil {
+		if err := begin(i, -c.LogProb/math.Ln2); err != nil {
 			return err
 		}
-	}
-	return nil
+		text := ""
+		if opts.Beam > 0 {
+			text = c.Text
+		}
+		if !strings.HasSuffix(promptText+c.Text, "\n") {
+			text += "\n"
+		}
+		_, err := io.WriteString(opts.Out, text)
+		return err
+	})
 }
 
 // writeJSONLine writes v as one line of JSON, without escaping HTML
