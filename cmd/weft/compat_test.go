@@ -2,6 +2,7 @@ package main
 
 import (
 	"weft/checkpoint/runs"
+	"weft/data/demo"
 	"weft/eval"
 	"weft/eval/surprise"
 )
@@ -25,3 +26,5 @@ var changedKeys = runs.ChangedKeys
 type scoreRow = surprise.Row
 
 func fileExists(p string) bool { return isFile(p) }
+
+var writeDemoCorpus = demo.WriteFiles

@@ -1,11 +1,7 @@
 package main
 
 import (
-	"bytes"
-	"encoding/json"
-	"errors"
 	"fmt"
-	"io/fs"
 	"math"
 	"os"
 	"path/filepath"
@@ -19,10 +15,7 @@ import (
 	"weft/data/demo"
 )
 
-const (
-	demoCorpusName = "port-averly-log.txt"
-	demoMarksExt   = ".marks.json" // beside a corpus: its long-range positions
-)
+const demoCorpusName = "port-averly-log.txt"
 
 type demoOptions struct {
 	cmdContext
@@ -100,11 +93,11 @@ func runDemo(opts *demoOptions) error {
 	}
 	corpus := filepath.Join(opts.Dir, demoCorpusName)
 	fmt.Fprintf(opts.Out, "weft demo: generating the Port Averly dispatch log (seed %d, %s bytes)\n", opts.Seed, thousands(int64(opts.Size)))
-	nMarks, err := writeDemoCorpus(corpus, opts.Seed, opts.Size)
+	nMarks, err := demo.WriteFiles(corpus, opts.Seed, opts.Size)
 	if err != nil {
 		return err
 	}
-	fmt.Fprintf(opts.Out, "  %s: %s long-range positions marked in %s\n", corpus, thousands(int64(nMarks)), filepath.Base(corpus)+demoMarksExt)
+	fmt.Fprintf(opts.Out, "  %s: %s long-range positions marked in %s\n", corpus, thousands(int64(nMarks)), filepath.Base(corpus)+demo.MarksExt)
 
 	abs, err := filepath.Abs(corpus)
 	if err != nil {
@@ -188,78 +181,16 @@ func printDemoVerdict(opts *demoOptions, cmp *comparison) {
 	}
 }
 
-// writeDemoCorpus generates the corpus and its marks file, leaving files
-// that already hold the same bytes untouched (so the token cache and a
-// resumed run stay valid). It returns the number of marks.
-func writeDemoCorpus(path string, seed uint64, size int) (int, error) {
-	var buf bytes.Buffer
-	marks, err := demo.Generate(&buf, seed, size)
-	if err != nil {
-		return 0, err
-	}
-	offsets := marks.Offsets(0)
-	mb, err := json.Marshal(demoMarksFile{Format: "weft-marks", Version: 1, Offsets: offsets})
-	if err != nil {
-		return 0, err
-	}
-	for _, f := range []struct {
-		path string
-		b    []byte
-	}{{path, buf.Bytes()}, {path + demoMarksExt, mb}} {
-		if old, err := os.ReadFile(f.path); err == nil && bytes.Equal(old, f.b) {
-			continue
-		}
-		if err := writeFileAtomic(f.path, f.b); err != nil {
-			return 0, err
-		}
-	}
-	return len(offsets), nil
-}
-
-// demoMarksFile lists the character offsets of a corpus file that only
-// long-range context predicts.
-type demoMarksFile struct {
-	Format  string `json:"format"` // "weft-marks"
-	Version int    `json:"version"`
-	Offsets []int  `json:"offsets"` // character (code point) offsets, increasing
-}
-
 // demoMarks returns the long-range mask of the reported split when the
 // run's corpus is one file with a marks file beside it (the demo corpus),
-// and nil otherwise. Tokens are placed by their character offsets in the
-// corpus (contiguous split only); a token is marked when its first
-// character is.
+// and nil otherwise.
 func demoMarks(r *configs.Run, ds *data.Dataset, split string) ([]bool, error) {
 	if len(r.Data.Files) != 1 {
 		return nil, nil
-	}
-	corpus := r.Data.Files[0]
-	mb, err := os.ReadFile(corpus + demoMarksExt)
-	if errors.Is(err, fs.ErrNotExist) {
-		return nil, nil
-	}
-	if err != nil {
-		return nil, err
-	}
-	var mf demoMarksFile
-	if err := json.Unmarshal(mb, &mf); err != nil || mf.Format != "weft-marks" {
-		return nil, fmt.Errorf("%s%s: not a marks file", corpus, demoMarksExt)
 	}
 	sp := ds.Test
 	if split == "validation" {
 		sp = ds.Validation
 	}
-	offsets, err := sp.TokenOffsets(nil)
-	if err != nil {
-		return nil, nil // a hash split: positions are not kept
-	}
-	marked := make(map[int64]bool, len(mf.Offsets))
-	for _, o := range mf.Offsets {
-		marked[int64(o)] = true
-	}
-	mask := make([]bool, len(offsets))
-	for i, o := range offsets {
-		mask[i] = marked[o]
-	}
-	return mask, nil
+	return demo.SplitMarks(r.Data.Files[0], sp)
 }
