@@ -152,3 +152,31 @@ func TestWrittenFilesCarryVersions(t *testing.T) {
 		t.Error(err)
 	}
 }
+
+// TestInspect describes the fixture run directory's newest and best
+// checkpoints, and reports a damaged copy as invalid rather than failing.
+func TestInspect(t *testing.T) {
+	all, err := Inspect(fixture)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(all) != 2 || all[0].Role != "newest" || all[1].Role != "best" || *all[0].Step != 20 || all[0].VocabSize != 21 || all[0].Optimizer != "adam" || !all[0].Valid {
+		t.Fatalf("got %+v", all)
+	}
+	b, err := os.ReadFile(filepath.Join(Layout(fixture).Checkpoints(), checkpoint.BestName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	b[len(b)-3] ^= 1
+	p := filepath.Join(t.TempDir(), "x.safetensors")
+	if err := os.WriteFile(p, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	in, err := InspectFile(p)
+	if err != nil || in.Valid || in.Problem == "" {
+		t.Errorf("damaged: got %+v, %v; want Valid false with the problem", in, err)
+	}
+	if _, err := Inspect(t.TempDir()); err == nil || !strings.Contains(err.Error(), "no checkpoints") {
+		t.Errorf("empty directory: got %v", err)
+	}
+}

@@ -1,6 +1,7 @@
 package main
 
 import (
+	"os"
 	"weft/checkpoint/runs"
 	"weft/data/demo"
 	"weft/eval"
@@ -25,6 +26,9 @@ var changedKeys = runs.ChangedKeys
 
 type scoreRow = surprise.Row
 
-func fileExists(p string) bool { return isFile(p) }
+func fileExists(p string) bool {
+	_, err := os.Stat(p)
+	return err == nil
+}
 
 var writeDemoCorpus = demo.WriteFiles

@@ -5,15 +5,12 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"os"
 	"strings"
 	"text/tabwriter"
 
 	"github.com/spf13/cobra"
 
-	"weft/checkpoint"
 	"weft/checkpoint/runs"
-	"weft/configs"
 )
 
 type inspectOptions struct {
@@ -47,72 +44,29 @@ A damaged file is reported on one line and the status is 1.`,
 	return cmd
 }
 
-// inspection is the description of one checkpoint (its JSON form is for
-// scripts).
-type inspection struct {
-	Role string `json:"role,omitempty"` // "newest" or "best" in a run directory
-	checkpoint.Summary
-	Step       *int64               `json:"step,omitempty"`
-	Progress   *checkpoint.Progress `json:"progress,omitempty"`
-	Model      map[string]any       `json:"model,omitempty"`
-	VocabSize  int                  `json:"vocabulary_size,omitempty"`
-	Tokenizer  string               `json:"tokenizer,omitempty"`
-	Optimizer  string               `json:"optimizer,omitempty"`
-	Parameters int64                `json:"parameters,omitempty"`
-	Detail     string               `json:"detail,omitempty"` // why the model part is unreadable
-}
-
 func runInspect(opts *inspectOptions) error {
-	fi, err := os.Stat(opts.Path)
+	all, err := runs.Inspect(opts.Path)
 	if err != nil {
-		return fmt.Errorf("inspect %s: %w", opts.Path, unwrapPath(err))
+		return err
 	}
-	var targets []struct{ role, path string }
-	if fi.IsDir() {
-		dir := opts.Path
-		if sub := runs.Layout(dir).Checkpoints(); isDir(sub) {
-			dir = sub
-		}
-		ents, err := checkpoint.List(dir)
-		if err != nil {
-			return err
-		}
-		if len(ents) > 0 {
-			targets = append(targets, struct{ role, path string }{"newest", ents[0].Path})
-		}
-		if p := checkpoint.BestPath(dir); isFile(p) {
-			targets = append(targets, struct{ role, path string }{"best", p})
-		}
-		if len(targets) == 0 {
-			return fmt.Errorf("inspect %s: no checkpoints", opts.Path)
-		}
-	} else {
-		targets = append(targets, struct{ role, path string }{"", opts.Path})
-	}
-	var all []inspection
 	var bad []string
-	for _, t := range targets {
-		in, err := inspectFile(t.path)
-		if err != nil {
-			return err
-		}
-		in.Role = t.role
-		all = append(all, in)
+	for _, in := range all {
 		if !in.Valid {
-			bad = append(bad, fmt.Sprintf("checkpoint %s is damaged: %s", t.path, in.Problem))
+			bad = append(bad, fmt.Sprintf("checkpoint %s is damaged: %s", in.Path, in.Problem))
 		}
 	}
+	single := len(all) == 1 && all[0].Role == ""
 	if opts.JSON {
 		enc := json.NewEncoder(opts.Out)
 		enc.SetIndent("", "  ")
 		var v any = all
-		if !fi.IsDir() {
+		if single {
 			v = all[0]
 		}
 		if err := enc.Encode(v); err != nil {
 			return err
 		}
-	} else if len(bad) == 0 || fi.IsDir() {
+	} else if len(bad) == 0 || !single {
 		for i, in := range all {
 			if i > 0 {
 				fmt.Fprintln(opts.Out)
@@ -126,66 +80,7 @@ func runInspect(opts *inspectOptions) error {
 	return nil
 }
 
-func isDir(p string) bool {
-	fi, err := os.Stat(p)
-	return err == nil && fi.IsDir()
-}
-
-func isFile(p string) bool {
-	fi, err := os.Stat(p)
-	return err == nil && fi.Mode().IsRegular()
-}
-
-// inspectFile verifies and describes one checkpoint. A damaged file is a
-// description with Valid false, not an error.
-func inspectFile(path string) (inspection, error) {
-	s, err := checkpoint.Inspect(path)
-	if err != nil {
-		return inspection{}, fmt.Errorf("inspect %s: %w", path, unwrapPath(err))
-	}
-	in := inspection{Summary: s}
-	if !s.Valid {
-		// The message names the file already.
-		in.Problem = strings.TrimPrefix(oneLine(in.Problem), fmt.Sprintf("load checkpoint %q: ", path))
-		return in, nil
-	}
-	f, err := checkpoint.Load(path)
-	if err != nil { // changed since Inspect read it
-		in.Valid, in.Problem = false, oneLine(err.Error())
-		return in, nil
-	}
-	if _, ok := f.Meta[checkpoint.MetaModelConfig]; !ok {
-		in.Detail = "not a model checkpoint (no model config)"
-		return in, nil
-	}
-	m, err := checkpoint.ModelFromFile(f, path)
-	if err != nil {
-		in.Detail = oneLine(err.Error())
-		return in, nil
-	}
-	var cfg map[string]any
-	if json.Unmarshal([]byte(f.Meta[checkpoint.MetaModelConfig]), &cfg) == nil {
-		in.Model = cfg
-	}
-	in.VocabSize = m.Vocab.Len()
-	in.Tokenizer = m.Vocab.Kind().String()
-	in.Parameters = int64(m.Net.NumParams())
-	if _, ok := f.Meta[checkpoint.MetaTrainer]; ok {
-		step := m.Step
-		in.Step = &step
-	}
-	if p, err := checkpoint.ReadProgress(f); err == nil {
-		in.Progress = &p
-	}
-	if rc := f.Meta[checkpoint.MetaRunConfig]; rc != "" {
-		if r, err := configs.Parse(path, []byte(rc), nil); err == nil {
-			in.Optimizer = r.Training.Optimizer
-		}
-	}
-	return in, nil
-}
-
-func printInspection(w io.Writer, in inspection) {
+func printInspection(w io.Writer, in runs.Inspection) {
 	title := "checkpoint"
 	if in.Role != "" {
 		title = in.Role + " checkpoint"
