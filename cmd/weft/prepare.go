@@ -1,7 +1,6 @@
 package main
 
 import (
-	"context"
 	"encoding/json"
 	"fmt"
 	"io"
@@ -13,13 +12,6 @@ import (
 	"weft/configs"
 	"weft/data"
 )
-
-// cmdContext is what every run function gets: the context (cancelled by
-// the stopping signals) and the injected streams.
-type cmdContext struct {
-	ctx context.Context
-	*deps
-}
 
 type prepareOptions struct {
 	cmdContext
@@ -108,17 +100,4 @@ func printSplitReport(w io.Writer, ds *data.Dataset) {
 	}
 	tw.Flush()
 	fmt.Fprintf(w, "\ntest lines also found verbatim in training: %s of %s\n", thousands(ds.Report.LeakedTestLines), thousands(ds.Report.Test.Lines))
-}
-
-// thousands formats n with commas between groups of three digits.
-func thousands(n int64) string {
-	s := fmt.Sprint(n)
-	neg := ""
-	if n < 0 {
-		neg, s = "-", s[1:]
-	}
-	for i := len(s) - 3; i > 0; i -= 3 {
-		s = s[:i] + "," + s[i:]
-	}
-	return neg + s
 }

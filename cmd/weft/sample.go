@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -11,12 +10,9 @@ import (
 
 	"github.com/spf13/cobra"
 
-	"weft/checkpoint"
 	"weft/checkpoint/generate"
-	"weft/checkpoint/runs"
 	"weft/data"
 	"weft/rnn"
-	"weft/rnn/linalg"
 )
 
 // generatedTextWarning ends the help of the commands that generate text.
@@ -124,40 +120,6 @@ With --samples N above 1, each continuation is preceded by a line
 	return cmd
 }
 
-// addThreadsFlag adds --threads, the thread count of the model's matrix
-// products. Results do not depend on it.
-func addThreadsFlag(cmd *cobra.Command, dst *int) {
-	cmd.Flags().IntVar(dst, "threads", 1, "threads for the model's matrix products (the output does not depend on it)")
-}
-
-// usePool gives m a pool of n threads and returns the function that
-// closes it.
-func usePool(m *checkpoint.Model, n int) (func(), error) {
-	if n < 1 {
-		return nil, usagef("--threads must be at least 1, got %d", n)
-	}
-	if n == 1 {
-		return func() {}, nil
-	}
-	p := linalg.NewPool(n)
-	m.Net.SetPool(p)
-	return func() { m.Net.SetPool(nil); p.Close() }, nil
-}
-
-// loadRunModel loads the model of a run directory or a checkpoint file, as
-// --run and --checkpoint say.
-func loadRunModel(run, which string) (*checkpoint.Model, error) {
-	switch {
-	case run == "" && which == "":
-		return nil, usagef("give --run DIR or --checkpoint FILE")
-	case run == "":
-		return checkpoint.LoadModel(which)
-	case strings.ContainsAny(which, `/\`):
-		return checkpoint.LoadModel(which)
-	}
-	return runs.OpenModel(run, which)
-}
-
 // encodePrompt encodes a prompt; pieces outside the vocabulary are an
 // error listing them, or the unknown id with mapUnknown.
 func encodePrompt(cc cmdContext, v *data.Vocab, text string, mapUnknown bool) ([]int, error) {
@@ -214,15 +176,6 @@ func newSampleJSON(i int, seed *uint64, prompt string, c generate.Continuation) 
 		rec.Tokens[k] = tokenJSON{ID: tk.ID, Text: tk.Text, LogProb: round6(tk.LogProb), Bits: round6(-tk.LogProb / math.Ln2)}
 	}
 	return rec
-}
-
-// round6 rounds to 6 decimals, so that printed numbers do not depend on
-// the last bits of a machine's arithmetic.
-func round6(x float64) float64 {
-	if math.IsInf(x, 0) || math.IsNaN(x) {
-		return x
-	}
-	return math.Round(x*1e6) / 1e6
 }
 
 func runSample(opts *sampleOptions) error {
@@ -321,18 +274,4 @@ func runSample(opts *sampleOptions) error {
 		_, err := io.WriteString(opts.Out, text)
 		return err
 	})
-}
-
-// writeJSONLine writes v as one line of JSON, without escaping HTML
-// characters.
-func writeJSONLine(w io.Writer, v any) error {
-	enc := json.NewEncoder(w)
-	enc.SetEscapeHTML(false)
-	if err := enc.Encode(v); err != nil {
-		if errors.Is(err, io.ErrShortWrite) {
-			return err
-		}
-		return fmt.Errorf("write JSON: %w", err)
-	}
-	return nil
 }

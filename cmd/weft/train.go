@@ -3,7 +3,6 @@ package main
 import (
 	"context"
 	"fmt"
-	"math"
 	"os"
 	"path/filepath"
 	"strings"
@@ -300,5 +299,3 @@ func budgetText(b runs.Budget) string {
 	}
 	return "budget: " + strings.Join(parts, ", ") + ", whichever comes first"
 }
-
-func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
