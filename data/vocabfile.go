@@ -157,11 +157,7 @@ func (v *Vocab) UnmarshalJSON(b []byte) error {
 
 // WriteFile saves the vocabulary at path atomically (atomicfile.WriteBytes).
 func (v *Vocab) WriteFile(path string) error {
-	b, err := json.MarshalIndent(v, "", " ")
-	if err != nil {
-		return fmt.Errorf("write vocabulary %q: %w", path, err)
-	}
-	if err := atomicfile.WriteBytes(path, append(b, '\n')); err != nil {
+	if err := atomicfile.WriteJSON(path, v, " "); err != nil {
 		return fmt.Errorf("write vocabulary %q: %w", path, err)
 	}
 	return nil

@@ -29,17 +29,16 @@ const (
 // Manifest records what a saved baseline ladder was fitted on, so that a
 // changed corpus or setting refits it.
 type Manifest struct {
-	Format      string `json:"format"` // "weft-baselines"
-	Version     int    `json:"version"`
-	TrainSHA256 string `json:"train_sha256"` // of the training token ids, 8 bytes little-endian each
-	VocabSize   int    `json:"vocabulary_size"`
-	Boundary    int    `json:"boundary"`
-	Settings    string `json:"settings"` // the [evaluation] keys that shape the fit, as JSON
+	data.FileHeader        // "weft-baselines", 1
+	TrainSHA256     string `json:"train_sha256"` // of the training token ids, 8 bytes little-endian each
+	VocabSize       int    `json:"vocabulary_size"`
+	Boundary        int    `json:"boundary"`
+	Settings        string `json:"settings"` // the [evaluation] keys that shape the fit, as JSON
 }
 
 // newManifest describes the ladder cfg gives on ds's training split.
 func newManifest(cfg eval.Config, ds *data.Dataset) Manifest {
-	return Manifest{Format: manifestFormat, Version: manifestVersion, TrainSHA256: tokensSHA256(ds.Train.Tokens),
+	return Manifest{FileHeader: data.FileHeader{Format: manifestFormat, Version: manifestVersion}, TrainSHA256: tokensSHA256(ds.Train.Tokens),
 		VocabSize: ds.Vocab.Len(), Boundary: ds.Vocab.Boundary(), Settings: fitSettings(cfg)}
 }
 
@@ -55,13 +54,7 @@ func ReadManifest(dir string) (Manifest, error) {
 	if err := json.Unmarshal(b, &m); err != nil {
 		return m, fmt.Errorf("baselines manifest %s: %w", path, err)
 	}
-	if m.Format != manifestFormat {
-		return m, fmt.Errorf("baselines manifest %s: a %q file, not %q", path, m.Format, manifestFormat)
-	}
-	if m.Version < 1 || m.Version > manifestVersion {
-		return m, fmt.Errorf("baselines manifest %s: format version %d; this weft reads versions 1 to %d", path, m.Version, manifestVersion)
-	}
-	return m, nil
+	return m, m.Check(path, manifestFormat, manifestVersion, false)
 }
 
 // FitBaselines builds the ladder cfg configures on ds's training split,

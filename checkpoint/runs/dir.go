@@ -72,11 +72,7 @@ func (d *Dir) WriteJSON(name string, v any) error {
 }
 
 func writeJSON(path string, v any) error {
-	b, err := json.MarshalIndent(v, "", "  ")
-	if err != nil {
-		return fmt.Errorf("write %s: %w", path, err)
-	}
-	if err := atomicfile.WriteBytes(path, append(b, '\n')); err != nil {
+	if err := atomicfile.WriteJSON(path, v, "  "); err != nil {
 		return fmt.Errorf("write %s: %w", path, err)
 	}
 	return nil
@@ -110,7 +106,7 @@ func Prepare(ctx context.Context, r *configs.Run, d *Dir, stdin io.Reader) (*dat
 		if err := ds.Vocab.WriteFile(d.Vocab()); err != nil {
 			return nil, err
 		}
-		if err := writeJSON(d.SplitFile(), splitFile{Format: splitFormat, Version: splitVersion, Report: ds.Report}); err != nil {
+		if err := writeJSON(d.SplitFile(), splitFile{FileHeader: data.FileHeader{Format: splitFormat, Version: splitVersion}, Report: ds.Report}); err != nil {
 			return nil, err
 		}
 	}
@@ -148,8 +144,7 @@ const (
 )
 
 type splitFile struct {
-	Format  string `json:"format"`
-	Version int    `json:"version"`
+	data.FileHeader
 	data.Report
 }
 
@@ -164,22 +159,8 @@ func ReadSplitReport(dir string) (data.Report, error) {
 	if err := json.Unmarshal(b, &f); err != nil {
 		return data.Report{}, fmt.Errorf("split report %s: %w", path, err)
 	}
-	if err := checkVersion(path, f.Format, splitFormat, f.Version, splitVersion); err != nil {
+	if err := f.Check(path, splitFormat, splitVersion, true); err != nil {
 		return data.Report{}, err
 	}
 	return f.Report, nil
-}
-
-// checkVersion accepts a file of format want (or of no format, version 0:
-// written before files had versions) up to version max.
-func checkVersion(path, format, want string, version, max int) error {
-	switch {
-	case format != "" && format != want:
-		return fmt.Errorf("%s: a %q file, not %q", path, format, want)
-	case version < 0 || version > max:
-		return fmt.Errorf("%s: format version %d; this weft reads versions up to %d (a newer weft wrote it)", path, version, max)
-	case format == "" && version != 0:
-		return fmt.Errorf("%s: no format name but version %d", path, version)
-	}
-	return nil
 }

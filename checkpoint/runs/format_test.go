@@ -76,7 +76,7 @@ func TestVersionChecks(t *testing.T) {
 		t.Errorf("split report of version 9: got %v", err)
 	}
 	write(SplitFile, `{"format":"weft-marks","version":1}`)
-	if _, err := ReadSplitReport(dir); err == nil || !strings.Contains(err.Error(), `"weft-marks" file`) {
+	if _, err := ReadSplitReport(dir); err == nil || !strings.Contains(err.Error(), `not a "weft-split" file (format "weft-marks")`) {
 		t.Errorf("split report of another format: got %v", err)
 	}
 	write(filepath.Join(BaselinesDir, ManifestFile), `{"format":"weft-baselines","version":3}`)

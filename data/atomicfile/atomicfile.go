@@ -19,6 +19,7 @@
 package atomicfile
 
 import (
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -145,6 +146,22 @@ func WriteBytes(path string, b []byte) error {
 		_, err := w.Write(b)
 		return err
 	})
+}
+
+// WriteJSON replaces the file at path with v encoded as JSON, indented by
+// indent ("" for one line) and ending with a line end, atomically.
+func WriteJSON(path string, v any, indent string) error {
+	var b []byte
+	var err error
+	if indent == "" {
+		b, err = json.Marshal(v)
+	} else {
+		b, err = json.MarshalIndent(v, "", indent)
+	}
+	if err != nil {
+		return err
+	}
+	return WriteBytes(path, append(b, '\n'))
 }
 
 // describe prefixes err with what was being done, and says "disk full"

@@ -25,9 +25,8 @@ const (
 // marksFile lists the character offsets of a corpus file that only
 // long-range context predicts.
 type marksFile struct {
-	Format  string `json:"format"` // "weft-marks"
-	Version int    `json:"version"`
-	Offsets []int  `json:"offsets"` // character (code point) offsets, increasing
+	data.FileHeader       // "weft-marks", 1
+	Offsets         []int `json:"offsets"` // character (code point) offsets, increasing
 }
 
 // WriteFiles generates the corpus of seed and size into path and its marks
@@ -41,7 +40,7 @@ func WriteFiles(path string, seed uint64, size int) (int, error) {
 		return 0, err
 	}
 	offsets := marks.Offsets(0)
-	mb, err := json.Marshal(marksFile{Format: marksFormat, Version: marksVersion, Offsets: offsets})
+	mb, err := json.Marshal(marksFile{FileHeader: data.FileHeader{Format: marksFormat, Version: marksVersion}, Offsets: offsets})
 	if err != nil {
 		return 0, err
 	}
@@ -72,11 +71,11 @@ func SplitMarks(corpus string, sp *data.Split) ([]bool, error) {
 		return nil, err
 	}
 	var mf marksFile
-	if err := json.Unmarshal(mb, &mf); err != nil || mf.Format != marksFormat {
-		return nil, fmt.Errorf("%s%s: not a marks file", corpus, MarksExt)
+	if err := json.Unmarshal(mb, &mf); err != nil {
+		return nil, fmt.Errorf("%s%s: not a marks file: %w", corpus, MarksExt, err)
 	}
-	if mf.Version < 1 || mf.Version > marksVersion {
-		return nil, fmt.Errorf("%s%s: format version %d; this weft reads versions 1 to %d", corpus, MarksExt, mf.Version, marksVersion)
+	if err := mf.Check(corpus+MarksExt, marksFormat, marksVersion, false); err != nil {
+		return nil, err
 	}
 	offsets, err := sp.TokenOffsets(nil)
 	if err != nil {
