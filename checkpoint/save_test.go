@@ -66,16 +66,12 @@ func TestLoadErrors(t *testing.T) {
 	}
 }
 
+// assertNoTemp fails when a save left a temporary file in dir.
 func assertNoTemp(t *testing.T, dir string) {
 	t.Helper()
-	ents, err := os.ReadDir(dir)
-	if err != nil {
-		t.Fatal(err)
-	}
-	for _, e := range ents {
-		if strings.HasPrefix(e.Name(), atomicfile.TempPrefix) {
-			t.Errorf("temporary file %s left in %s", e.Name(), dir)
-		}
+	left, err := atomicfile.CleanTemp(dir)
+	if err != nil || len(left) > 0 {
+		t.Errorf("temporary files left in %s: %v %v", dir, left, err)
 	}
 }
 

@@ -8,35 +8,13 @@ import (
 	"testing"
 
 	"weft/checkpoint"
-	"weft/data"
+	"weft/checkpoint/modeltest"
 	"weft/rnn"
 )
 
 const corpus = "the dog met a cat on the log.\nthe mat sat.\na cat sat on the mat.\n"
 
-// model is a small seeded LSTM over the characters of corpus, with a line
-// boundary and an output bias that favours the common characters.
-func model(t testing.TB) *checkpoint.Model {
-	t.Helper()
-	v, err := data.LearnVocab(context.Background(), strings.NewReader(corpus), "corpus", data.VocabOptions{Tokenizer: "char", Boundary: "line"})
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg := rnn.DefaultConfig()
-	cfg.HiddenSize, cfg.EmbeddingSize = 24, 8
-	net, err := rnn.NewModel[float32](cfg, v.Len(), 7)
-	if err != nil {
-		t.Fatal(err)
-	}
-	for _, p := range net.Params() {
-		if p.Name == "output.bias" {
-			for id := range p.Value {
-				p.Value[id] = float32(math.Log(float64(v.Count(id) + 1)))
-			}
-		}
-	}
-	return &checkpoint.Model{Net: net, Vocab: v, Config: cfg}
-}
+func model(t testing.TB) *checkpoint.Model { return modeltest.New(t, corpus, "char", "line") }
 
 func run(t *testing.T, m *checkpoint.Model, prompt string, o Options) ([]Continuation, string) {
 	t.Helper()

@@ -19,12 +19,10 @@ import (
 // saved ladder was fitted on.
 const ManifestFile = "manifest.json"
 
-// The baselines manifest's format name and version. A manifest of another
-// version, or one that differs in any field, makes FitBaselines refit.
-const (
-	manifestFormat  = "weft-baselines"
-	manifestVersion = 1
-)
+// manifestHeader is the baselines manifest's format and the version this
+// weft writes. A manifest of another version, or one that differs in any
+// field, makes FitBaselines refit.
+var manifestHeader = data.FileHeader{Format: "weft-baselines", Version: 1}
 
 // Manifest records what a saved baseline ladder was fitted on, so that a
 // changed corpus or setting refits it.
@@ -38,7 +36,7 @@ type Manifest struct {
 
 // newManifest describes the ladder cfg gives on ds's training split.
 func newManifest(cfg eval.Config, ds *data.Dataset) Manifest {
-	return Manifest{FileHeader: data.FileHeader{Format: manifestFormat, Version: manifestVersion}, TrainSHA256: tokensSHA256(ds.Train.Tokens),
+	return Manifest{FileHeader: manifestHeader, TrainSHA256: tokensSHA256(ds.Train.Tokens),
 		VocabSize: ds.Vocab.Len(), Boundary: ds.Vocab.Boundary(), Settings: fitSettings(cfg)}
 }
 
@@ -54,7 +52,7 @@ func ReadManifest(dir string) (Manifest, error) {
 	if err := json.Unmarshal(b, &m); err != nil {
 		return m, fmt.Errorf("baselines manifest %s: %w", path, err)
 	}
-	return m, m.Check(path, manifestFormat, manifestVersion, false)
+	return m, m.Check(path, manifestHeader, false)
 }
 
 // FitBaselines builds the ladder cfg configures on ds's training split,

@@ -106,7 +106,7 @@ func Prepare(ctx context.Context, r *configs.Run, d *Dir, stdin io.Reader) (*dat
 		if err := ds.Vocab.WriteFile(d.Vocab()); err != nil {
 			return nil, err
 		}
-		if err := writeJSON(d.SplitFile(), splitFile{FileHeader: data.FileHeader{Format: splitFormat, Version: splitVersion}, Report: ds.Report}); err != nil {
+		if err := writeJSON(d.SplitFile(), splitFile{FileHeader: splitHeader, Report: ds.Report}); err != nil {
 			return nil, err
 		}
 	}
@@ -138,10 +138,7 @@ func OpenModel(dir, which string) (*checkpoint.Model, error) {
 // The split report file: data.Report with a format name and version, which
 // ReadSplitReport checks. Version 0 is the report as weft wrote it before
 // the file had a version (the same keys, without format and version).
-const (
-	splitFormat  = "weft-split"
-	splitVersion = 1
-)
+var splitHeader = data.FileHeader{Format: "weft-split", Version: 1}
 
 type splitFile struct {
 	data.FileHeader
@@ -159,7 +156,7 @@ func ReadSplitReport(dir string) (data.Report, error) {
 	if err := json.Unmarshal(b, &f); err != nil {
 		return data.Report{}, fmt.Errorf("split report %s: %w", path, err)
 	}
-	if err := f.Check(path, splitFormat, splitVersion, true); err != nil {
+	if err := f.Check(path, splitHeader, true); err != nil {
 		return data.Report{}, err
 	}
 	return f.Report, nil

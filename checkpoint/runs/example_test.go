@@ -4,13 +4,14 @@ import (
 	"context"
 	"fmt"
 	"log"
-	"math"
 	"math/rand/v2"
 	"os"
 	"strings"
 
+	"weft/checkpoint/generate"
 	"weft/checkpoint/runs"
 	"weft/configs"
+	"weft/eval/surprise"
 	"weft/rnn"
 )
 
@@ -48,46 +49,38 @@ func Example() {
 	}
 	fmt.Printf("%s; best validation at step %d\n", res.Reason, res.BestStep)
 
-	// Load the best checkpoint and score a line from a fresh state.
+	// Load the best checkpoint and score two lines, each from a fresh
+	// state, as 'weft score' does.
 	m, err := runs.OpenModel(dir, "best")
 	if err != nil {
 		log.Fatal(err)
 	}
-	score := func(line string) float64 {
-		seq := m.Vocab.Encode(nil, line)
-		logp := make([]float64, len(seq))
-		if err := m.Net.LogProbs(ctx, logp, seq); err != nil {
-			log.Fatal(err)
-		}
-		var nats float64
-		for _, lp := range logp {
-			nats -= lp
-		}
-		return nats / math.Ln2 / float64(len([]rune(line)))
-	}
-	usual, odd := score("03:14 WREN berth 4 over\n"), score("03:14 over 4 berth WREN\n")
-	fmt.Printf("a usual line costs fewer bits per character than a shuffled one: %v\n", usual < odd)
-
-	// Sample a continuation of a prompt, seeded, up to the end of the line.
-	s := m.Net.NewStream(1)
-	if err := rnn.Prime(ctx, s, m.Vocab.Encode(nil, "03:14 ")); err != nil {
-		log.Fatal(err)
-	}
-	sp, err := rnn.NewSampler(rnn.Sampling{Temperature: 0.5}, rand.New(rand.NewPCG(42, 0)))
+	var rows []surprise.Row
+	sc, err := surprise.New(m.Net, "rnn", m.Vocab, surprise.Options{Unit: surprise.Line, MaxChars: 1 << 16},
+		func(r surprise.Row) error { rows = append(rows, r); return nil })
 	if err != nil {
 		log.Fatal(err)
 	}
-	var ids []int
-	if _, err := rnn.Generate(ctx, s, sp, 40, func(t rnn.Token) (bool, error) {
-		ids = append(ids, t.ID)
-		return m.Vocab.Decode(ids[len(ids)-1:]) == "\n", nil
+	if _, err := sc.Score(ctx, strings.NewReader("03:14 WREN berth 4 over\n03:14 over 4 berth WREN\n"), "check"); err != nil {
+		log.Fatal(err)
+	}
+	if err := sc.Flush(); err != nil {
+		log.Fatal(err)
+	}
+	fmt.Printf("a usual line costs fewer bits per character than a shuffled one: %v\n", rows[0].BitsPerChar < rows[1].BitsPerChar)
+
+	// Continue a prompt, seeded, up to the end of the line, as 'weft
+	// sample' does. Generated text can be wrong or offensive: review it.
+	prompt := m.Vocab.Encode(nil, "03:14 ")
+	o := generate.Options{Length: generate.Length{N: 40}, Samples: 1, Sampling: rnn.Sampling{Temperature: 0.5}, Seed: 42, Stop: []string{"\n"}}
+	if err := generate.Continue(ctx, m, prompt, o, nil, func(_ int, c generate.Continuation) error {
+		fmt.Printf("the continuation stops at the line end: %v\n", c.Stop == "stop_string")
+		return nil
 	}); err != nil {
 		log.Fatal(err)
 	}
-	sample := m.Vocab.Decode(ids)
-	fmt.Printf("the sample ends its line: %v\n", strings.HasSuffix(sample, "\n"))
 	// Output:
 	// step budget reached (training.max_steps = 150); best validation at step 150
 	// a usual line costs fewer bits per character than a shuffled one: true
-	// the sample ends its line: true
+	// the continuation stops at the line end: true
 }

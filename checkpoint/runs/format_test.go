@@ -135,7 +135,7 @@ func TestWrittenFilesCarryVersions(t *testing.T) {
 	if err != nil || len(l.Models()) != 2 {
 		t.Fatalf("fit: %v, %d models", err, len(l.Models()))
 	}
-	if m, err := ReadManifest(d.Baselines()); err != nil || m.Version != manifestVersion {
+	if m, err := ReadManifest(d.Baselines()); err != nil || m.Version != manifestHeader.Version {
 		t.Errorf("manifest: %+v %v", m, err)
 	}
 	// A damaged cache is refitted, with a note.

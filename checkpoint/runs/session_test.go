@@ -5,7 +5,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"reflect"
@@ -16,27 +15,16 @@ import (
 	"time"
 
 	"weft/checkpoint"
+	"weft/checkpoint/modeltest"
 	"weft/configs"
+	"weft/data/corpustest"
 	"weft/rnn"
 )
 
 // testCorpus is about 12 KB of dispatch-desk words in lines of 3 to 11,
 // drawn by a seeded generator.
 func testCorpus() string {
-	words := strings.Fields("berth tug cargo salt timber coal pilot inbound outbound confirm harbour lots over")
-	r := rand.New(rand.NewPCG(7, 11))
-	var b strings.Builder
-	for b.Len() < 12000 {
-		n := 3 + r.IntN(9)
-		for i := 0; i < n; i++ {
-			if i > 0 {
-				b.WriteByte(' ')
-			}
-			b.WriteString(words[r.IntN(len(words))])
-		}
-		b.WriteByte('\n')
-	}
-	return b.String()
+	return corpustest.WordLines(strings.Fields("berth tug cargo salt timber coal pilot inbound outbound confirm harbour lots over"), 7, 11, 12000)
 }
 
 // tinyRun writes the test corpus into dir and returns a run of a tiny LSTM
@@ -105,31 +93,6 @@ func train(t testing.TB, ctx context.Context, r *configs.Run, dir string, steps 
 	return res, rec, err
 }
 
-// sameTensors fails unless the checkpoints at a and b hold the same
-// tensors bit for bit (model, optimizer and carried state).
-func sameTensors(t testing.TB, a, b string) {
-	t.Helper()
-	fa, err := checkpoint.Load(a)
-	if err != nil {
-		t.Fatal(err)
-	}
-	fb, err := checkpoint.Load(b)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if len(fa.Tensors) != len(fb.Tensors) {
-		t.Fatalf("%s has %d tensors, %s has %d", a, len(fa.Tensors), b, len(fb.Tensors))
-	}
-	for i := range fa.Tensors {
-		if !reflect.DeepEqual(fa.Tensors[i], fb.Tensors[i]) {
-			t.Errorf("tensor %s differs between %s and %s", fa.Tensors[i].Name, a, b)
-		}
-	}
-	if fa.Meta[checkpoint.MetaTrainer] != fb.Meta[checkpoint.MetaTrainer] {
-		t.Errorf("trainer state differs:\n%s\n%s", fa.Meta[checkpoint.MetaTrainer], fb.Meta[checkpoint.MetaTrainer])
-	}
-}
-
 // TestCancelAndResumeExact stops a run by cancelling its context at step
 // 13, resumes it, and checks that it ends with the same state as a run
 // that was never stopped (common practice for exact resume: the same
@@ -165,7 +128,7 @@ func TestCancelAndResumeExact(t *testing.T) {
 		t.Fatalf("resumed run: steps %d from %q, started at %+v", res.Steps, res.ResumedFrom, rec.starts)
 	}
 	for _, name := range []string{checkpoint.StepName(30), checkpoint.BestName} {
-		sameTensors(t, filepath.Join(Layout(split).Checkpoints(), name), filepath.Join(Layout(straight).Checkpoints(), name))
+		modeltest.SameTrainingState(t, filepath.Join(Layout(split).Checkpoints(), name), filepath.Join(Layout(straight).Checkpoints(), name))
 	}
 	// The metrics logs agree too, line for line, but for the line of step
 	// 15, whose mean training loss covers only the windows trained after

@@ -2,6 +2,7 @@ package main
 
 import (
 	"os"
+	"weft/checkpoint/modeltest"
 	"weft/checkpoint/runs"
 	"weft/data/demo"
 	"weft/eval"
@@ -32,3 +33,5 @@ func fileExists(p string) bool {
 }
 
 var writeDemoCorpus = demo.WriteFiles
+
+var sameTrainingState = modeltest.SameTrainingState

@@ -16,6 +16,7 @@ import (
 	"time"
 
 	"weft/checkpoint"
+	"weft/checkpoint/modeltest"
 	"weft/data"
 	"weft/rnn"
 )
@@ -42,27 +43,8 @@ func newDecodeRun(t testing.TB, boundary string) *decodeRun {
 
 func newDecodeRunTokens(t testing.TB, tokenizer, boundary string) *decodeRun {
 	t.Helper()
-	v, err := data.LearnVocab(context.Background(), strings.NewReader(decodeCorpus), "corpus",
-		data.VocabOptions{Tokenizer: tokenizer, Boundary: boundary})
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg := rnn.DefaultConfig()
-	cfg.HiddenSize, cfg.EmbeddingSize = 24, 8
-	cfg.Init, cfg.InitRange, cfg.RecurrentInit = "uniform", 0.9, "uniform"
-	net, err := rnn.NewModel[float32](cfg, v.Len(), 7)
-	if err != nil {
-		t.Fatal(err)
-	}
-	// Favour the common characters at the start of a document, so that
-	// samples are not uniform noise.
-	for _, p := range net.Params() {
-		if p.Name == "output.bias" {
-			for id := range p.Value {
-				p.Value[id] = float32(math.Log(float64(v.Count(id) + 1)))
-			}
-		}
-	}
+	m := modeltest.New(t, decodeCorpus, tokenizer, boundary)
+	net, v := m.Net, m.Vocab
 	f, err := checkpoint.NewModelFile(net, net.Config(), v, nil)
 	if err != nil {
 		t.Fatal(err)

@@ -22,6 +22,7 @@ import (
 
 	"weft/checkpoint"
 	"weft/checkpoint/runs"
+	"weft/data/corpustest"
 	"weft/rnn"
 )
 
@@ -55,20 +56,7 @@ func TestMain(m *testing.M) {
 // trainCorpus is a small generated text: lines of words drawn from a fixed
 // list by a seeded generator (about 12 KB).
 func trainCorpus() string {
-	words := strings.Fields("the cat sat on a mat while dogs ran over green hills and cold rivers under bright skies at noon")
-	r := rand.New(rand.NewPCG(1, 2))
-	var b strings.Builder
-	for b.Len() < 12000 {
-		n := 3 + r.IntN(9)
-		for i := 0; i < n; i++ {
-			if i > 0 {
-				b.WriteByte(' ')
-			}
-			b.WriteString(words[r.IntN(len(words))])
-		}
-		b.WriteByte('\n')
-	}
-	return b.String()
+	return corpustest.WordLines(strings.Fields("the cat sat on a mat while dogs ran over green hills and cold rivers under bright skies at noon"), 1, 2, 12000)
 }
 
 // tinyRun writes the corpus and a run file for a tiny LSTM (H = 16) into
@@ -191,51 +179,6 @@ func exitCode(err error) int {
 		return -1
 	}
 	return 0
-}
-
-// sameTrainingState checks that two checkpoints hold the same training
-// state: every tensor byte for byte, every metadata value, and the
-// progress with its wall time left out (the one field that differs
-// between an interrupted run and a straight one).
-func sameTrainingState(t testing.TB, gotPath, wantPath string) {
-	t.Helper()
-	got, err := checkpoint.Load(gotPath)
-	if err != nil {
-		t.Fatal(err)
-	}
-	want, err := checkpoint.Load(wantPath)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if len(got.Tensors) != len(want.Tensors) {
-		t.Fatalf("%d tensors, want %d", len(got.Tensors), len(want.Tensors))
-	}
-	for i := range want.Tensors {
-		g, w := got.Tensors[i], want.Tensors[i]
-		if g.Name != w.Name || !reflect.DeepEqual(g.Shape, w.Shape) || !bytes.Equal(g.Data, w.Data) {
-			t.Errorf("tensor %s differs from the uninterrupted run's", w.Name)
-		}
-	}
-	for k, w := range want.Meta {
-		if k == checkpoint.MetaProgress {
-			continue
-		}
-		if got.Meta[k] != w {
-			t.Errorf("metadata %s: got %.200s, want %.200s", k, got.Meta[k], w)
-		}
-	}
-	gp, err := checkpoint.ReadProgress(got)
-	if err != nil {
-		t.Fatal(err)
-	}
-	wp, err := checkpoint.ReadProgress(want)
-	if err != nil {
-		t.Fatal(err)
-	}
-	gp.WallSeconds, wp.WallSeconds = 0, 0
-	if !reflect.DeepEqual(gp, wp) {
-		t.Errorf("progress: got %+v, want %+v", gp, wp)
-	}
 }
 
 // TestExactResume trains 2N steps straight, and in a child process that a

@@ -9,8 +9,10 @@
 package corpustest
 
 import (
+	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 )
 
@@ -59,3 +61,22 @@ func SOTU(t testing.TB) string { return Path(t, "sotu") }
 // Devil returns the path of The Devil's Dictionary as plain text,
 // decompressed from Debian's dict-devil package.
 func Devil(t testing.TB) string { return Path(t, "devil/devil.txt") }
+
+// WordLines is an invented corpus for tests that train: lines of 3 to 11
+// words drawn from words by PCG(seed1, seed2), until the text is at least
+// size bytes long.
+func WordLines(words []string, seed1, seed2 uint64, size int) string {
+	r := rand.New(rand.NewPCG(seed1, seed2))
+	var b strings.Builder
+	for b.Len() < size {
+		n := 3 + r.IntN(9)
+		for i := 0; i < n; i++ {
+			if i > 0 {
+				b.WriteByte(' ')
+			}
+			b.WriteString(words[r.IntN(len(words))])
+		}
+		b.WriteByte('\n')
+	}
+	return b.String()
+}

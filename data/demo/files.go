@@ -16,11 +16,8 @@ import (
 // corpus's name and this.
 const MarksExt = ".marks.json"
 
-// The marks file's format name and version.
-const (
-	marksFormat  = "weft-marks"
-	marksVersion = 1
-)
+// marksHeader is the marks file's format and the version this weft writes.
+var marksHeader = data.FileHeader{Format: "weft-marks", Version: 1}
 
 // marksFile lists the character offsets of a corpus file that only
 // long-range context predicts.
@@ -40,7 +37,7 @@ func WriteFiles(path string, seed uint64, size int) (int, error) {
 		return 0, err
 	}
 	offsets := marks.Offsets(0)
-	mb, err := json.Marshal(marksFile{FileHeader: data.FileHeader{Format: marksFormat, Version: marksVersion}, Offsets: offsets})
+	mb, err := json.Marshal(marksFile{FileHeader: marksHeader, Offsets: offsets})
 	if err != nil {
 		return 0, err
 	}
@@ -74,7 +71,7 @@ func SplitMarks(corpus string, sp *data.Split) ([]bool, error) {
 	if err := json.Unmarshal(mb, &mf); err != nil {
 		return nil, fmt.Errorf("%s%s: not a marks file: %w", corpus, MarksExt, err)
 	}
-	if err := mf.Check(corpus+MarksExt, marksFormat, marksVersion, false); err != nil {
+	if err := mf.Check(corpus+MarksExt, marksHeader, false); err != nil {
 		return nil, err
 	}
 	offsets, err := sp.TokenOffsets(nil)
