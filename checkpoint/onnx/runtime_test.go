@@ -256,3 +256,29 @@ func TestReadmeExample(t *testing.T) {
 		}
 	}
 }
+
+// TestReadmeShowsTheExample checks that the README's "Deploying a model"
+// section shows testdata/score_line.js as it is, so that the example there
+// is the script TestReadmeExample and cmd/weft's TestExport run.
+func TestReadmeShowsTheExample(t *testing.T) {
+	readme, err := os.ReadFile(filepath.Join("..", "..", "README.md"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	script, err := os.ReadFile(filepath.Join("testdata", "score_line.js"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, section, ok := strings.Cut(string(readme), "\n## Deploying a model\n")
+	if !ok {
+		t.Fatal(`README.md has no "## Deploying a model" section`)
+	}
+	section, _, _ = strings.Cut(section, "\n## ")
+	_, block, ok := strings.Cut(section, "\n```js\n")
+	if ok {
+		block, _, ok = strings.Cut(block, "```\n")
+	}
+	if !ok || block != string(script) {
+		t.Errorf("the js block of the README's Deploying a model section is not testdata/score_line.js as it is (copy the file into it)")
+	}
+}

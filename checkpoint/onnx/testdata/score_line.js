@@ -24,19 +24,21 @@ const fs = require('fs');
   console.log((-nats / Math.LN2).toFixed(6));
 })();
 
-// metadata returns the metadata properties (field 14 of ModelProto, each a
-// key, field 1, and a value, field 2) of the ONNX file's bytes.
+// metadata reads the metadata properties of an ONNX file from its bytes:
+// ModelProto's field 14, entries of a key (field 1) and a value (field 2).
 function metadata(b) {
-  const meta = {};
   let i = 0;
   const varint = () => { let v = 0, m = 1, x; do { x = b[i++]; v += (x & 127) * m; m *= 128; } while (x & 128); return v; };
+  const meta = {};
   while (i < b.length) {
-    const tag = varint();
-    if ((tag & 7) === 0) { varint(); continue; } // a number; all else at this level is length-delimited
+    const field = varint();
+    if ((field & 7) === 0) { varint(); continue; } // a number; the other top-level fields are length-delimited
     const end = varint() + i;
-    const entry = {};
-    for (; tag >> 3 === 14 && i < end; i += entry.n) { const f = varint() >> 3; entry.n = varint(); entry[f] = b.toString('utf8', i, i + entry.n); }
-    if (tag >> 3 === 14) meta[entry[1]] = entry[2];
+    if (field >> 3 === 14) {
+      const kv = [];
+      while (i < end) { varint(); const n = varint(); kv.push(b.toString('utf8', i, i + n)); i += n; }
+      meta[kv[0]] = kv[1];
+    }
     i = end;
   }
   return meta;
