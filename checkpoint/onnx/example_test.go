@@ -29,7 +29,9 @@ func ExampleBuild() {
 	if err != nil {
 		panic(err)
 	}
-	show := func(kind, name string, dims []string) { fmt.Printf("%s %s [%s]\n", kind, name, strings.Join(dims, ", ")) }
+	show := func(kind, name string, dims []string) {
+		fmt.Printf("%s %s [%s]\n", kind, name, strings.Join(dims, ", "))
+	}
 	for _, in := range m.Graph.Input {
 		show("input", in.GetName(), shape(in.GetType().GetTensorType().GetShape().GetDim()))
 	}
