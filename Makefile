@@ -1,6 +1,7 @@
 # weft's build, test and demo targets. `make demo` and `make test` are the two
 # set-up commands of the README: each installs what it needs (Go modules; the
-# real test corpora into .cache/corpora) or says exactly what is missing.
+# real test corpora into .cache/corpora, ONNX Runtime for Node.js into
+# .cache/onnxruntime) or says exactly what is missing.
 
 GO        ?= go
 BIN       := bin/weft
@@ -10,7 +11,7 @@ LDFLAGS   := -X main.version=$(VERSION)
 RACE_PKGS := ./rnn/linalg/... ./checkpoint/... ./cmd/...
 FUZZTIME  ?= 10s
 
-.PHONY: all build test demo bench bench-peer fuzz lint docs references corpora clean check-go
+.PHONY: all build test demo bench bench-peer fuzz lint docs references corpora onnxruntime onnx-proto onnx-references clean check-go
 
 all: build
 
@@ -23,7 +24,12 @@ build: check-go
 corpora:
 	@./testdata/fetch-corpora.sh
 
-test: check-go corpora
+# ONNX Runtime (npm's onnxruntime-node) runs the exported models in the tests
+# of checkpoint/onnx and cmd/weft.
+onnxruntime:
+	@./testdata/fetch-onnxruntime.sh
+
+test: check-go corpora onnxruntime
 	$(GO) mod download
 	$(GO) vet ./...
 	$(GO) test -count=1 ./...
@@ -55,6 +61,14 @@ docs: check-go
 
 references:
 	./testdata/references.sh
+
+# The Go types of the ONNX format, from the schema in Debian's python3-onnx.
+onnx-proto: check-go
+	./checkpoint/onnx/onnxpb/generate.sh
+
+# The fixture models of checkpoint/onnx and the ONNX checker's verdict on them.
+onnx-references: check-go
+	./checkpoint/onnx/testdata/references.sh
 
 clean:
 	rm -rf bin .cache
