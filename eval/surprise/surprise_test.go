@@ -9,6 +9,7 @@ import (
 	"strings"
 	"testing"
 
+	"weft/checkpoint/modeltest"
 	"weft/data"
 	"weft/eval"
 	"weft/rnn"
@@ -16,22 +17,9 @@ import (
 
 const corpus = "the dog met a cat on the log.\nthe mat sat.\na cat sat on the mat.\n"
 
-// model is a small seeded LSTM over the characters of corpus, with a line
-// boundary.
 func model(t testing.TB) (*rnn.Model[float32], *data.Vocab) {
-	t.Helper()
-	v, err := data.LearnVocab(context.Background(), strings.NewReader(corpus), "corpus", data.VocabOptions{Tokenizer: "char", Boundary: "line"})
-	if err != nil {
-		t.Fatal(err)
-	}
-	cfg := rnn.DefaultConfig()
-	cfg.HiddenSize, cfg.EmbeddingSize = 24, 8
-	cfg.Init, cfg.InitRange, cfg.RecurrentInit = "uniform", 0.9, "uniform"
-	net, err := rnn.NewModel[float32](cfg, v.Len(), 7)
-	if err != nil {
-		t.Fatal(err)
-	}
-	return net, v
+	m := modeltest.New(t, corpus, "char", "line")
+	return m.Net, m.Vocab
 }
 
 // direct is the total of eval.NewResult over the model's LogProbs of seq
