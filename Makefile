@@ -59,7 +59,7 @@ lint: check-go
 docs: check-go
 	$(GO) run ./configs/keydoc -w README.md
 
-references:
+references: onnx-references
 	./testdata/references.sh
 
 # The Go types of the ONNX format, from the schema in Debian's python3-onnx.
