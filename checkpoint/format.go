@@ -346,7 +346,7 @@ func DecodeSafetensors(data []byte) (*File, error) {
 	rest := uint64(len(data) - 8)
 	switch {
 	case n > MaxHeaderBytes:
-		return nil, corruptf("header length %d exceeds the %d-byte limit", n, MaxHeaderBytes)
+		return nil, corruptf("not a safetensors file: its first 8 bytes give a header length of %d, beyond the %d-byte limit", n, MaxHeaderBytes)
 	case n > rest:
 		return nil, corruptf("truncated: header length %d exceeds the %d bytes after the length field", n, rest)
 	case n < 2:

@@ -209,7 +209,7 @@ func TestDecodeSafetensorsErrors(t *testing.T) {
 	}{
 		{"empty", nil, "truncated"},
 		{"short length", []byte{1, 0, 0}, "truncated"},
-		{"huge header", binary.LittleEndian.AppendUint64(nil, 1<<60), "exceeds the 104857600-byte limit"},
+		{"huge header", binary.LittleEndian.AppendUint64(nil, 1<<60), "not a safetensors file: its first 8 bytes give a header length of 1152921504606846976, beyond the 104857600-byte limit"}, // issue 12
 		{"header past end", binary.LittleEndian.AppendUint64(nil, 100), "truncated"},
 		{"tiny header", rawSafetensors("{", nil), "too short"},
 		{"not object", rawSafetensors(`[1,2]`, nil), "start with '{'"},

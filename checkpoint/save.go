@@ -79,7 +79,7 @@ func readChecked(path string) ([]byte, error) {
 	}
 	switch n := binary.LittleEndian.Uint64(lenField[:]); {
 	case n > MaxHeaderBytes:
-		return nil, corruptf("header length %d exceeds the %d-byte limit", n, MaxHeaderBytes)
+		return nil, corruptf("not a safetensors file: its first 8 bytes give a header length of %d, beyond the %d-byte limit", n, MaxHeaderBytes)
 	case n > uint64(size-8):
 		return nil, corruptf("truncated: header length %d exceeds the %d bytes after the length field", n, size-8)
 	}

@@ -142,14 +142,35 @@ func TestOverrides(t *testing.T) {
 	bad := []struct{ set, want string }{
 		{"model.hiden_size=3", "did you mean model.hidden_size?"},
 		{"model.layers=two", "model.layers=two"},
-		{"checkpoint.keep_last=0", "keep_last must be at least 1"},
+		{"checkpoint.keep_last=0", "--set checkpoint.keep_last=0: must be at least 1"},
+		// Issue 12: a bad value names the override, not the file's line
+		// that sets the same key to a good one.
+		{"training.learning_rate=0", "--set training.learning_rate=0: must be a positive number, got 0"},
+		// Issue 12: a value that is not TOML gets the type it wants, not
+		// the parser's words.
+		{"model.hidden_size=abc", "--set model.hidden_size=abc: want an integer, got a string"},
 		{"noequals", "is not key=value"},
 		{"seed=3", "must be section.key"},
 	}
 	for _, b := range bad {
 		_, err := Parse("/x/run.toml", src, []string{b.set})
-		if err == nil || !strings.Contains(err.Error(), b.want) {
-			t.Errorf("--set %s: got %v, want an error containing %q", b.set, err, b.want)
+		var ce *Error
+		if err == nil || !strings.Contains(err.Error(), b.want) || !errors.As(err, &ce) || ce.File != "--set" || strings.Contains(err.Error(), "run.toml") {
+			t.Errorf("--set %s: got %v, want an error of --set containing %q", b.set, err, b.want)
+		}
+	}
+}
+
+// TestMisspelledSection: issue 12, a misspelled section gets a suggestion.
+func TestMisspelledSection(t *testing.T) {
+	for src, want := range map[string]string{
+		"[traning]\nseed = 3\n":     "unknown key traning; did you mean training?",
+		"[evaluaton]\nseed = 3\n":   "unknown key evaluaton; did you mean evaluation?",
+		"[modle]\nhiden_size = 3\n": "unknown key modle; did you mean model?",
+	} {
+		_, err := Parse("/x/run.toml", []byte("[data]\nfiles = [\"a.txt\"]\n"+src), nil)
+		if err == nil || !strings.Contains(err.Error(), want) {
+			t.Errorf("%q: got %v, want %q", src, err, want)
 		}
 	}
 }

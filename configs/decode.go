@@ -22,13 +22,17 @@ import (
 // Error is a problem with a run file or an override: it names the file (or
 // "--set" for an override), the line when one is known, and the key.
 type Error struct {
-	File string // the run file, or "--set"
-	Line int    // 1-based; 0 when unknown
-	Key  string // "section.key", or "" for the file as a whole
-	Msg  string
+	File  string // the run file, or "--set"
+	Line  int    // 1-based; 0 when unknown
+	Key   string // "section.key", or "" for the file as a whole
+	Value string // the value an override gave Key, when it is the problem
+	Msg   string
 }
 
 func (e *Error) Error() string {
+	if e.File == "--set" && e.Value != "" {
+		return fmt.Sprintf("--set %s=%s: %s", e.Key, e.Value, e.Msg)
+	}
 	var b strings.Builder
 	b.WriteString(e.File)
 	if e.Line > 0 {
@@ -88,13 +92,16 @@ func Parse(name string, src []byte, overrides []string) (*Run, error) {
 	if err := decodeStrict(name, src, &r, lines); err != nil {
 		return nil, err
 	}
+	set := map[string]string{} // key -> value, of the overrides
 	for _, o := range overrides {
 		if err := applyOverride(&r, o); err != nil {
 			return nil, err
 		}
+		key, val, _ := strings.Cut(o, "=")
+		set[strings.TrimSpace(key)] = strings.TrimSpace(val)
 	}
 	resolvePaths(&r, filepath.Dir(name))
-	if err := validate(&r, name, lines); err != nil {
+	if err := validate(&r, name, lines, set); err != nil {
 		return nil, err
 	}
 	return &r, nil
@@ -228,7 +235,48 @@ func walkKeys(t reflect.Type, prefix string, fn func(key string, f reflect.Struc
 }
 
 // suggest returns the known key closest to key, or "" when none is close.
+// A misspelled section is corrected first ("traning.seed" gives
+// "training.seed", a bare "traning" gives "training").
 func suggest(key string) string {
+	if sec, leaf, _ := strings.Cut(key, "."); !knownSection(sec) {
+		if fixed := closestSection(sec); fixed != "" {
+			if leaf == "" {
+				return fixed
+			}
+			return suggest(fixed + "." + leaf)
+		}
+	}
+	return suggestKey(key)
+}
+
+func knownSection(sec string) bool {
+	for _, k := range Keys() {
+		if strings.HasPrefix(k, sec+".") {
+			return true
+		}
+	}
+	return false
+}
+
+// closestSection returns the section name within about one edit in four
+// characters of sec, or "".
+func closestSection(sec string) string {
+	best, bestD := "", len(sec)/4+2
+	seen := map[string]bool{}
+	for _, k := range Keys() {
+		s, _, _ := strings.Cut(k, ".")
+		if seen[s] {
+			continue
+		}
+		seen[s] = true
+		if d := editDistance(sec, s); d < bestD {
+			best, bestD = s, d
+		}
+	}
+	return best
+}
+
+func suggestKey(key string) string {
 	best, bestD := "", 1<<30
 	section := ""
 	if i := strings.IndexByte(key, '.'); i >= 0 {
@@ -334,8 +382,16 @@ func applyOverride(r *Run, o string) error {
 	if err != nil && errors.As(err, &ce) && !strings.HasPrefix(ce.Msg, "unknown key") {
 		// Not valid TOML as written: try it as a plain string, then as a
 		// list of plain strings.
-		if err2 := try(quoteTOML(val)); err2 == nil {
+		err2 := try(quoteTOML(val))
+		if err2 == nil {
 			return nil
+		}
+		if ce.Key == "" {
+			// The value did not even parse: the plain string's complaint
+			// (a type, "want an integer, got a string") says more than
+			// the parser's.
+			err = err2
+			errors.As(err, &ce)
 		}
 		parts := strings.Split(val, ",")
 		for i, p := range parts {
@@ -349,7 +405,7 @@ func applyOverride(r *Run, o string) error {
 		ce.Line = 0
 		ce.Msg = strings.Replace(ce.Msg, "key "+key+": ", "", 1)
 		if !strings.HasPrefix(ce.Msg, "unknown key") {
-			ce.Msg = fmt.Sprintf("%s=%s: %s", key, val, ce.Msg)
+			ce.Key, ce.Value = key, val
 		}
 	}
 	return err
@@ -368,9 +424,10 @@ func resolvePaths(r *Run, dir string) {
 	}
 }
 
-// validate checks every section, then the run-level keys, and names the line
-// of the offending key when the file sets it.
-func validate(r *Run, name string, lines map[string]int) error {
+// validate checks every section, then the run-level keys, and names the
+// override when one set the offending key (set: key to value), or else the
+// line of the file that sets it.
+func validate(r *Run, name string, lines map[string]int, set map[string]string) error {
 	checks := []struct {
 		section string
 		err     error
@@ -389,6 +446,10 @@ func validate(r *Run, name string, lines map[string]int) error {
 		}
 		key := keyInMessage(c.section, c.err.Error())
 		msg := c.err.Error()
+		if v, ok := set[key]; ok && key != "" {
+			msg = strings.TrimPrefix(strings.TrimPrefix(msg, key+": "), key+" ")
+			return &Error{File: "--set", Key: key, Value: v, Msg: msg}
+		}
 		if key != "" && !strings.Contains(msg, key) {
 			msg = key + ": " + msg
 		}

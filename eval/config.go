@@ -13,7 +13,8 @@ import (
 // its unit, its default and what the zero value means.
 type Config struct {
 	// EverySteps measures the validation split every this many training
-	// steps. Zero means only at the end of training. Default 500.
+	// steps; it is measured at the end of every epoch and at the end of
+	// training too. Zero means only at those ends. Default 500.
 	EverySteps int `toml:"every_steps"`
 
 	// NgramOrders lists the n-gram orders fitted as baselines, each from 1

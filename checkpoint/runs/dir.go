@@ -20,16 +20,19 @@ import (
 // a file already saved.
 type Dir struct {
 	Layout
-	lock *DirLock
+	lock    *DirLock
+	created bool // Open made the directory
 }
 
 // Open creates the run directory path when it does not exist and takes its
 // lock. A directory held by another live process is an error wrapping
 // ErrLocked that names the holder.
 func Open(path string) (*Dir, error) {
-	if fi, err := os.Stat(path); err == nil && !fi.IsDir() {
+	fi, err := os.Stat(path)
+	if err == nil && !fi.IsDir() {
 		return nil, fmt.Errorf("run directory %s: not a directory", path)
 	}
+	created := err != nil
 	if err := os.MkdirAll(path, 0o755); err != nil {
 		return nil, fmt.Errorf("run directory %s: %w", path, unwrapPath(err))
 	}
@@ -41,7 +44,7 @@ func Open(path string) (*Dir, error) {
 		}
 		return nil, fmt.Errorf("run directory %s: %w", path, err)
 	}
-	return &Dir{Layout: Layout(path), lock: l}, nil
+	return &Dir{Layout: Layout(path), lock: l, created: created}, nil
 }
 
 // inUseError is Open's error for a directory another process holds: its
@@ -113,6 +116,24 @@ func Prepare(ctx context.Context, r *configs.Run, d *Dir, stdin io.Reader) (*dat
 	return ds, nil
 }
 
+// WriteRunFile saves r, with its corpus paths made absolute, as the run
+// directory's resolved run file (what Train compares on resume and what the
+// verbs that take a run directory read), and returns its bytes.
+func (d *Dir) WriteRunFile(r *configs.Run) ([]byte, error) {
+	abs, err := absoluteFiles(r)
+	if err != nil {
+		return nil, err
+	}
+	b, err := configs.Encode(abs)
+	if err != nil {
+		return nil, err
+	}
+	if err := atomicfile.WriteBytes(d.RunFile(), b); err != nil {
+		return nil, fmt.Errorf("write %s: %w", d.RunFile(), err)
+	}
+	return b, nil
+}
+
 // ReadRunFile loads the resolved run file saved in the run directory dir,
 // with the overrides sets applied. A directory without one is not a run
 // directory.
@@ -128,6 +149,11 @@ func ReadRunFile(dir string, sets []string) (*configs.Run, error) {
 // which is "best" (the default when empty), "latest", a step number or a
 // file name inside its checkpoints folder (see checkpoint.OpenModelIn).
 func OpenModel(dir, which string) (*checkpoint.Model, error) {
+	if fi, err := os.Stat(dir); err != nil {
+		return nil, fmt.Errorf("run directory %s: %w", dir, unwrapPath(err))
+	} else if !fi.IsDir() {
+		return nil, fmt.Errorf("run directory %s: not a directory", dir)
+	}
 	ck := Layout(dir).Checkpoints()
 	if fi, err := os.Stat(ck); err != nil || !fi.IsDir() {
 		return nil, fmt.Errorf("run directory %q has no %s folder (has it been trained?)", dir, CheckpointsDir)

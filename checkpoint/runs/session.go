@@ -150,7 +150,23 @@ func Train(ctx context.Context, r *configs.Run, dir string, o TrainOptions) (*Re
 	if s.obs == nil {
 		s.obs = nopObserver{}
 	}
+	_, statErr := os.Stat(d.RunFile())
+	hadRunFile := statErr == nil
 	res, err := s.run()
+	if err != nil && s.res.ResumedFrom == "" && s.lastGoodPath == "" {
+		// A fresh run that failed before its first checkpoint leaves no
+		// run file and no empty checkpoints folder behind (a prepared
+		// corpus cache stays: it is valid and saves the next attempt
+		// the work).
+		if !hadRunFile {
+			os.Remove(d.RunFile())
+		}
+		os.Remove(s.ckdir) // only when empty
+		if d.created {
+			d.Close()
+			os.Remove(d.Path()) // only when empty, now that the lock is gone
+		}
+	}
 	if s.metrics != nil {
 		if cerr := s.metrics.Close(); err == nil && cerr != nil {
 			err = cerr
@@ -242,8 +258,8 @@ func (s *session) run() (*Result, error) {
 			s.warn("resuming from %s, the newest intact checkpoint", path)
 		}
 	}
-	if err := atomicfile.WriteBytes(d.RunFile(), runTOML); err != nil {
-		return nil, fmt.Errorf("write %s: %w", d.RunFile(), err)
+	if _, err := d.WriteRunFile(r); err != nil {
+		return nil, err
 	}
 	ds, err := Prepare(s.ctx, r, d, s.o.Stdin)
 	if err != nil {

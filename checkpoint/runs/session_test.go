@@ -430,3 +430,36 @@ func TestStdinCorpus(t *testing.T) {
 		t.Fatalf("got %v at step %v", err, res)
 	}
 }
+
+// TestFailedFreshRunLeavesNothing: issue 12, a fresh run that fails before
+// its first checkpoint (here an empty corpus) leaves no run file, no empty
+// checkpoints folder and no directory it created.
+func TestFailedFreshRunLeavesNothing(t *testing.T) {
+	dir := t.TempDir()
+	r := tinyRun(t, dir)
+	if err := os.WriteFile(r.Data.Files[0], nil, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	run := filepath.Join(dir, "run")
+	if _, _, err := train(t, context.Background(), r, run, 10, TrainOptions{}); err == nil {
+		t.Fatal("an empty corpus trained")
+	}
+	if _, err := os.Stat(run); !errors.Is(err, os.ErrNotExist) {
+		t.Errorf("the run directory is still there (%v)", err)
+	}
+	// In a directory that existed, the files it held stay.
+	if err := os.Mkdir(run, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	keep := filepath.Join(run, "notes.txt")
+	if err := os.WriteFile(keep, []byte("mine"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := train(t, context.Background(), r, run, 10, TrainOptions{}); err == nil {
+		t.Fatal("an empty corpus trained")
+	}
+	ents, _ := os.ReadDir(run)
+	if len(ents) != 1 || ents[0].Name() != "notes.txt" {
+		t.Errorf("left %v, want only notes.txt", ents)
+	}
+}

@@ -49,8 +49,8 @@ func TestBenchUsageErrors(t *testing.T) {
 		}
 	}
 	code, _, stderr := runCmd(t, "", "bench", "--set", "model.hidden_size=0")
-	if code != exitFailure || !strings.Contains(stderr, "model.hidden_size") {
-		t.Errorf("bad --set: got exit %d stderr %q, want exit 1 naming the key", code, stderr)
+	if code != exitUsage || !strings.Contains(stderr, "--set model.hidden_size=0") {
+		t.Errorf("bad --set: got exit %d stderr %q, want exit 2 naming the override (issue 12)", code, stderr)
 	}
 }
 

@@ -35,7 +35,7 @@ func newDemoCmd(d *deps, runF func(*demoOptions) error) *cobra.Command {
 of Port Averly, a harbour of our own: about 2 MB, seeded), train a small LSTM
 on it for a bounded time, fit the baseline ladder on the same training split,
 and compare everything on the held-out test split, including the characters
-that only long-range context predicts (call signs repeated 30-80 characters
+that only long-range context predicts (call signs repeated 43-72 characters
 after they first appear, the separator that closes a counted list, closing
 brackets and quotes). Run it again to resume training where it stopped.`,
 		Args: exactArgs(0, "no arguments"),

@@ -51,7 +51,11 @@ func runInspect(opts *inspectOptions) error {
 	}
 	var bad []string
 	for _, in := range all {
-		if !in.Valid {
+		switch {
+		case in.Valid:
+		case strings.HasPrefix(in.Problem, "not a safetensors file"):
+			bad = append(bad, fmt.Sprintf("%s is not a checkpoint (%s)", in.Path, in.Problem))
+		default:
 			bad = append(bad, fmt.Sprintf("checkpoint %s is damaged: %s", in.Path, in.Problem))
 		}
 	}

@@ -106,20 +106,23 @@ func TestInspect(t *testing.T) {
 		bad := filepath.Join(dir, "bad.safetensors")
 		flipped := append([]byte(nil), raw...)
 		flipped[len(flipped)-100] ^= 0x40
+		damaged := "weft: checkpoint " + bad + " is damaged: "
 		for _, tt := range []struct {
-			name, want string
-			content    []byte
+			name, prefix, want string
+			content            []byte
 		}{
-			{"flipped byte", "checksum mismatch", flipped},
-			{"truncated", "outside the", raw[:len(raw)/3]},
-			{"not a checkpoint", "header length", []byte("this is not a checkpoint at all\n")},
+			{"flipped byte", damaged, "checksum mismatch", flipped},
+			{"truncated", damaged, "outside the", raw[:len(raw)/3]},
+			// Issue 12: a file that is not a checkpoint is called that,
+			// not a damaged one.
+			{"not a checkpoint", "weft: " + bad + " is not a checkpoint (", "not a safetensors file", []byte("this is not a checkpoint at all\n")},
 		} {
 			if err := os.WriteFile(bad, tt.content, 0o644); err != nil {
 				t.Fatal(err)
 			}
 			code, out, stderr := weftIn(t, nil, "inspect", bad)
 			if code != exitFailure || out != "" || strings.Count(stderr, "\n") != 1 ||
-				!strings.HasPrefix(stderr, "weft: checkpoint "+bad+" is damaged: ") || !strings.Contains(stderr, tt.want) {
+				!strings.HasPrefix(stderr, tt.prefix) || !strings.Contains(stderr, tt.want) {
 				t.Errorf("%s: got exit %d, stdout %q, stderr %q; want exit 1 and one line naming the file and %q", tt.name, code, out, stderr, tt.want)
 			}
 		}

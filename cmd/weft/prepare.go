@@ -63,6 +63,13 @@ func runPrepare(opts *prepareOptions) error {
 	if err != nil {
 		return err
 	}
+	if rd != nil {
+		// The run file too, so that 'weft baselines DIR' and 'weft eval
+		// --run DIR' find the run.
+		if _, err := rd.WriteRunFile(r); err != nil {
+			return err
+		}
+	}
 	if opts.JSON {
 		enc := json.NewEncoder(opts.Out)
 		enc.SetIndent("", "  ")
@@ -70,7 +77,7 @@ func runPrepare(opts *prepareOptions) error {
 	}
 	printSplitReport(opts.Out, ds)
 	if rd != nil {
-		fmt.Fprintf(opts.Out, "saved in %s: %s, %s, %s\n", rd.Path(), data.VocabFile, runs.SplitFile, data.TokenCacheFile)
+		fmt.Fprintf(opts.Out, "saved in %s: %s, %s, %s, %s\n", rd.Path(), runs.RunFile, data.VocabFile, runs.SplitFile, data.TokenCacheFile)
 	}
 	return nil
 }

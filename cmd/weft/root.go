@@ -11,6 +11,7 @@ import (
 	"sync/atomic"
 	"syscall"
 	"time"
+	"weft/configs"
 
 	"github.com/spf13/cobra"
 	"golang.org/x/term"
@@ -106,9 +107,10 @@ func run(args []string, d *deps) int {
 	if err == nil {
 		return exitOK
 	}
-	msg := oneLine(err.Error())
+	msg := oneLine(cobraSuggestion(err.Error()))
 	var ue *usageError
-	if errors.As(err, &ue) || isCobraUsage(err) {
+	var ce *configs.Error
+	if errors.As(err, &ue) || isCobraUsage(err) || (errors.As(err, &ce) && ce.File == "--set") {
 		name := "weft"
 		if cmd != nil {
 			name = cmd.CommandPath()
@@ -158,6 +160,16 @@ func relaySignals(in <-chan os.Signal, fwd chan<- os.Signal, claimed *atomic.Boo
 			exitNow(exitAbandoned)
 		}
 	}
+}
+
+// cobraSuggestion turns cobra's two-paragraph "unknown command" error,
+// with its "Did you mean this?" list, into one sentence.
+func cobraSuggestion(msg string) string {
+	head, list, ok := strings.Cut(msg, "Did you mean this?")
+	if !ok {
+		return msg
+	}
+	return strings.TrimSpace(head) + "; did you mean " + strings.Join(strings.Fields(list), " or ") + "?"
 }
 
 // isCobraUsage recognises the errors cobra itself returns for bad command

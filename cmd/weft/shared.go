@@ -102,9 +102,10 @@ func loadRunModel(run, which string) (*checkpoint.Model, error) {
 	switch {
 	case run == "" && which == "":
 		return nil, usagef("give --run DIR or --checkpoint FILE")
-	case run == "":
-		return checkpoint.LoadModel(which)
-	case strings.ContainsAny(which, `/\`):
+	case run == "" || strings.ContainsAny(which, `/\`):
+		if fi, err := os.Stat(which); err == nil && fi.IsDir() {
+			return nil, usagef("--checkpoint %s is a directory; give a run directory with --run, or a checkpoint file", which)
+		}
 		return checkpoint.LoadModel(which)
 	}
 	return runs.OpenModel(run, which)

@@ -199,7 +199,7 @@ func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (
 		if out.Signal == "" {
 			out.Signal = "cancellation"
 		}
-	} else if !res.NothingToDo && !o.Quiet {
+	} else if !res.NothingToDo {
 		fmt.Fprintf(cc.Out, "%s at step %s (%d epochs completed).", res.Reason, thousands(res.Steps), res.Epochs)
 		if res.BestPath != "" && finite(res.BestValBitsPerChar) {
 			fmt.Fprintf(cc.Out, " Best validation: %.4f bits per character at step %s (%s).", res.BestValBitsPerChar, thousands(res.BestStep), res.BestPath)
@@ -296,6 +296,9 @@ func budgetText(b runs.Budget) string {
 	}
 	if len(parts) == 0 {
 		return "no budget (stop with Ctrl-C; the state is saved)"
+	}
+	if len(parts) == 1 {
+		return "budget: " + parts[0]
 	}
 	return "budget: " + strings.Join(parts, ", ") + ", whichever comes first"
 }

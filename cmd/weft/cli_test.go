@@ -1,0 +1,105 @@
+package main
+
+import (
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// Tests of the command-line behaviours issue 12 asks for: messages that
+// point at the right place, and what a new user trips over.
+
+func TestSetErrorsNameTheOverride(t *testing.T) {
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	for _, tc := range []struct {
+		set, want string
+	}{
+		{"model.hidden_size=abc", "weft: --set model.hidden_size=abc: want an integer, got a string\n"},
+		{"training.learning_rate=0", "weft: --set training.learning_rate=0: must be a positive number, got 0\n"},
+	} {
+		code, _, stderr := weftIn(t, nil, "train", cfg, "--run", filepath.Join(dir, "run"), "--set", tc.set)
+		if code != exitUsage || !strings.HasPrefix(stderr, tc.want) || strings.Contains(stderr, "run.toml:") {
+			t.Errorf("--set %s: got exit %d stderr %q, want exit 2 and %q", tc.set, code, stderr, tc.want)
+		}
+	}
+}
+
+func TestUnknownCommandOneSentence(t *testing.T) {
+	code, _, stderr := runCmd(t, "", "trian")
+	want := "weft: unknown command \"trian\" for \"weft\"; did you mean train?\n"
+	if code != exitUsage || !strings.HasPrefix(stderr, want) {
+		t.Errorf("got exit %d stderr %q, want %q", code, stderr, want)
+	}
+}
+
+// TestPrepareThenBaselines: a directory prepared with --run is a run
+// directory the other verbs accept.
+func TestPrepareThenBaselines(t *testing.T) {
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	run := filepath.Join(dir, "run")
+	if code, _, stderr := weftIn(t, nil, "prepare", cfg, "--run", run); code != exitOK {
+		t.Fatalf("prepare: exit %d %s", code, stderr)
+	}
+	code, out, stderr := weftIn(t, nil, "baselines", run, "--set", "evaluation.hmm_states=[]", "--set", "evaluation.ngram_orders=[1,2]")
+	if code != exitOK || !strings.Contains(out, "2-gram") {
+		t.Errorf("baselines after prepare: exit %d stdout %q stderr %q", code, out, stderr)
+	}
+	// One mode for every file of the run (vocab.json and tokens.bin were
+	// 0600, the others 0644).
+	var modes = map[os.FileMode][]string{}
+	for _, name := range []string{"run.toml", "vocab.json", "tokens.bin", "split.json"} {
+		fi, err := os.Stat(filepath.Join(run, name))
+		if err != nil {
+			t.Fatal(err)
+		}
+		modes[fi.Mode().Perm()] = append(modes[fi.Mode().Perm()], name)
+	}
+	if len(modes) != 1 {
+		t.Errorf("files of the run have different modes: %v", modes)
+	}
+}
+
+func TestQuietPrintsSummaryAndOneBudget(t *testing.T) {
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	code, out, stderr := weftIn(t, nil, "train", cfg, "--run", filepath.Join(dir, "run"), "--steps", "5", "--quiet")
+	if code != exitOK || !strings.HasPrefix(out, "step budget reached (training.max_steps = 5) at step 5") || stderr != "" {
+		t.Errorf("--quiet: exit %d stdout %q stderr %q, want the final summary and nothing else", code, out, stderr)
+	}
+	_, _, stderr = weftIn(t, nil, "train", cfg, "--run", filepath.Join(dir, "run2"), "--steps", "5")
+	if !strings.Contains(stderr, "budget: 5 steps\n") {
+		t.Errorf("one budget: stderr %q, want \"budget: 5 steps\" without \"whichever comes first\"", stderr)
+	}
+}
+
+func TestModelLocationMessages(t *testing.T) {
+	dir := t.TempDir()
+	code, _, stderr := runCmd(t, "", "sample", "--run", filepath.Join(dir, "nope"))
+	if code != exitFailure || !strings.Contains(stderr, "nope: no such file or directory") {
+		t.Errorf("missing run directory: exit %d stderr %q", code, stderr)
+	}
+	code, _, stderr = runCmd(t, "", "sample", "--checkpoint", dir)
+	if code != exitUsage || !strings.Contains(stderr, "is a directory; give a run directory with --run") {
+		t.Errorf("--checkpoint DIR: exit %d stderr %q", code, stderr)
+	}
+}
+
+// TestFailedTrainLeavesNothing: a first run that fails (an empty corpus)
+// leaves no run directory behind.
+func TestFailedTrainLeavesNothing(t *testing.T) {
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	if err := os.WriteFile(filepath.Join(dir, "corpus.txt"), nil, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	run := filepath.Join(dir, "run")
+	if code, _, _ := weftIn(t, nil, "train", cfg, "--run", run); code != exitFailure {
+		t.Fatalf("exit %d, want 1", code)
+	}
+	if _, err := os.Stat(run); !os.IsNotExist(err) {
+		t.Errorf("the failed run left %s behind (%v)", run, err)
+	}
+}
