@@ -422,8 +422,23 @@ func (v *Vocab) Encode(dst []int, text string) []int {
 // the number of characters of the text it covers. Memory stays bounded
 // whatever the size of r (except for a single piece longer than memory).
 func (v *Vocab) EncodeReader(ctx context.Context, r io.Reader, name string, emit func(id, chars int)) error {
+	return v.EncodeReaderText(ctx, r, name, nil, emit)
+}
+
+// EncodeReaderText is EncodeReader that also passes each chunk of the
+// normalized text to text (when not nil) before tokenizing it, so that a
+// caller can keep the text its tokens came from: the tokens of a chunk are
+// emitted after the chunk, some of them only after a later chunk.
+func (v *Vocab) EncodeReaderText(ctx context.Context, r io.Reader, name string, text func(p []byte), emit func(id, chars int)) error {
 	e := v.newEncoder(emit)
-	if err := readText(ctx, r, name, false, e.write); err != nil {
+	write := e.write
+	if text != nil {
+		write = func(p []byte) {
+			text(p)
+			e.write(p)
+		}
+	}
+	if err := readText(ctx, r, name, false, write); err != nil {
 		return err
 	}
 	e.flush()

@@ -103,3 +103,24 @@ func TestFailedTrainLeavesNothing(t *testing.T) {
 		t.Errorf("the failed run left %s behind (%v)", run, err)
 	}
 }
+
+// TestScoreTextIsTheInput: issue 12, the text column of weft score is the
+// input's own line, byte for byte, even where the vocabulary lacks its
+// characters.
+func TestScoreTextIsTheInput(t *testing.T) {
+	r := newDecodeRun(t, "line")
+	lines := []string{"zzzz qqq 123", "the cat sat.", "Ünïcödé ☃ line"}
+	code, out, stderr := runCmd(t, "", "score", "--run", r.Dir, "--json", writeTemp(t, "in.txt", strings.Join(lines, "\n")+"\n"))
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	rows := parseRows(t, out)
+	if len(rows) != len(lines) {
+		t.Fatalf("got %d rows", len(rows))
+	}
+	for i, row := range rows {
+		if row.Text != lines[i] {
+			t.Errorf("line %d: text %q, want %q", i+1, row.Text, lines[i])
+		}
+	}
+}

@@ -15,6 +15,7 @@
 package surprise
 
 import (
+	"bytes"
 	"context"
 	"fmt"
 	"io"
@@ -88,6 +89,14 @@ type Scorer struct {
 
 	recent []int // the last Context tokens of the current input, oldest first
 
+	// The text of line units as read (normalized, not rebuilt from tokens,
+	// so that characters outside the vocabulary print as themselves): the
+	// lines read but not yet scored, and the one being read, each kept to
+	// TextLimit+1 characters.
+	lines    []string
+	lineBuf  []byte
+	lineRune int
+
 	cur   *piece   // the piece being filled
 	queue []*piece // pieces handed to workers, oldest first
 	free  []*piece
@@ -116,6 +125,7 @@ type piece struct {
 	first, last bool // the piece starts or ends its unit
 	source      string
 	line        int
+	text        string // of a line unit's last piece: the line as it was read
 }
 
 // New returns a scorer of text encoded with v, scored by lm (whose kind,
@@ -167,7 +177,12 @@ func (s *Scorer) Score(ctx context.Context, r io.Reader, source string) (bool, e
 	inUnit := 0 // tokens in the current unit
 	any := false
 	var failed error
-	err := v.EncodeReader(ctx, r, source, func(id, chars int) {
+	s.lines, s.lineBuf, s.lineRune = s.lines[:0], s.lineBuf[:0], 0
+	var text func([]byte)
+	if s.o.Unit == Line {
+		text = s.readLines
+	}
+	err := v.EncodeReaderText(ctx, r, source, text, func(id, chars int) {
 		if failed != nil {
 			return
 		}
@@ -205,6 +220,29 @@ func (s *Scorer) Score(ctx context.Context, r io.Reader, source string) (bool, e
 		}
 	}
 	return any, s.end()
+}
+
+// readLines keeps the text of the lines read, for line units.
+func (s *Scorer) readLines(p []byte) {
+	for len(p) > 0 {
+		i := bytes.IndexByte(p, '\n')
+		part := p
+		if i >= 0 {
+			part = p[:i]
+		}
+		for len(part) > 0 && s.lineRune <= TextLimit {
+			_, n := utf8.DecodeRune(part)
+			s.lineBuf = append(s.lineBuf, part[:n]...)
+			part = part[n:]
+			s.lineRune++
+		}
+		if i < 0 {
+			return
+		}
+		s.lines = append(s.lines, string(s.lineBuf))
+		s.lineBuf, s.lineRune = s.lineBuf[:0], 0
+		p = p[i+1:]
+	}
 }
 
 // Flush waits for every piece handed over and emits the rows they finish.
@@ -266,6 +304,14 @@ func (s *Scorer) end() error {
 	p := s.cur
 	s.cur = nil
 	p.last = true
+	if s.o.Unit == Line {
+		if len(s.lines) > 0 {
+			p.text = s.lines[0]
+			s.lines = s.lines[1:]
+		} else { // the last line, without a line end
+			p.text = string(s.lineBuf)
+		}
+	}
 	return s.submit(p)
 }
 
@@ -372,8 +418,12 @@ func (s *Scorer) consume(p *piece) error {
 	r.Bits = s.nats / math.Ln2
 	r.BitsPerChar = r.Bits / float64(r.Characters)
 	if keepText {
+		n := s.runes
 		r.Text = string(s.text)
-		if s.runes > TextLimit {
+		if s.o.Unit == Line {
+			r.Text, n = p.text, utf8.RuneCountInString(p.text)
+		}
+		if n > TextLimit {
 			r.Text = string(append([]rune(r.Text)[:TextLimit], '…'))
 		}
 	}

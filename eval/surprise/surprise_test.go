@@ -230,3 +230,22 @@ func BenchmarkScore(b *testing.B) {
 		})
 	}
 }
+
+// TestLineTextAsRead: issue 12, a line's text is the line as it was read,
+// characters outside the vocabulary included (they were rebuilt from tokens
+// and printed as U+FFFD), and a long line is cut at TextLimit characters.
+func TestLineTextAsRead(t *testing.T) {
+	net, v := model(t)
+	long := strings.Repeat("ž", TextLimit+10)
+	lines := []string{"zzzz qqq 123", "the cat", long, "no line end"}
+	rows := scoreAll(t, net, v, Options{Unit: Line, MaxChars: 5}, strings.Join(lines, "\n"))
+	if len(rows) != 4 {
+		t.Fatalf("got %d rows, want 4", len(rows))
+	}
+	want := []string{lines[0], lines[1], strings.Repeat("ž", TextLimit) + "…", lines[3]}
+	for i, r := range rows {
+		if r.Text != want[i] {
+			t.Errorf("line %d: text %q, want %q", i+1, r.Text, want[i])
+		}
+	}
+}
