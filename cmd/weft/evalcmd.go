@@ -69,12 +69,12 @@ before it: faster, and an approximation at the N-1 piece starts.`,
 // evalReport is what `weft eval --json` prints and what the report folder
 // keeps.
 type evalReport struct {
-	Split        string           `json:"split"`
-	BestBaseline string           `json:"best_baseline,omitempty"`
-	Lambda       *float64         `json:"interpolation_weight,omitempty"`
-	Rows         []eval.Result    `json:"rows"`
-	LongRange    []modelBreakdown `json:"long_range,omitempty"`
-	Bands        []modelBreakdown `json:"frequency_bands,omitempty"`
+	Split        string                `json:"split"`
+	BestBaseline string                `json:"best_baseline,omitempty"`
+	Lambda       *float64              `json:"interpolation_weight,omitempty"`
+	Rows         []eval.Result         `json:"rows"`
+	LongRange    []eval.ModelBreakdown `json:"long_range,omitempty"`
+	Bands        []eval.ModelBreakdown `json:"frequency_bands,omitempty"`
 }
 
 func runEval(opts *evalOptions) error {
@@ -100,13 +100,13 @@ func runEval(opts *evalOptions) error {
 	if opts.JSON {
 		enc := json.NewEncoder(opts.Out)
 		enc.SetIndent("", "  ")
-		return enc.Encode(cmp.report())
+		return enc.Encode(report(cmp))
 	}
 	printComparison(opts.Out, cmp)
 	return nil
 }
 
-func (cmp *comparison) report() evalReport {
+func report(cmp *comparison) evalReport {
 	rep := evalReport{Split: cmp.Split, BestBaseline: cmp.BestBaseline, Rows: cmp.Rows, LongRange: cmp.LongRange, Bands: cmp.Bands}
 	if !math.IsNaN(cmp.Lambda) {
 		l := cmp.Lambda
@@ -161,7 +161,7 @@ func evaluateRun(cc cmdContext, r *configs.Run, rd *runDir, s evalSettings) (*co
 	if err := os.MkdirAll(rd.file(reportDir), 0o755); err != nil {
 		return nil, fmt.Errorf("report folder: %w", err)
 	}
-	if err := writeJSONAtomic(filepath.Join(rd.file(reportDir), "eval-"+s.Split+".json"), cmp.report()); err != nil {
+	if err := writeJSONAtomic(filepath.Join(rd.file(reportDir), "eval-"+s.Split+".json"), report(cmp)); err != nil {
 		return nil, err
 	}
 	if r.Output.Plots {

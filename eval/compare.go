@@ -1,0 +1,272 @@
+package eval
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"sort"
+)
+
+// HeldOut is a held-out split as a comparison scores it: its token ids and
+// the characters of text each token stands for. Bits per character of
+// every row, its interval, its difference from the best baseline and its
+// breakdowns all divide by the sum of Chars, so one count of characters
+// serves them all.
+type HeldOut struct {
+	// Tokens are the split's token ids, in text order.
+	Tokens []int
+	// Chars[i] is the number of characters token i stands for; nil means
+	// one each (a character model).
+	Chars []int
+}
+
+// Characters is the sum of h.Chars, the denominator of bits per character.
+func (h HeldOut) Characters() int {
+	if h.Chars == nil {
+		return len(h.Tokens)
+	}
+	n := 0
+	for _, c := range h.Chars {
+		n += c
+	}
+	return n
+}
+
+// Entrant is one model of a comparison.
+type Entrant struct {
+	// Model scores the tokens.
+	Model LanguageModel
+	// Label names the row; empty means Model.Name().
+	Label string
+	// Kind is the row's kind ("rnn", "ngram", "markov", "hmm", ...);
+	// empty means the model's Kind, or "unknown".
+	Kind string
+}
+
+func (e Entrant) label() string {
+	if e.Label != "" {
+		return e.Label
+	}
+	return e.Model.Name()
+}
+
+func (e Entrant) kind() string {
+	if e.Kind != "" {
+		return e.Kind
+	}
+	if k, ok := e.Model.(Kinder); ok {
+		return k.Kind()
+	}
+	return "unknown"
+}
+
+func isBaselineKind(kind string) bool {
+	return kind == "ngram" || kind == "markov" || kind == "hmm"
+}
+
+// CompareInput is what Compare compares: the models, the two held-out
+// splits and the facts about the vocabulary that decide whether a row's
+// bits per character measure the whole text.
+type CompareInput struct {
+	// Split names the reported split, "test" or "validation".
+	Split string
+	// Validation is the split the best baseline and the interpolation
+	// weight are chosen on; Reported is the split the rows report. With
+	// Split "validation" they are the same split.
+	Validation, Reported HeldOut
+	// Models lists the models compared: the recurrent model (kind "rnn")
+	// and the baselines.
+	Models []Entrant
+	// Unknown is the token id of the unknown entry, or -1 for none.
+	Unknown int
+	// UnknownCoversMany says the unknown entry stands for many strings.
+	UnknownCoversMany bool
+	// Characters is the reported split's characters; zero means
+	// Reported.Characters().
+	Characters int
+	// TrainCounts, from TokenCounts over the training split, gives the
+	// frequency bands of the breakdown; nil means none.
+	TrainCounts []int
+	// Marks flags the positions of Reported to break down separately
+	// (the demo corpus's long-range positions); nil means none.
+	Marks []bool
+	// Progress, if not nil, hears about the scoring.
+	Progress ProgressFunc
+}
+
+// ModelBreakdown is the breakdown of one model's score into subsets of
+// the held-out tokens.
+type ModelBreakdown struct {
+	Model string      `json:"model"`
+	Parts []Breakdown `json:"parts"`
+}
+
+// Comparison is the outcome of comparing models on one held-out split.
+type Comparison struct {
+	// Split is the reported split.
+	Split string
+	// Rows are the rows, best first (lowest bits per character, NaN
+	// last).
+	Rows []Result
+	// BestBaseline is the best baseline chosen on the validation split,
+	// empty when there is none, and BestBaselineValBPC its validation
+	// bits per character (NaN when none).
+	BestBaseline       string
+	BestBaselineValBPC float64
+	// Lambda is the weight of the recurrent model in the interpolated
+	// row, NaN when there is none.
+	Lambda float64
+	// Bands breaks the recurrent model, the interpolation and the best
+	// baseline down by how often each token was seen in training;
+	// LongRange by the marked positions against the others.
+	Bands     []ModelBreakdown
+	LongRange []ModelBreakdown
+}
+
+// Compare scores every model on the validation split and on the reported
+// split, chooses the best baseline on validation (the reported split stays
+// untouched by the choice), adds the row of the recurrent model
+// interpolated with it, its weight tuned on validation by TuneMixture, and
+// sets bootstrap intervals on the reported split (cfg's bootstrap
+// settings) for every row and for its difference from the best baseline.
+func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, error) {
+	val, rep := in.Validation, in.Reported
+	if len(rep.Tokens) == 0 {
+		return nil, fmt.Errorf("the %s split is empty: raise data.%s_fraction", in.Split, in.Split)
+	}
+	type cand struct {
+		name, kind string
+		stateBits  float64
+		val, rep   []float64
+	}
+	cands := make([]*cand, len(in.Models))
+	stage := "score models on validation and " + in.Split
+	for i, e := range in.Models {
+		in.Progress.report(stage, i, len(in.Models))
+		c := &cand{name: e.label(), kind: e.kind()}
+		if s, ok := e.Model.(StateBitser); ok {
+			c.stateBits = s.StateBits()
+		}
+		c.val = make([]float64, len(val.Tokens))
+		if err := e.Model.LogProbs(ctx, c.val, val.Tokens); err != nil {
+			return nil, fmt.Errorf("score %s on validation: %w", c.name, err)
+		}
+		if in.Split == "validation" {
+			c.rep = c.val
+		} else {
+			c.rep = make([]float64, len(rep.Tokens))
+			if err := e.Model.LogProbs(ctx, c.rep, rep.Tokens); err != nil {
+				return nil, fmt.Errorf("score %s on %s: %w", c.name, in.Split, err)
+			}
+		}
+		cands[i] = c
+	}
+	in.Progress.report(stage, len(in.Models), len(in.Models))
+	cmp := &Comparison{Split: in.Split, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
+
+	best := -1
+	bestBPC := math.Inf(1)
+	valChars := val.Characters()
+	for i, c := range cands {
+		if !isBaselineKind(c.kind) {
+			continue
+		}
+		if b := totalBits(c.val) / float64(valChars); b < bestBPC {
+			best, bestBPC = i, b
+		}
+	}
+	if best >= 0 {
+		cmp.BestBaseline = cands[best].name
+		cmp.BestBaselineValBPC = bestBPC
+	}
+	rnnIdx := -1
+	for i, c := range cands {
+		if c.kind == "rnn" {
+			rnnIdx = i
+			break
+		}
+	}
+	if cfg.Interpolate && rnnIdx >= 0 && best >= 0 {
+		lambda, err := TuneMixture(cands[rnnIdx].val, cands[best].val)
+		if err != nil {
+			return nil, err
+		}
+		mix := make([]float64, len(rep.Tokens))
+		MixLogProbs(mix, cands[rnnIdx].rep, cands[best].rep, lambda)
+		cmp.Lambda = lambda
+		cands = append(cands, &cand{
+			name: fmt.Sprintf("%s + %s (λ=%.2f)", cands[rnnIdx].name, cands[best].name, lambda),
+			kind: "interpolated",
+			rep:  mix,
+		})
+	}
+
+	results := make([]Result, len(cands))
+	series := make([]Series, len(cands))
+	for i, c := range cands {
+		chars := in.Characters
+		if chars == 0 {
+			chars = rep.Characters()
+		}
+		r := NewResult(c.name, c.kind, in.Split, c.rep, chars)
+		r.SetUnknown(rep.Tokens, in.Unknown, in.UnknownCoversMany)
+		r.StateBits = c.stateBits
+		results[i] = r
+		series[i] = Series{LogProbs: c.rep, Chars: rep.Chars}
+	}
+	if cfg.BootstrapSamples > 0 && len(cands) > 0 {
+		ref := max(best, 0)
+		bpc, diff, err := Bootstrap(series, ref, cfg.Bootstrap())
+		if err != nil {
+			return nil, err
+		}
+		for i := range results {
+			results[i].CILow, results[i].CIHigh = bpc[i].Low, bpc[i].High
+			if best >= 0 {
+				results[i].SetIntervals(cands[best].name, bpc[i], diff[i])
+			}
+		}
+	}
+
+	// Breakdowns for the models a reader compares: the recurrent one, the
+	// interpolation and the best baseline.
+	for i, c := range cands {
+		if c.kind != "rnn" && c.kind != "interpolated" && i != best {
+			continue
+		}
+		if in.TrainCounts != nil {
+			cmp.Bands = append(cmp.Bands, ModelBreakdown{c.name, FrequencyBands(c.rep, rep.Tokens, rep.Chars, in.TrainCounts)})
+		}
+		if in.Marks != nil {
+			inside, outside := Marked(c.rep, rep.Chars, in.Marks)
+			inside.Label, outside.Label = "long-range positions", "all other positions"
+			cmp.LongRange = append(cmp.LongRange, ModelBreakdown{c.name, []Breakdown{inside, outside}})
+		}
+	}
+	SortBestFirst(results)
+	cmp.Rows = results
+	return cmp, nil
+}
+
+// SortBestFirst orders rows by bits per character, best first, NaN last,
+// keeping the given order among equals.
+func SortBestFirst(rows []Result) {
+	sort.SliceStable(rows, func(i, j int) bool { return lessBPC(rows[i].BitsPerChar, rows[j].BitsPerChar) })
+}
+
+// lessBPC orders scores best first, NaN last.
+func lessBPC(a, b float64) bool {
+	if math.IsNaN(b) {
+		return !math.IsNaN(a)
+	}
+	return a < b
+}
+
+// totalBits is -Σ logp / ln 2.
+func totalBits(logp []float64) float64 {
+	var s float64
+	for _, lp := range logp {
+		s -= lp
+	}
+	return s / math.Ln2
+}
