@@ -81,9 +81,11 @@ type CompareInput struct {
 	Unknown int
 	// UnknownCoversMany says the unknown entry stands for many strings.
 	UnknownCoversMany bool
-	// Characters is the reported split's characters; zero means
-	// Reported.Characters().
-	Characters int
+	// CharacterUnit says what a character of HeldOut.Chars is, for the
+	// table's header, such as "a character of a symbol or a line end (the
+	// whitespace between symbols is not counted)"; empty means a
+	// character of the text.
+	CharacterUnit string
 	// TrainCounts, from TokenCounts over the training split, gives the
 	// frequency bands of the breakdown; nil means none.
 	TrainCounts []int
@@ -105,6 +107,8 @@ type ModelBreakdown struct {
 type Comparison struct {
 	// Split is the reported split.
 	Split string
+	// CharacterUnit says what a character is, as CompareInput gives it.
+	CharacterUnit string
 	// Rows are the rows, best first (lowest bits per character, NaN
 	// last).
 	Rows []Result
@@ -162,7 +166,7 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 		cands[i] = c
 	}
 	in.Progress.report(stage, len(in.Models), len(in.Models))
-	cmp := &Comparison{Split: in.Split, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
+	cmp := &Comparison{Split: in.Split, CharacterUnit: in.CharacterUnit, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
 
 	best := -1
 	bestBPC := math.Inf(1)
@@ -201,14 +205,14 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 		})
 	}
 
+	// One denominator for every figure: the estimate, its interval, the
+	// difference from the best baseline and the breakdowns all divide by
+	// the sum of the reported split's Chars.
+	repChars := rep.Characters()
 	results := make([]Result, len(cands))
 	series := make([]Series, len(cands))
 	for i, c := range cands {
-		chars := in.Characters
-		if chars == 0 {
-			chars = rep.Characters()
-		}
-		r := NewResult(c.name, c.kind, in.Split, c.rep, chars)
+		r := NewResult(c.name, c.kind, in.Split, c.rep, repChars)
 		r.SetUnknown(rep.Tokens, in.Unknown, in.UnknownCoversMany)
 		r.StateBits = c.stateBits
 		results[i] = r

@@ -40,7 +40,7 @@ func compareModels(ctx context.Context, cfg eval.Config, ds *data.Dataset, split
 		Reported:          eval.HeldOut{Tokens: rep.Tokens, Chars: rep.TokenChars(nil)},
 		Unknown:           ds.Vocab.Unknown(),
 		UnknownCoversMany: ds.Vocab.Kind() == data.KindWord || ds.Vocab.Kind() == data.KindSymbols,
-		Characters:        int(rep.Characters),
+		CharacterUnit:     characterUnit(ds.Vocab.Kind()),
 		TrainCounts:       eval.TokenCounts(ds.Train.Tokens, ds.Vocab.Len()),
 		Marks:             marks,
 		Progress:          progress,
@@ -51,12 +51,25 @@ func compareModels(ctx context.Context, cfg eval.Config, ds *data.Dataset, split
 	return eval.Compare(ctx, cfg, in)
 }
 
+// characterUnit says what a character of Split.TokenChars is for the
+// tokenizer kind: for symbols the whitespace between symbols belongs to no
+// token and is not counted; "" (a character of the text) otherwise.
+func characterUnit(k data.Kind) string {
+	if k == data.KindSymbols {
+		return "a character of a symbol or a line end (the whitespace between symbols is not counted)"
+	}
+	return ""
+}
+
 // sortBestFirst orders rows by bits per character, best first, NaN last.
 func sortBestFirst(rows []eval.Result) { eval.SortBestFirst(rows) }
 
 // printComparison writes the comparison table, best first.
 func printComparison(w io.Writer, cmp *comparison) {
 	fmt.Fprintf(w, "held-out %s split, best first; intervals are %s block-bootstrap intervals\n", cmp.Split, "95%")
+	if cmp.CharacterUnit != "" {
+		fmt.Fprintf(w, "a character here is %s\n", cmp.CharacterUnit)
+	}
 	if cmp.BestBaseline != "" {
 		fmt.Fprintf(w, "best baseline (chosen on the validation split): %s\n", cmp.BestBaseline)
 	}

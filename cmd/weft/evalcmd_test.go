@@ -4,6 +4,7 @@ import (
 	"context"
 
 	"encoding/json"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -12,6 +13,7 @@ import (
 	"time"
 	"weft/configs"
 	"weft/data"
+	"weft/eval"
 )
 
 // writeTinyRun writes a small demo corpus (with its marks file) and a run
@@ -238,6 +240,88 @@ func TestDemoEndToEnd(t *testing.T) {
 	for _, f := range []string{"comparison-test.png", "learning-curve.png", "eval-test.json"} {
 		if _, err := os.Stat(filepath.Join(dir, "run", reportDir, f)); err != nil {
 			t.Errorf("report lacks %s", f)
+		}
+	}
+}
+
+// comparisonOf prepares the corpus text with the data settings set and
+// compares a 3-gram Kneser-Ney model of its training split on the test
+// split, with a bootstrap of 200 resamples over blocks of blockChars.
+func comparisonOf(t *testing.T, text string, set func(*data.Config), blockChars int) (*data.Dataset, *comparison) {
+	t.Helper()
+	dir := t.TempDir()
+	if err := os.WriteFile(filepath.Join(dir, "corpus.txt"), []byte(text), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	cfg := data.DefaultConfig()
+	cfg.Files = []string{filepath.Join(dir, "corpus.txt")}
+	cfg.ValidationFraction, cfg.TestFraction = 0.2, 0.2
+	set(&cfg)
+	ds, err := data.PrepareEnv(context.Background(), cfg, data.Env{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	counts, err := eval.CountNGrams(ds.Train.Tokens, ds.Vocab.Len(), 3, ds.Vocab.Boundary(), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	kn, err := eval.NewNGram(counts, 3, eval.Smoothing{Method: eval.KneserNey})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ecfg := eval.DefaultConfig()
+	ecfg.BootstrapSamples, ecfg.BootstrapBlockChars = 200, blockChars
+	cmp, err := compareModels(context.Background(), ecfg, ds, "test", []*candidate{{name: kn.Name(), kind: "ngram", model: kn}}, nil, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return ds, cmp
+}
+
+// TestCompareSymbolsDenominator: with the symbols tokenizer the estimate,
+// its interval and the breakdowns divide by one count of characters, the
+// characters of the symbols and the line ends (issue 11, defect 1: the
+// estimate divided by the whitespace too, and its interval did not hold
+// it).
+func TestCompareSymbolsDenominator(t *testing.T) {
+	// Every line is three two-character symbols and a line end: 4 tokens
+	// and 7 counted characters (6 of symbols, 1 line end), 9 characters of
+	// text with the two spaces. The line split keeps lines whole, so a
+	// split of T tokens has exactly 7·T/4 counted characters.
+	notes := []string{"C4", "D4", "E4", "F4", "G4", "A4", "B4"}
+	var b strings.Builder
+	for i := range 3000 {
+		fmt.Fprintf(&b, "%s %s %s\n", notes[i%7], notes[(i*3)%7], notes[(i*i)%7])
+	}
+	ds, cmp := comparisonOf(t, b.String(), func(c *data.Config) {
+		c.Tokenizer, c.Split = "symbols", "line"
+	}, 500)
+	T := len(ds.Test.Tokens)
+	if T%4 != 0 {
+		t.Fatalf("test split of %d tokens is not whole lines", T)
+	}
+	wantChars := 7 * T / 4
+	if got := ds.Test.CountedCharacters(); got != int64(wantChars) {
+		t.Errorf("CountedCharacters: got %d, want %d", got, wantChars)
+	}
+	if !strings.Contains(cmp.CharacterUnit, "whitespace between symbols is not counted") {
+		t.Errorf("character unit: got %q", cmp.CharacterUnit)
+	}
+	for _, r := range cmp.Rows {
+		if r.Characters != wantChars {
+			t.Errorf("%s: %d characters, want %d (7 per line of 4 tokens)", r.Model, r.Characters, wantChars)
+		}
+		if !(r.CILow <= r.BitsPerChar && r.BitsPerChar <= r.CIHigh) {
+			t.Errorf("%s: interval [%g, %g] does not hold the estimate %g", r.Model, r.CILow, r.CIHigh, r.BitsPerChar)
+		}
+	}
+	for _, mb := range cmp.Bands {
+		n := 0
+		for _, p := range mb.Parts {
+			n += p.Characters
+		}
+		if n != wantChars {
+			t.Errorf("frequency bands of %s span %d characters, want %d", mb.Model, n, wantChars)
 		}
 	}
 }
