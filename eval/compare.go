@@ -79,8 +79,9 @@ type CompareInput struct {
 	Models []Entrant
 	// Unknown is the token id of the unknown entry, or -1 for none.
 	Unknown int
-	// UnknownCoversMany says the unknown entry stands for many strings.
-	UnknownCoversMany bool
+	// Lowercased says the text was lower-cased before tokenizing: the
+	// models then predict the folded text, not the text itself.
+	Lowercased bool
 	// CharacterUnit says what a character of HeldOut.Chars is, for the
 	// table's header, such as "a character of a symbol or a line end (the
 	// whitespace between symbols is not counted)"; empty means a
@@ -213,7 +214,7 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 	series := make([]Series, len(cands))
 	for i, c := range cands {
 		r := NewResult(c.name, c.kind, in.Split, c.rep, repChars)
-		r.SetUnknown(rep.Tokens, in.Unknown, in.UnknownCoversMany)
+		in.setComparable(&r, rep.Tokens)
 		r.StateBits = c.stateBits
 		results[i] = r
 		series[i] = Series{LogProbs: c.rep, Chars: rep.Chars}
@@ -250,6 +251,18 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 	SortBestFirst(results)
 	cmp.Rows = results
 	return cmp, nil
+}
+
+// setComparable marks r not comparable on bits per character when its
+// bits do not measure the text of its characters: when some tokens of seq
+// are the unknown entry, whose probability stands for many strings at
+// once, whatever the tokenizer (min_count and max_vocabulary apply to all),
+// and when the text was lower-cased.
+func (in *CompareInput) setComparable(r *Result, seq []int) {
+	r.SetUnknown(seq, in.Unknown, true)
+	if in.Lowercased {
+		r.SetNotComparable("lower-cased: the model predicts the text with its letters folded to lower case, not the text itself")
+	}
 }
 
 // SortBestFirst orders rows by bits per character, best first, NaN last,

@@ -105,10 +105,12 @@ func NewResult(model, kind, split string, logp []float64, characters int) Result
 
 // SetUnknown counts the tokens of seq (the scored sequence) equal to the
 // unknown symbol unk (a negative unk means there is none). When
-// coversMany is true, the unknown symbol stands for many different strings
-// (a closed-vocabulary word model): its probability is then not the
-// probability of the text it replaced, so a row with any unknown tokens is
-// marked not comparable on bits per character, with the reason.
+// coversMany is true, the unknown symbol stands for many different strings:
+// its probability is then not the probability of the text it replaced, so
+// a row with any unknown tokens is marked not comparable on bits per
+// character, with the reason. The unknown entry of every tokenizer of
+// package data stands for every piece without an entry of its own, so
+// comparisons pass true whatever the tokenizer.
 func (r *Result) SetUnknown(seq []int, unk int, coversMany bool) {
 	n := 0
 	if unk >= 0 {
@@ -124,10 +126,19 @@ func (r *Result) SetUnknown(seq []int, unk int, coversMany bool) {
 		r.UnknownRate = float64(n) / float64(len(seq))
 	}
 	if coversMany && n > 0 {
-		r.Comparable = false
-		r.NotComparable = fmt.Sprintf("closed vocabulary: %d tokens (%.2f%%) are the unknown symbol, which stands for many strings, so bits per character undercounts them",
-			n, 100*r.UnknownRate)
+		r.SetNotComparable(fmt.Sprintf("%d tokens (%.2f%%) are the unknown symbol, which stands for every piece without an entry of its own; its probability is not spread over what it stands for, so bits per character undercounts them",
+			n, 100*r.UnknownRate))
 	}
+}
+
+// SetNotComparable marks the row not comparable on bits per character
+// and adds the reason to NotComparable, after any reason already there.
+func (r *Result) SetNotComparable(reason string) {
+	r.Comparable = false
+	if r.NotComparable != "" {
+		r.NotComparable += "; "
+	}
+	r.NotComparable += reason
 }
 
 // SetIntervals stores a model's interval and its difference from the

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"slices"
 	"strings"
 	"text/tabwriter"
 
@@ -35,15 +36,15 @@ func compareModels(ctx context.Context, cfg eval.Config, ds *data.Dataset, split
 		rep = ds.Validation
 	}
 	in := eval.CompareInput{
-		Split:             split,
-		Validation:        eval.HeldOut{Tokens: ds.Validation.Tokens, Chars: ds.Validation.TokenChars(nil)},
-		Reported:          eval.HeldOut{Tokens: rep.Tokens, Chars: rep.TokenChars(nil)},
-		Unknown:           ds.Vocab.Unknown(),
-		UnknownCoversMany: ds.Vocab.Kind() == data.KindWord || ds.Vocab.Kind() == data.KindSymbols,
-		CharacterUnit:     characterUnit(ds.Vocab.Kind()),
-		TrainCounts:       eval.TokenCounts(ds.Train.Tokens, ds.Vocab.Len()),
-		Marks:             marks,
-		Progress:          progress,
+		Split:         split,
+		Validation:    eval.HeldOut{Tokens: ds.Validation.Tokens, Chars: ds.Validation.TokenChars(nil)},
+		Reported:      eval.HeldOut{Tokens: rep.Tokens, Chars: rep.TokenChars(nil)},
+		Unknown:       ds.Vocab.Unknown(),
+		Lowercased:    ds.Vocab.Lowercase(),
+		CharacterUnit: characterUnit(ds.Vocab.Kind()),
+		TrainCounts:   eval.TokenCounts(ds.Train.Tokens, ds.Vocab.Len()),
+		Marks:         marks,
+		Progress:      progress,
 	}
 	for _, c := range cands {
 		in.Models = append(in.Models, eval.Entrant{Model: c.model, Label: c.name, Kind: c.kind})
@@ -76,10 +77,14 @@ func printComparison(w io.Writer, cmp *comparison) {
 	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "model\tkind\tbits/char\tinterval\tvs best baseline\tbits/token\tperplexity\tnote")
+	var reasons []string
 	for _, r := range cmp.Rows {
 		note := ""
 		if !r.Comparable {
-			note = "not comparable on bits/char: closed vocabulary"
+			note = "not comparable on bits/char (*)"
+			if !slices.Contains(reasons, r.NotComparable) {
+				reasons = append(reasons, r.NotComparable)
+			}
 		}
 		if r.ZeroProbTokens > 0 {
 			note = fmt.Sprintf("%d tokens given probability zero", r.ZeroProbTokens)
@@ -95,6 +100,9 @@ func printComparison(w io.Writer, cmp *comparison) {
 			interval(r.CILow, r.CIHigh), diff, num(r.BitsPerToken, 3), num(r.Perplexity, 2), note)
 	}
 	tw.Flush()
+	for _, r := range reasons {
+		fmt.Fprintf(w, "(*) not comparable on bits per character: %s\n", r)
+	}
 	if len(cmp.LongRange) > 0 {
 		fmt.Fprintln(w, "\nbits per character at the positions only long-range context predicts (demo corpus marks):")
 		printBreakdowns(w, cmp.LongRange)
