@@ -110,6 +110,8 @@ type Comparison struct {
 	Split string
 	// CharacterUnit says what a character is, as CompareInput gives it.
 	CharacterUnit string
+	// ConfidenceLevel is the coverage of the intervals, from the config.
+	ConfidenceLevel float64
 	// Rows are the rows, best first (lowest bits per character, NaN
 	// last).
 	Rows []Result
@@ -167,7 +169,7 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 		cands[i] = c
 	}
 	in.Progress.report(stage, len(in.Models), len(in.Models))
-	cmp := &Comparison{Split: in.Split, CharacterUnit: in.CharacterUnit, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
+	cmp := &Comparison{Split: in.Split, CharacterUnit: in.CharacterUnit, ConfidenceLevel: cfg.ConfidenceLevel, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
 
 	best := -1
 	bestBPC := math.Inf(1)

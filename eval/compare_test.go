@@ -124,6 +124,9 @@ func TestCompareChoosesOnValidation(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	if cmp.ConfidenceLevel != cfg.ConfidenceLevel {
+		t.Errorf("confidence level: got %g, want the config's %g", cmp.ConfidenceLevel, cfg.ConfidenceLevel)
+	}
 	if cmp.BestBaseline != "A" {
 		t.Errorf("best baseline: got %q, want A (best on validation; B is best on test)", cmp.BestBaseline)
 	}

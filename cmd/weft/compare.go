@@ -6,6 +6,7 @@ import (
 	"io"
 	"math"
 	"slices"
+	"strconv"
 	"strings"
 	"text/tabwriter"
 
@@ -67,7 +68,7 @@ func sortBestFirst(rows []eval.Result) { eval.SortBestFirst(rows) }
 
 // printComparison writes the comparison table, best first.
 func printComparison(w io.Writer, cmp *comparison) {
-	fmt.Fprintf(w, "held-out %s split, best first; intervals are %s block-bootstrap intervals\n", cmp.Split, "95%")
+	fmt.Fprintf(w, "held-out %s split, best first; intervals are %s%% block-bootstrap intervals\n", cmp.Split, strconv.FormatFloat(100*cmp.ConfidenceLevel, 'g', 4, 64))
 	if cmp.CharacterUnit != "" {
 		fmt.Fprintf(w, "a character here is %s\n", cmp.CharacterUnit)
 	}

@@ -382,3 +382,19 @@ func TestCompareUnknownAndLowercase(t *testing.T) {
 		}
 	}
 }
+
+// TestCompareHeaderLevel: the table's header gives the configured
+// confidence level (issue 11, defect 6: "95%" was fixed text).
+func TestCompareHeaderLevel(t *testing.T) {
+	for _, tc := range []struct {
+		level float64
+		want  string
+	}{{0.95, "95% "}, {0.9, "90% "}, {0.995, "99.5% "}} {
+		cmp := &comparison{Split: "test", ConfidenceLevel: tc.level}
+		var out strings.Builder
+		printComparison(&out, cmp)
+		if !strings.Contains(out.String(), "intervals are "+tc.want) {
+			t.Errorf("level %g: header %q lacks %q", tc.level, strings.SplitN(out.String(), "\n", 2)[0], tc.want)
+		}
+	}
+}
