@@ -120,9 +120,12 @@ type Comparison struct {
 	// bits per character (NaN when none).
 	BestBaseline       string
 	BestBaselineValBPC float64
-	// Lambda is the weight of the recurrent model in the interpolated
-	// row, NaN when there is none.
-	Lambda float64
+	// InterpolationPartner is the best n-gram baseline on the validation
+	// split, which the interpolated row mixes with the recurrent model,
+	// and Lambda the recurrent model's weight in it, tuned on the
+	// validation split (empty and NaN when there is no such row).
+	InterpolationPartner string
+	Lambda               float64
 	// Bands breaks the recurrent model, the interpolation and the best
 	// baseline down by how often each token was seen in training;
 	// LongRange by the marked positions against the others.
@@ -131,11 +134,15 @@ type Comparison struct {
 }
 
 // Compare scores every model on the validation split and on the reported
-// split, chooses the best baseline on validation (the reported split stays
-// untouched by the choice), adds the row of the recurrent model
-// interpolated with it, its weight tuned on validation by TuneMixture, and
-// sets bootstrap intervals on the reported split (cfg's bootstrap
-// settings) for every row and for its difference from the best baseline.
+// split and chooses on validation alone (the reported split stays
+// untouched by the choices): the best baseline (BestBaseline over the
+// validation rows, n-gram, Markov chain or HMM), the reference of the
+// difference column; and the best n-gram baseline, the partner of the
+// recurrent model (the first model of kind "rnn") in the interpolated
+// row, whose weight TuneMixture fits to the validation split (with
+// cfg.Interpolate). It then sets bootstrap intervals on the reported
+// split (cfg's bootstrap settings) for every row and for its difference
+// from the best baseline.
 func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, error) {
 	val, rep := in.Validation, in.Reported
 	if len(rep.Tokens) == 0 {
@@ -171,21 +178,23 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 	in.Progress.report(stage, len(in.Models), len(in.Models))
 	cmp := &Comparison{Split: in.Split, CharacterUnit: in.CharacterUnit, ConfidenceLevel: cfg.ConfidenceLevel, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
 
-	best := -1
-	bestBPC := math.Inf(1)
+	// The best baseline and the interpolation partner are chosen on
+	// validation rows (eval.BestBaseline), so the reported split stays
+	// untouched by the choice.
 	valChars := val.Characters()
+	valRows := make([]Result, len(cands))
 	for i, c := range cands {
-		if !isBaselineKind(c.kind) {
-			continue
-		}
-		if b := totalBits(c.val) / float64(valChars); b < bestBPC {
-			best, bestBPC = i, b
-		}
+		valRows[i] = NewResult(c.name, c.kind, "validation", c.val, valChars)
+		in.setComparable(&valRows[i], val.Tokens)
 	}
-	if best >= 0 {
+	best, err := BestBaseline(valRows)
+	if err != nil {
+		best = -1
+	} else {
 		cmp.BestBaseline = cands[best].name
-		cmp.BestBaselineValBPC = bestBPC
+		cmp.BestBaselineValBPC = valRows[best].BitsPerChar
 	}
+	partner := bestOf(valRows, "ngram")
 	rnnIdx := -1
 	for i, c := range cands {
 		if c.kind == "rnn" {
@@ -193,16 +202,17 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 			break
 		}
 	}
-	if cfg.Interpolate && rnnIdx >= 0 && best >= 0 {
-		lambda, err := TuneMixture(cands[rnnIdx].val, cands[best].val)
+	if cfg.Interpolate && rnnIdx >= 0 && partner >= 0 {
+		lambda, err := TuneMixture(cands[rnnIdx].val, cands[partner].val)
 		if err != nil {
 			return nil, err
 		}
 		mix := make([]float64, len(rep.Tokens))
-		MixLogProbs(mix, cands[rnnIdx].rep, cands[best].rep, lambda)
+		MixLogProbs(mix, cands[rnnIdx].rep, cands[partner].rep, lambda)
 		cmp.Lambda = lambda
+		cmp.InterpolationPartner = cands[partner].name
 		cands = append(cands, &cand{
-			name: fmt.Sprintf("%s + %s (λ=%.2f)", cands[rnnIdx].name, cands[best].name, lambda),
+			name: fmt.Sprintf("%s + %s (λ=%.2f)", cands[rnnIdx].name, cands[partner].name, lambda),
 			kind: "interpolated",
 			rep:  mix,
 		})

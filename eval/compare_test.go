@@ -3,6 +3,7 @@ package eval
 import (
 	"context"
 	"math"
+	"strings"
 	"testing"
 )
 
@@ -157,6 +158,44 @@ func TestCompareChoosesOnValidation(t *testing.T) {
 	for i := 1; i < len(cmp.Rows); i++ {
 		if cmp.Rows[i].BitsPerChar < cmp.Rows[i-1].BitsPerChar {
 			t.Errorf("row %d (%g) better than row %d (%g)", i, cmp.Rows[i].BitsPerChar, i-1, cmp.Rows[i-1].BitsPerChar)
+		}
+	}
+}
+
+// TestCompareInterpolatesWithBestNgram: the interpolated row mixes the
+// recurrent model with the best n-gram on validation, as the config and
+// the README promise, even when a Markov chain or an HMM is the best
+// baseline (issue 11, defect 8: the partner was the best baseline of any
+// kind).
+func TestCompareInterpolatesWithBestNgram(t *testing.T) {
+	val := repeatTokens([]int{0, 0, 0, 1, 2, 3}, 1200)
+	test := repeatTokens([]int{0, 0, 1, 1, 2, 3}, 1200)
+	markov := fixedModel{"M", "markov", []float64{0.6, 0.2, 0.1, 0.1}}
+	hmm := fixedModel{"H", "hmm", []float64{0.7, 0.1, 0.1, 0.1}}
+	ngram := fixedModel{"N", "ngram", []float64{0.5, 0.3, 0.1, 0.1}}
+	worse := fixedModel{"W", "ngram", []float64{0.25, 0.25, 0.25, 0.25}}
+	rnn := fixedModel{"R", "rnn", []float64{0.3, 0.5, 0.1, 0.1}}
+	cfg := DefaultConfig()
+	cfg.BootstrapSamples = 0
+	cmp, err := Compare(context.Background(), cfg, CompareInput{
+		Split: "test", Validation: HeldOut{Tokens: val}, Reported: HeldOut{Tokens: test},
+		Models: []Entrant{{Model: rnn}, {Model: worse}, {Model: hmm}, {Model: markov}, {Model: ngram}}, Unknown: -1,
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if cmp.BestBaseline != "M" {
+		t.Errorf("best baseline: got %q, want the Markov chain M (best on validation)", cmp.BestBaseline)
+	}
+	if cmp.InterpolationPartner != "N" {
+		t.Errorf("interpolation partner: got %q, want N, the best n-gram on validation", cmp.InterpolationPartner)
+	}
+	if math.Abs(cmp.Lambda-bestLambdaGrid(rnn.p, ngram.p, val)) > 0.6e-4 {
+		t.Errorf("λ %g is not the validation optimum of R with N", cmp.Lambda)
+	}
+	for _, r := range cmp.Rows {
+		if r.Kind == "interpolated" && !strings.Contains(r.Model, "R + N") {
+			t.Errorf("interpolated row %q does not mix R with N", r.Model)
 		}
 	}
 }

@@ -75,24 +75,29 @@ func printComparison(w io.Writer, cmp *comparison) {
 	if cmp.BestBaseline != "" {
 		fmt.Fprintf(w, "best baseline (chosen on the validation split): %s\n", cmp.BestBaseline)
 	}
+	if cmp.InterpolationPartner != "" {
+		fmt.Fprintf(w, "interpolated with the best n-gram (chosen on the validation split): %s, weight %.3f on the recurrent model (tuned on the validation split)\n",
+			cmp.InterpolationPartner, cmp.Lambda)
+	}
 	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "model\tkind\tbits/char\tinterval\tvs best baseline\tbits/token\tperplexity\tnote")
 	var reasons []string
 	for _, r := range cmp.Rows {
-		note := ""
+		var notes []string
 		if !r.Comparable {
-			note = "not comparable on bits/char (*)"
+			notes = append(notes, "not comparable on bits/char (*)")
 			if !slices.Contains(reasons, r.NotComparable) {
 				reasons = append(reasons, r.NotComparable)
 			}
 		}
 		if r.ZeroProbTokens > 0 {
-			note = fmt.Sprintf("%d tokens given probability zero", r.ZeroProbTokens)
+			notes = append(notes, fmt.Sprintf("%d tokens given probability zero", r.ZeroProbTokens))
 		}
 		if r.StateBits > 0 {
-			note = strings.TrimSpace(note + fmt.Sprintf(" state holds %.0f bits", r.StateBits))
+			notes = append(notes, fmt.Sprintf("state holds %.0f bits", r.StateBits))
 		}
+		note := strings.Join(notes, "; ")
 		diff := "-"
 		if r.Reference != "" && r.Model != r.Reference && !math.IsNaN(r.DiffBitsPerChar) {
 			diff = fmt.Sprintf("%+.3f [%+.3f, %+.3f]", r.DiffBitsPerChar, r.DiffCILow, r.DiffCIHigh)

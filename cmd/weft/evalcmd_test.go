@@ -398,3 +398,22 @@ func TestCompareHeaderLevel(t *testing.T) {
 		}
 	}
 }
+
+// TestCompareNotesAllShown: a row's notes are all printed; the
+// zero-probability note used to overwrite the not-comparable one (issue
+// 11, defect 8).
+func TestCompareNotesAllShown(t *testing.T) {
+	r := eval.NewResult("hmm-4", "hmm", "test", []float64{math.Inf(-1), -1}, 2)
+	r.SetNotComparable("lower-cased")
+	r.StateBits = 2
+	cmp := &comparison{Split: "test", ConfidenceLevel: 0.95, Rows: []eval.Result{r},
+		BestBaseline: "hmm-4", InterpolationPartner: "3-gram kneser_ney", Lambda: 0.25}
+	var out strings.Builder
+	printComparison(&out, cmp)
+	for _, want := range []string{"not comparable on bits/char", "1 tokens given probability zero", "state holds 2 bits",
+		"(*) not comparable on bits per character: lower-cased", "interpolated with the best n-gram (chosen on the validation split): 3-gram kneser_ney"} {
+		if !strings.Contains(out.String(), want) {
+			t.Errorf("table lacks %q:\n%s", want, out.String())
+		}
+	}
+}
