@@ -112,6 +112,11 @@ type Comparison struct {
 	CharacterUnit string
 	// ConfidenceLevel is the coverage of the intervals, from the config.
 	ConfidenceLevel float64
+	// TunedOnReported is true when the reported split is the validation
+	// split: the best baseline and the interpolation weight were then
+	// chosen on the split reported, so the difference column and the
+	// interpolated row are optimistic.
+	TunedOnReported bool
 	// Rows are the rows, best first (lowest bits per character, NaN
 	// last).
 	Rows []Result
@@ -176,7 +181,7 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 		cands[i] = c
 	}
 	in.Progress.report(stage, len(in.Models), len(in.Models))
-	cmp := &Comparison{Split: in.Split, CharacterUnit: in.CharacterUnit, ConfidenceLevel: cfg.ConfidenceLevel, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
+	cmp := &Comparison{TunedOnReported: in.Split == "validation", Split: in.Split, CharacterUnit: in.CharacterUnit, ConfidenceLevel: cfg.ConfidenceLevel, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
 
 	// The best baseline and the interpolation partner are chosen on
 	// validation rows (eval.BestBaseline), so the reported split stays

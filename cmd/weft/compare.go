@@ -75,6 +75,9 @@ func printComparison(w io.Writer, cmp *comparison) {
 	if cmp.BestBaseline != "" {
 		fmt.Fprintf(w, "best baseline (chosen on the validation split): %s\n", cmp.BestBaseline)
 	}
+	if cmp.TunedOnReported {
+		fmt.Fprintln(w, "the best baseline and the interpolation weight were chosen on this same split: the 'vs best baseline' column and the interpolated row are optimistic (report the test split)")
+	}
 	if cmp.InterpolationPartner != "" {
 		fmt.Fprintf(w, "interpolated with the best n-gram (chosen on the validation split): %s, weight %.3f on the recurrent model (tuned on the validation split)\n",
 			cmp.InterpolationPartner, cmp.Lambda)
@@ -90,6 +93,12 @@ func printComparison(w io.Writer, cmp *comparison) {
 			if !slices.Contains(reasons, r.NotComparable) {
 				reasons = append(reasons, r.NotComparable)
 			}
+		}
+		if cmp.TunedOnReported && r.Model == cmp.BestBaseline {
+			notes = append(notes, "chosen on this split")
+		}
+		if cmp.TunedOnReported && r.Kind == "interpolated" {
+			notes = append(notes, "weight tuned on this split")
 		}
 		if r.ZeroProbTokens > 0 {
 			notes = append(notes, fmt.Sprintf("%d tokens given probability zero", r.ZeroProbTokens))

@@ -36,8 +36,10 @@ func newEvalCmd(d *deps, runF func(*evalOptions) error) *cobra.Command {
 table, best first: bits per character with its block-bootstrap interval, the
 difference from the best baseline with its paired interval, bits per token and
 perplexity. The best baseline and the interpolation weight of the recurrent
-model mixed with it are chosen on the validation split, never on the split
-reported. Baselines missing from the run directory are fitted first and cached.
+model mixed with the best n-gram are chosen on the validation split: with
+--split test never on the split reported; with --split validation the table
+says that those rows were chosen on it and are optimistic. Baselines missing
+from the run directory are fitted first and cached.
 
 The recurrent model is scored with its state carried through the whole split
 as one continuous stream, from a zero state at its start (exact). --streams N

@@ -417,3 +417,45 @@ func TestCompareNotesAllShown(t *testing.T) {
 		}
 	}
 }
+
+// TestCompareValidationLabelled: with --split validation the best baseline
+// and the interpolation weight are chosen on the split reported, and the
+// table must say so (issue 11, defect 7: the help promised it never
+// happens).
+func TestCompareValidationLabelled(t *testing.T) {
+	dir := t.TempDir()
+	runFile := writeTinyRun(t, dir, 30000)
+	r, ds := loadTestDataset(t, runFile)
+	counts, err := eval.CountNGrams(ds.Train.Tokens, ds.Vocab.Len(), 3, ds.Vocab.Boundary(), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var cands []*candidate
+	for _, m := range []eval.Method{eval.KneserNey, eval.WittenBell} {
+		g, err := eval.NewNGram(counts, 3, eval.Smoothing{Method: m})
+		if err != nil {
+			t.Fatal(err)
+		}
+		cands = append(cands, &candidate{name: g.Name(), kind: "ngram", model: g})
+	}
+	// A stand-in for the recurrent model: the 2-gram, so that the
+	// interpolated row exists.
+	g2, _ := eval.NewNGram(counts, 2, eval.Smoothing{Method: eval.KneserNey})
+	cands = append(cands, &candidate{name: "stand-in", kind: "rnn", model: g2})
+	for _, tc := range []struct {
+		split   string
+		labeled bool
+	}{{"validation", true}, {"test", false}} {
+		cmp, err := compareModels(context.Background(), r.Evaluation.Config, ds, tc.split, cands, nil, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var out strings.Builder
+		printComparison(&out, cmp)
+		for _, want := range []string{"chosen on this same split", "chosen on this split", "weight tuned on this split"} {
+			if got := strings.Contains(out.String(), want); got != tc.labeled {
+				t.Errorf("--split %s: label %q present %v, want %v:\n%s", tc.split, want, got, tc.labeled, out.String())
+			}
+		}
+	}
+}
