@@ -3,6 +3,7 @@ package eval
 import (
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
 )
 
@@ -127,5 +128,48 @@ func TestBootstrapMasked(t *testing.T) {
 	checkClose(t, "masked estimate", bpc[0].Estimate, in.BitsPerChar, 1e-12)
 	if !(bpc[0].Low < in.BitsPerChar && in.BitsPerChar < bpc[0].High) {
 		t.Errorf("masked interval %+v does not contain %g", bpc[0], in.BitsPerChar)
+	}
+}
+
+// TestBootstrapBlocksMove: the blocks may start anywhere, not only at
+// multiples of the block length (Künsch 1989's moving blocks; issue 11,
+// defect 9: the blocks were fixed). The text alternates two patterns of
+// one block length each, 2 2 1 1 | 1 1 2 2, so that every fixed block
+// holds 6 bits and fixed blocks give every resample the same value (an
+// interval of width zero), while blocks starting at other positions hold
+// 4 to 8 bits.
+func TestBootstrapBlocksMove(t *testing.T) {
+	pattern := []float64{2, 2, 1, 1, 1, 1, 2, 2} // bits per character
+	lp := make([]float64, 20*len(pattern))
+	for i := range lp {
+		lp[i] = -pattern[i%len(pattern)] * math.Ln2
+	}
+	// Blocks of 4 characters: units of ceil(4/32) = 1 character, so a
+	// block may start at any character.
+	bpc, _, err := Bootstrap([]Series{{LogProbs: lp}}, 0, BootstrapConfig{Samples: 500, BlockChars: 4, Level: 0.95, Seed: 3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, "estimate", bpc[0].Estimate, 1.5, tolExact)
+	if !(bpc[0].High-bpc[0].Low > 0.05) {
+		t.Errorf("interval %+v has (nearly) no width: the blocks do not move", bpc[0])
+	}
+}
+
+func TestPlanBlocks(t *testing.T) {
+	for _, tc := range []struct {
+		chars, block, want int
+		note               string
+	}{
+		{40000, 2000, 2000, ""},       // 20 blocks: as configured
+		{39999, 2000, 1999, "shrunk"}, // 19.99 blocks: shrunk to chars/20
+		{600, 2000, 30, "shrunk"},
+		{20, 2000, 1, "shrunk"},
+		{19, 2000, 0, "no intervals"},
+	} {
+		got, note := PlanBlocks(tc.chars, tc.block)
+		if got != tc.want || !strings.Contains(note, tc.note) || (tc.note == "") != (note == "") {
+			t.Errorf("PlanBlocks(%d, %d): got %d %q, want %d and a note with %q", tc.chars, tc.block, got, note, tc.want, tc.note)
+		}
 	}
 }

@@ -112,6 +112,11 @@ type Comparison struct {
 	CharacterUnit string
 	// ConfidenceLevel is the coverage of the intervals, from the config.
 	ConfidenceLevel float64
+	// BlockChars is the bootstrap's block length in characters, 0 when
+	// there are no intervals; IntervalNote says why there are none, or
+	// that the blocks were shrunk (PlanBlocks).
+	BlockChars   int
+	IntervalNote string
 	// TunedOnReported is true when the reported split is the validation
 	// split: the best baseline and the interpolation weight were then
 	// chosen on the split reported, so the difference column and the
@@ -236,9 +241,18 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 		results[i] = r
 		series[i] = Series{LogProbs: c.rep, Chars: rep.Chars}
 	}
-	if cfg.BootstrapSamples > 0 && len(cands) > 0 {
-		ref := max(best, 0)
-		bpc, diff, err := Bootstrap(series, ref, cfg.Bootstrap())
+	switch {
+	case len(cands) == 0:
+	case cfg.BootstrapSamples == 0:
+		cmp.IntervalNote = "no intervals: evaluation.bootstrap_samples is 0"
+	default:
+		bc := cfg.Bootstrap()
+		bc.BlockChars, cmp.IntervalNote = PlanBlocks(repChars, cfg.BootstrapBlockChars)
+		cmp.BlockChars = bc.BlockChars
+		if bc.BlockChars == 0 {
+			break
+		}
+		bpc, diff, err := Bootstrap(series, max(best, 0), bc)
 		if err != nil {
 			return nil, err
 		}

@@ -3,6 +3,7 @@ package eval
 import (
 	"context"
 	"math"
+	"math/rand/v2"
 	"strings"
 	"testing"
 )
@@ -196,6 +197,49 @@ func TestCompareInterpolatesWithBestNgram(t *testing.T) {
 	for _, r := range cmp.Rows {
 		if r.Kind == "interpolated" && !strings.Contains(r.Model, "R + N") {
 			t.Errorf("interpolated row %q does not mix R with N", r.Model)
+		}
+	}
+}
+
+// TestCompareShortSplitIntervals: a held-out text shorter than
+// MinBootstrapBlocks blocks gets shrunk blocks and a note, never an
+// interval of zero width read as certainty; one shorter than
+// MinBootstrapBlocks characters gets no interval and a note (issue 11,
+// defect 5).
+func TestCompareShortSplitIntervals(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 5))
+	seq := func(n int) []int {
+		s := make([]int, n)
+		for i := range s {
+			s[i] = rng.IntN(4)
+		}
+		return s
+	}
+	m := fixedModel{"A", "ngram", []float64{0.4, 0.3, 0.2, 0.1}}
+	cfg := DefaultConfig() // blocks of 2000 characters
+	cfg.BootstrapSamples = 300
+	for _, tc := range []struct {
+		n         int
+		wantBlock int
+		wantNote  string
+		wantWidth bool
+	}{{600, 30, "shrunk", true}, {12, 0, "no intervals", false}} {
+		cmp, err := Compare(context.Background(), cfg, CompareInput{
+			Split: "test", Validation: HeldOut{Tokens: seq(tc.n)}, Reported: HeldOut{Tokens: seq(tc.n)},
+			Models: []Entrant{{Model: m}}, Unknown: -1,
+		})
+		if err != nil {
+			t.Fatal(err)
+		}
+		r := cmp.Rows[0]
+		if cmp.BlockChars != tc.wantBlock || !strings.Contains(cmp.IntervalNote, tc.wantNote) {
+			t.Errorf("%d characters: blocks %d, note %q; want %d and %q", tc.n, cmp.BlockChars, cmp.IntervalNote, tc.wantBlock, tc.wantNote)
+		}
+		if tc.wantWidth && !(r.CIHigh-r.CILow > 0) {
+			t.Errorf("%d characters: interval [%g, %g] has no width", tc.n, r.CILow, r.CIHigh)
+		}
+		if !tc.wantWidth && !(math.IsNaN(r.CILow) && math.IsNaN(r.CIHigh)) {
+			t.Errorf("%d characters: got interval [%g, %g], want none", tc.n, r.CILow, r.CIHigh)
 		}
 	}
 }

@@ -68,7 +68,15 @@ func sortBestFirst(rows []eval.Result) { eval.SortBestFirst(rows) }
 
 // printComparison writes the comparison table, best first.
 func printComparison(w io.Writer, cmp *comparison) {
-	fmt.Fprintf(w, "held-out %s split, best first; intervals are %s%% block-bootstrap intervals\n", cmp.Split, strconv.FormatFloat(100*cmp.ConfidenceLevel, 'g', 4, 64))
+	if cmp.BlockChars > 0 {
+		fmt.Fprintf(w, "held-out %s split, best first; intervals are %s%% moving-block bootstrap intervals (blocks of %d characters)\n",
+			cmp.Split, strconv.FormatFloat(100*cmp.ConfidenceLevel, 'g', 4, 64), cmp.BlockChars)
+	} else {
+		fmt.Fprintf(w, "held-out %s split, best first\n", cmp.Split)
+	}
+	if cmp.IntervalNote != "" {
+		fmt.Fprintf(w, "%s\n", cmp.IntervalNote)
+	}
 	if cmp.CharacterUnit != "" {
 		fmt.Fprintf(w, "a character here is %s\n", cmp.CharacterUnit)
 	}

@@ -390,7 +390,7 @@ func TestCompareHeaderLevel(t *testing.T) {
 		level float64
 		want  string
 	}{{0.95, "95% "}, {0.9, "90% "}, {0.995, "99.5% "}} {
-		cmp := &comparison{Split: "test", ConfidenceLevel: tc.level}
+		cmp := &comparison{Split: "test", ConfidenceLevel: tc.level, BlockChars: 2000}
 		var out strings.Builder
 		printComparison(&out, cmp)
 		if !strings.Contains(out.String(), "intervals are "+tc.want) {
