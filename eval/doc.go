@@ -109,8 +109,11 @@
 // forward algorithm, carrying its filtered state distribution through the
 // text (resetting to π after a boundary token), so it remembers at most
 // log2 N bits of the past (StateBits). Viterbi and Posteriors decode.
-// Emissions are mixed with a small uniform floor when scoring, so unseen
-// symbols keep a probability.
+// When scoring, emissions are interpolated with the add-one unigram
+// distribution of the whole training split (TrainHMM documents the
+// weights): a symbol the HMM's own training tokens lacked (it trains on
+// at most hmm_max_tokens of them) is predicted at about its unigram rate,
+// and every symbol keeps a probability.
 //
 // # Interpolation
 //

@@ -1,6 +1,7 @@
 package eval
 
 import (
+	"bytes"
 	"context"
 	"fmt"
 	"math"
@@ -363,5 +364,73 @@ func TestBaumWelchStopsOnTolerance(t *testing.T) {
 	}
 	if _, err := TrainHMM(context.Background(), []int{0, 9}, 4, HMMOptions{States: 3, MaxIterations: 1, Boundary: NoBoundary}); err == nil {
 		t.Error("a token outside the vocabulary gave no error")
+	}
+}
+
+// TestHMMFloorFromWholeTrainingSplit: an HMM trained on the first
+// hmm_max_tokens tokens predicts a symbol those tokens lack at its add-one
+// unigram rate in the whole training split, (1+δ)·(c(k)+1)/(T+V), not at
+// δ/V (issue 11, defect 4: such symbols cost about 20 + log2 V bits each).
+func TestHMMFloorFromWholeTrainingSplit(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 11))
+	const V, half = 4, 600
+	train := make([]int, 2*half)
+	for i := range train {
+		if i < half {
+			train[i] = rng.IntN(3) // the first half lacks symbol 3
+		} else {
+			train[i] = rng.IntN(4)
+		}
+	}
+	cfg := DefaultConfig()
+	cfg.NgramOrders, cfg.MarkovOrders = nil, nil
+	cfg.HMMStates, cfg.HMMMaxIterations, cfg.HMMMaxTokens = []int{3}, 5, half
+	l, err := FitLadder(context.Background(), train, V, NoBoundary, cfg, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	h := l.HMMs[0]
+	// Independent count of symbol 3 in the whole training split.
+	c3 := 0
+	for _, w := range train {
+		if w == 3 {
+			c3++
+		}
+	}
+	const delta = 1e-6 // HMMOptions.EmissionFloor's default
+	u3 := float64(c3+1) / float64(len(train)+V)
+	lp := make([]float64, 3)
+	if err := h.LogProbs(context.Background(), lp, []int{0, 3, 1}); err != nil {
+		t.Fatal(err)
+	}
+	// Every state's Baum-Welch emission of symbol 3 is exactly 0, so the
+	// prediction is the floor alone, whatever the state distribution.
+	checkClose(t, "ln P(unseen symbol)", lp[1], math.Log((1+delta)*u3), 1e-12)
+	dist := make([]float64, V)
+	if err := h.Distribution(dist, []int{0, 3}); err != nil {
+		t.Fatal(err)
+	}
+	s := 0.0
+	for _, p := range dist {
+		s += p
+	}
+	checkClose(t, "distribution sum", s, 1, tolNorm)
+	// The floor survives a save and a load.
+	var buf bytes.Buffer
+	if err := WriteHMM(&buf, h); err != nil {
+		t.Fatal(err)
+	}
+	h2, err := ReadHMM(&buf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lp2 := make([]float64, 3)
+	if err := h2.LogProbs(context.Background(), lp2, []int{0, 3, 1}); err != nil {
+		t.Fatal(err)
+	}
+	for i := range lp {
+		if lp[i] != lp2[i] {
+			t.Errorf("after a round trip: position %d got %g, want %g", i, lp2[i], lp[i])
+		}
 	}
 }

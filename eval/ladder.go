@@ -22,7 +22,8 @@ type Ladder struct {
 // FitLadder fits the baselines of cfg on the training token ids train
 // (below vocab; boundary as for CountNGrams). The counts are taken once at
 // the largest order any model needs; HMMs train on the first
-// cfg.HMMMaxTokens tokens. progress, if not nil, hears about each stage.
+// cfg.HMMMaxTokens tokens, their emission floor drawn from the unigram
+// counts of all of train (TrainHMM). progress, if not nil, hears about each stage.
 func FitLadder(ctx context.Context, train []int, vocab, boundary int, cfg Config, progress ProgressFunc) (*Ladder, error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, fmt.Errorf("fit baselines: %w", err)
@@ -35,10 +36,13 @@ func FitLadder(ctx context.Context, train []int, vocab, boundary int, cfg Config
 	if cfg.HMMMaxTokens > 0 && len(hmmTrain) > cfg.HMMMaxTokens {
 		hmmTrain = hmmTrain[:cfg.HMMMaxTokens]
 	}
+	// The emission floor of an HMM trained on the first HMMMaxTokens
+	// tokens comes from the whole training split's unigram counts.
+	unigram := TokenCounts(train, vocab)
 	for _, n := range cfg.HMMStates {
 		h, err := TrainHMM(ctx, hmmTrain, vocab, HMMOptions{
 			States: n, MaxIterations: cfg.HMMMaxIterations, Tolerance: cfg.HMMTolerance,
-			Seed: cfg.Seed, Boundary: boundary, Progress: progress,
+			Seed: cfg.Seed, Boundary: boundary, Progress: progress, Unigram: unigram,
 		})
 		if err != nil {
 			return nil, fmt.Errorf("fit baselines: %w", err)
