@@ -3,7 +3,6 @@ package main
 import (
 	"encoding/json"
 	"fmt"
-	"math"
 	"os"
 	"path/filepath"
 
@@ -11,7 +10,6 @@ import (
 
 	"weft/checkpoint"
 	"weft/configs"
-	"weft/eval"
 )
 
 type evalOptions struct {
@@ -68,17 +66,6 @@ before it: faster, and an approximation at the N-1 piece starts.`,
 	return cmd
 }
 
-// evalReport is what `weft eval --json` prints and what the report folder
-// keeps.
-type evalReport struct {
-	Split        string                `json:"split"`
-	BestBaseline string                `json:"best_baseline,omitempty"`
-	Lambda       *float64              `json:"interpolation_weight,omitempty"`
-	Rows         []eval.Result         `json:"rows"`
-	LongRange    []eval.ModelBreakdown `json:"long_range,omitempty"`
-	Bands        []eval.ModelBreakdown `json:"frequency_bands,omitempty"`
-}
-
 func runEval(opts *evalOptions) error {
 	if opts.Run == "" {
 		return usagef("--run DIR is required")
@@ -102,19 +89,10 @@ func runEval(opts *evalOptions) error {
 	if opts.JSON {
 		enc := json.NewEncoder(opts.Out)
 		enc.SetIndent("", "  ")
-		return enc.Encode(report(cmp))
+		return enc.Encode(cmp) // the eval report format, eval.ReportVersion
 	}
 	printComparison(opts.Out, cmp)
 	return nil
-}
-
-func report(cmp *comparison) evalReport {
-	rep := evalReport{Split: cmp.Split, BestBaseline: cmp.BestBaseline, Rows: cmp.Rows, LongRange: cmp.LongRange, Bands: cmp.Bands}
-	if !math.IsNaN(cmp.Lambda) {
-		l := cmp.Lambda
-		rep.Lambda = &l
-	}
-	return rep
 }
 
 type evalSettings struct {
@@ -163,7 +141,7 @@ func evaluateRun(cc cmdContext, r *configs.Run, rd *runDir, s evalSettings) (*co
 	if err := os.MkdirAll(rd.file(reportDir), 0o755); err != nil {
 		return nil, fmt.Errorf("report folder: %w", err)
 	}
-	if err := writeJSONAtomic(filepath.Join(rd.file(reportDir), "eval-"+s.Split+".json"), report(cmp)); err != nil {
+	if err := writeJSONAtomic(filepath.Join(rd.file(reportDir), "eval-"+s.Split+".json"), cmp); err != nil {
 		return nil, err
 	}
 	if r.Output.Plots {

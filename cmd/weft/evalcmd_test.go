@@ -1,6 +1,7 @@
 package main
 
 import (
+	"bytes"
 	"context"
 
 	"encoding/json"
@@ -11,6 +12,7 @@ import (
 	"strings"
 	"testing"
 	"time"
+	"unicode/utf8"
 	"weft/configs"
 	"weft/data"
 	"weft/eval"
@@ -78,6 +80,8 @@ func TestBaselinesAndEval(t *testing.T) {
 		t.Fatalf("eval: exit %d: %s", code, stderr)
 	}
 	var rep struct {
+		Format       string           `json:"format"`
+		Version      int              `json:"version"`
 		Split        string           `json:"split"`
 		BestBaseline string           `json:"best_baseline"`
 		Rows         []map[string]any `json:"rows"`
@@ -89,6 +93,23 @@ func TestBaselinesAndEval(t *testing.T) {
 	if rep.Split != "test" || rep.BestBaseline == "" || len(rep.Rows) != 8 {
 		t.Fatalf("got split %q best %q and %d rows", rep.Split, rep.BestBaseline, len(rep.Rows))
 	}
+	if rep.Format != eval.ReportFormat || rep.Version != eval.ReportVersion {
+		t.Errorf("report format %q version %d, want %q %d", rep.Format, rep.Version, eval.ReportFormat, eval.ReportVersion)
+	}
+	// The test split's characters, counted here from the corpus file by
+	// the contiguous split's documented cut (data package doc): with N
+	// characters and test_fraction t = 0.1 the test split holds
+	// [round(N·(1-t)), N). The demo corpus is ASCII text with "\n" line
+	// ends, so normalization leaves N the file's length.
+	corpus, err := os.ReadFile(filepath.Join(dir, demoCorpusName))
+	if err != nil {
+		t.Fatal(err)
+	}
+	N := utf8.RuneCount(corpus)
+	if N != len(corpus) || bytes.Contains(corpus, []byte("\r")) {
+		t.Fatalf("the demo corpus is not plain ASCII with \\n line ends; the count below assumes it")
+	}
+	wantChars := N - int(math.Round(float64(N)*0.9))
 	if len(rep.LongRange) == 0 {
 		t.Errorf("no long-range breakdown for the demo corpus")
 	}
@@ -107,11 +128,15 @@ func TestBaselinesAndEval(t *testing.T) {
 		}
 		prev = bpc
 		// Units, by definition: bits per character is the total nats over
-		// ln 2 over the characters; perplexity is exp(nats per token).
+		// ln 2 over the characters counted above; perplexity is exp(nats
+		// per token).
 		nats := row["cross_entropy_nats"].(float64)
 		chars := row["characters"].(float64)
 		tokens := row["tokens"].(float64)
-		if got, want := bpc, nats/math.Ln2/chars; math.Abs(got-want) > 1e-9*want {
+		if int(chars) != wantChars || int(tokens) != wantChars {
+			t.Errorf("%v: %v characters and %v tokens, want %d of each (a character model)", row["model"], chars, tokens, wantChars)
+		}
+		if got, want := bpc, nats/math.Ln2/float64(wantChars); math.Abs(got-want) > 1e-9*want {
 			t.Errorf("%v: bits_per_char %v, want %v", row["model"], got, want)
 		}
 		if got, want := row["perplexity"].(float64), math.Exp(nats/tokens); math.Abs(got-want) > 1e-9*want {
