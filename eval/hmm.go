@@ -88,7 +88,7 @@ func (h *HMM) VocabSize() int { return h.v }
 func (h *HMM) StateBits() float64 { return math.Log2(float64(h.n)) }
 
 // Name is "hmm-N".
-func (h *HMM) Name() string { return fmt.Sprintf("hmm-%d", h.n) }
+func (h *HMM) Name() string { return BaselineSpec{Kind: "hmm", States: h.n}.String() }
 
 // Kind is "hmm".
 func (h *HMM) Kind() string { return "hmm" }

@@ -131,16 +131,16 @@ func (l *Ladder) Models() []LanguageModel {
 	return ms
 }
 
-// Save writes the ladder into the folder dir (which must exist) as
-// "ngram-counts.bin" and "hmm-N.bin" files.
+// Save writes the ladder into the folder dir (which must exist) as the
+// files CountsFile and HMMFile(N).
 func (l *Ladder) Save(dir string) error {
 	if l.Counts != nil {
-		if err := SaveCounts(filepath.Join(dir, "ngram-counts.bin"), l.Counts); err != nil {
+		if err := SaveCounts(filepath.Join(dir, CountsFile), l.Counts); err != nil {
 			return err
 		}
 	}
 	for _, h := range l.HMMs {
-		if err := SaveHMM(filepath.Join(dir, fmt.Sprintf("hmm-%d.bin", h.States())), h); err != nil {
+		if err := SaveHMM(filepath.Join(dir, HMMFile(h.States())), h); err != nil {
 			return err
 		}
 	}
@@ -156,7 +156,7 @@ func LoadLadder(dir string, cfg Config) (*Ladder, error) {
 	}
 	l := &Ladder{}
 	if maxOrder(cfg) > 0 {
-		c, err := LoadCounts(filepath.Join(dir, "ngram-counts.bin"))
+		c, err := LoadCounts(filepath.Join(dir, CountsFile))
 		if err != nil {
 			return nil, err
 		}
@@ -166,7 +166,7 @@ func LoadLadder(dir string, cfg Config) (*Ladder, error) {
 		}
 	}
 	for _, n := range cfg.HMMStates {
-		h, err := LoadHMM(filepath.Join(dir, fmt.Sprintf("hmm-%d.bin", n)))
+		h, err := LoadHMM(filepath.Join(dir, HMMFile(n)))
 		if err != nil {
 			return nil, err
 		}
