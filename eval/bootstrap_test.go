@@ -40,9 +40,16 @@ func TestBootstrap(t *testing.T) {
 			t.Errorf("series %d: interval [%g, %g] does not contain %g", s, iv.Low, iv.High, iv.Estimate)
 		}
 	}
-	// Paired difference of the reference with itself: exactly zero.
-	if d := diff[1]; d.Estimate != 0 || d.Low != 0 || d.High != 0 {
-		t.Errorf("reference minus itself: got %+v, want all zero", d)
+	// The difference's estimate against bits summed here: Σ(-ln p)/ln 2
+	// over each text of 20,000 characters.
+	var bitsA, bitsB float64
+	for i := range a {
+		bitsA -= a[i] / math.Ln2
+		bitsB -= b[i] / math.Ln2
+	}
+	checkClose(t, "difference estimate", diff[0].Estimate, (bitsA-bitsB)/20000, 1e-12)
+	if !(diff[0].Low <= diff[0].Estimate && diff[0].Estimate <= diff[0].High) {
+		t.Errorf("difference interval %+v does not hold its estimate", diff[0])
 	}
 	if !(diff[0].High < 0) {
 		t.Errorf("a is better by about 0.2 bits: difference interval %+v should lie below 0", diff[0])
