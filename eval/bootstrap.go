@@ -193,7 +193,8 @@ func Bootstrap(series []Series, ref int, cfg BootstrapConfig) (bpc, diff []Inter
 			d[k] = samples[s][k] - samples[ref][k]
 		}
 		diff[s] = Interval{point[s] - point[ref], quantile(d, lo), quantile(d, hi)}
-		bpc[s] = Interval{point[s], quantile(samples[s], lo), quantile(samples[s], hi)}
+		own := slices.Clone(samples[s]) // quantile sorts: the resamples of s stay paired for the differences after it
+		bpc[s] = Interval{point[s], quantile(own, lo), quantile(own, hi)}
 	}
 	return bpc, diff, nil
 }
