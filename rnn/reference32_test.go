@@ -59,16 +59,8 @@ type torch32Case struct {
 }
 
 type torch32File struct {
-	Source  string                 `json:"source"`
-	V       int                    `json:"V"`
-	E       int                    `json:"E"`
-	H       int                    `json:"H"`
-	Layers  int                    `json:"layers"`
-	T       int                    `json:"T"`
-	B       int                    `json:"B"`
-	Inputs  []int                  `json:"inputs"`
-	Targets []int                  `json:"targets"`
-	Cases   map[string]torch32Case `json:"cases"`
+	torchSetup
+	Cases map[string]torch32Case `json:"cases"`
 }
 
 // torchDet is torch_reference.py's det() times scale: W[r, c] =
