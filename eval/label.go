@@ -22,13 +22,6 @@ import (
 // labels without the pseudo-count ("3-gram add_k", "markov-2"), which
 // then comes from the configuration.
 
-// Baseline file names in a folder written by Ladder.Save.
-const CountsFile = "ngram-counts.bin"
-
-// HMMFile is the file name of the n-state hidden Markov model in a folder
-// written by Ladder.Save.
-func HMMFile(n int) string { return fmt.Sprintf("hmm-%d.bin", n) }
-
 // BaselineSpec is what a baseline label says.
 type BaselineSpec struct {
 	// Kind is "ngram", "markov" or "hmm".

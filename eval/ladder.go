@@ -131,8 +131,17 @@ func (l *Ladder) Models() []LanguageModel {
 	return ms
 }
 
-// Save writes the ladder into the folder dir (which must exist) as the
-// files CountsFile and HMMFile(N).
+// CountsFile is the file of a saved ladder's folder that holds the n-gram
+// counts at the largest order (every n-gram and Markov model is rebuilt
+// from them).
+const CountsFile = "ngram-counts.bin"
+
+// HMMFile is the file of a saved ladder's folder that holds the hidden
+// Markov model of the given number of states.
+func HMMFile(states int) string { return fmt.Sprintf("hmm-%d.bin", states) }
+
+// Save writes the ladder into the folder dir (which must exist) as a
+// CountsFile and an HMMFile per hidden Markov model.
 func (l *Ladder) Save(dir string) error {
 	if l.Counts != nil {
 		if err := SaveCounts(filepath.Join(dir, CountsFile), l.Counts); err != nil {
