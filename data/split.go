@@ -17,7 +17,10 @@ type Split struct {
 	// or documents of a hash split follow one another.
 	Tokens []int
 
-	Characters int64 // runes of normalized text
+	// Characters counts the runes of normalized text. Bits per character
+	// divide by the sum of TokenChars instead, which is the same number
+	// for every tokenizer but symbols (CountedCharacters).
+	Characters int64
 	Lines      int64 // lines, a last line without "\n" included
 	OOV        int64 // tokens that are the unknown entry
 
@@ -63,6 +66,17 @@ func (s *Split) TokenChars(dst []int) []int {
 		dst[o.Pos] = int(o.Chars)
 	}
 	return dst
+}
+
+// CountedCharacters is the sum of TokenChars, the denominator of bits
+// per character: Characters for every tokenizer but symbols, whose
+// whitespace between symbols belongs to no token and is not counted.
+func (s *Split) CountedCharacters() int64 {
+	var n int64
+	for _, c := range s.TokenChars(nil) {
+		n += int64(c)
+	}
+	return n
 }
 
 // Streams lays the split out as n continuous streams for evaluation: the

@@ -3,6 +3,7 @@ package eval
 import (
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
 )
 
@@ -39,9 +40,16 @@ func TestBootstrap(t *testing.T) {
 			t.Errorf("series %d: interval [%g, %g] does not contain %g", s, iv.Low, iv.High, iv.Estimate)
 		}
 	}
-	// Paired difference of the reference with itself: exactly zero.
-	if d := diff[1]; d.Estimate != 0 || d.Low != 0 || d.High != 0 {
-		t.Errorf("reference minus itself: got %+v, want all zero", d)
+	// The difference's estimate against bits summed here: Σ(-ln p)/ln 2
+	// over each text of 20,000 characters.
+	var bitsA, bitsB float64
+	for i := range a {
+		bitsA -= a[i] / math.Ln2
+		bitsB -= b[i] / math.Ln2
+	}
+	checkClose(t, "difference estimate", diff[0].Estimate, (bitsA-bitsB)/20000, 1e-12)
+	if !(diff[0].Low <= diff[0].Estimate && diff[0].Estimate <= diff[0].High) {
+		t.Errorf("difference interval %+v does not hold its estimate", diff[0])
 	}
 	if !(diff[0].High < 0) {
 		t.Errorf("a is better by about 0.2 bits: difference interval %+v should lie below 0", diff[0])
@@ -127,5 +135,73 @@ func TestBootstrapMasked(t *testing.T) {
 	checkClose(t, "masked estimate", bpc[0].Estimate, in.BitsPerChar, 1e-12)
 	if !(bpc[0].Low < in.BitsPerChar && in.BitsPerChar < bpc[0].High) {
 		t.Errorf("masked interval %+v does not contain %g", bpc[0], in.BitsPerChar)
+	}
+}
+
+// TestBootstrapBlocksMove: the blocks may start anywhere, not only at
+// multiples of the block length (Künsch 1989's moving blocks; issue 11,
+// defect 9: the blocks were fixed). The text alternates two patterns of
+// one block length each, 2 2 1 1 | 1 1 2 2, so that every fixed block
+// holds 6 bits and fixed blocks give every resample the same value (an
+// interval of width zero), while blocks starting at other positions hold
+// 4 to 8 bits.
+func TestBootstrapBlocksMove(t *testing.T) {
+	pattern := []float64{2, 2, 1, 1, 1, 1, 2, 2} // bits per character
+	lp := make([]float64, 20*len(pattern))
+	for i := range lp {
+		lp[i] = -pattern[i%len(pattern)] * math.Ln2
+	}
+	// Blocks of 4 characters: units of ceil(4/32) = 1 character, so a
+	// block may start at any character.
+	bpc, _, err := Bootstrap([]Series{{LogProbs: lp}}, 0, BootstrapConfig{Samples: 500, BlockChars: 4, Level: 0.95, Seed: 3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, "estimate", bpc[0].Estimate, 1.5, tolExact)
+	if !(bpc[0].High-bpc[0].Low > 0.05) {
+		t.Errorf("interval %+v has (nearly) no width: the blocks do not move", bpc[0])
+	}
+}
+
+func TestPlanBlocks(t *testing.T) {
+	for _, tc := range []struct {
+		chars, block, want int
+		note               string
+	}{
+		{40000, 2000, 2000, ""},       // 20 blocks: as configured
+		{39999, 2000, 1999, "shrunk"}, // 19.99 blocks: shrunk to chars/20
+		{600, 2000, 30, "shrunk"},
+		{20, 2000, 1, "shrunk"},
+		{19, 2000, 0, "no intervals"},
+	} {
+		got, note := PlanBlocks(tc.chars, tc.block)
+		if got != tc.want || !strings.Contains(note, tc.note) || (tc.note == "") != (note == "") {
+			t.Errorf("PlanBlocks(%d, %d): got %d %q, want %d and a note with %q", tc.chars, tc.block, got, note, tc.want, tc.note)
+		}
+	}
+}
+
+// TestBootstrapPairingAfterReference: the differences of series listed
+// after the reference keep their pairing. A copy of another series has
+// exactly that series' difference interval wherever it is listed, and a
+// copy of the reference a difference of exactly zero in every resample.
+// (Found while writing issue 11's tables: the reference's resamples were
+// sorted in place for its own interval, so every series listed after it
+// was differenced against sorted values; two identical models in the word
+// table had difference intervals [+1.272, +1.320] and [+1.220, +1.368].)
+func TestBootstrapPairingAfterReference(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 7))
+	a := noisyScores(rng, 20000, 2.0)
+	ref := noisyScores(rng, 20000, 2.2)
+	series := []Series{{LogProbs: a}, {LogProbs: ref}, {LogProbs: a}, {LogProbs: ref}}
+	_, diff, err := Bootstrap(series, 1, BootstrapConfig{Samples: 300, BlockChars: 200, Level: 0.95, Seed: 4})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if diff[2] != diff[0] {
+		t.Errorf("a listed after the reference: difference %+v, listed before: %+v", diff[2], diff[0])
+	}
+	if d := diff[3]; d.Estimate != 0 || d.Low != 0 || d.High != 0 {
+		t.Errorf("a copy of the reference listed after it: difference %+v, want all zero", d)
 	}
 }

@@ -18,12 +18,25 @@
 //
 // Bits per character divides by the characters of the text whatever the
 // tokenization, so character, word and sub-word models share one scale,
-// provided each model's probabilities cover the whole text: a closed-
-// vocabulary word model whose unknown symbol stands for many strings does
-// not, and Result.SetUnknown marks such a row not comparable, with the
-// reason. A probability of zero gives ln 0 = -Inf and an infinite row;
-// rows keep their infinities, in tables and in JSON ("+Inf"), and are
-// never dropped.
+// provided each model's probabilities cover the whole text: a model whose
+// unknown symbol stands for many strings does not (whatever the
+// tokenizer), nor does one of lower-cased text, and Compare marks such
+// rows not comparable, with the reason (Result.SetUnknown,
+// Result.SetNotComparable). A probability of zero gives ln 0 = -Inf and an
+// infinite row; rows keep their infinities and are never dropped (JSON
+// writes every non-finite number as null; see ReportVersion).
+//
+// # Comparisons
+//
+// Compare scores a recurrent model and the baselines on a validation and
+// a reported split (HeldOut: token ids and the characters each stands
+// for, one denominator for every figure), chooses the best baseline
+// (BestBaseline) and the best n-gram, the partner of the interpolated row,
+// on validation alone, tunes the interpolation weight there, sets
+// bootstrap intervals on the reported split and returns the rows as data
+// (Comparison), which Comparison.MarshalJSON writes as the versioned eval
+// report. Baseline labels are formatted and parsed in one place
+// (BaselineSpec, ParseBaselineLabel).
 //
 // # Documents, boundaries and padding
 //
@@ -109,8 +122,11 @@
 // forward algorithm, carrying its filtered state distribution through the
 // text (resetting to π after a boundary token), so it remembers at most
 // log2 N bits of the past (StateBits). Viterbi and Posteriors decode.
-// Emissions are mixed with a small uniform floor when scoring, so unseen
-// symbols keep a probability.
+// When scoring, emissions are interpolated with the add-one unigram
+// distribution of the whole training split (TrainHMM documents the
+// weights): a symbol the HMM's own training tokens lacked (it trains on
+// at most hmm_max_tokens of them) is predicted at about its unigram rate,
+// and every symbol keeps a probability.
 //
 // # Interpolation
 //
@@ -129,12 +145,14 @@
 //
 // Bootstrap gives percentile intervals for every model's bits per
 // character and for its difference from a reference model by a paired
-// block bootstrap: the held-out text is cut into contiguous blocks of
-// BlockChars characters (a token belongs to the block holding its first
-// character), each resample draws as many blocks with replacement, seeded,
-// and all models are scored on the same drawn blocks, so their difference
-// is measured on identical text. Series.Masked restricts the bootstrap to
-// marked positions.
+// moving-block bootstrap (Künsch 1989): blocks of about BlockChars
+// characters that may start at any of 32 positions per block length (a
+// token belongs to the block holding its first character), drawn with
+// replacement, seeded, as many as cover the text, and all models scored on
+// the same drawn blocks, so their difference is measured on identical
+// text. Compare asks for at least MinBootstrapBlocks blocks and shrinks
+// them, with a note, when the text is shorter (PlanBlocks). Series.Masked
+// restricts the bootstrap to marked positions.
 //
 // # Progress and files
 //

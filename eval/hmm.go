@@ -29,9 +29,12 @@ type HMM struct {
 	pi       []float64 // π_i
 	a        []float64 // a[i*n+j] = a_ij
 	bt       []float64 // bt[k*n+i] = b_i(k), symbol-major
-	// floor is the emission floor ε: scoring uses (1-ε)·b_i(k) + ε/V so
-	// that a symbol never seen in training keeps a nonzero probability.
-	floor float64
+	// floor is the emission floor ε and floorDist its distribution q over
+	// the symbols: scoring uses (1-ε)·b_i(k) + ε·q(k), so that a symbol
+	// the training tokens never showed keeps a probability (TrainHMM says
+	// how ε and q are set).
+	floor     float64
+	floorDist []float64
 
 	// LogLik holds the training log-likelihood in nats before each
 	// Baum-Welch iteration and after the last one.
@@ -63,7 +66,7 @@ func NewHMM(pi, a, b []float64, n, v int) (*HMM, error) {
 			return nil, fmt.Errorf("hmm: a distribution sums to %g, not 1", s)
 		}
 	}
-	h := &HMM{n: n, v: v, boundary: NoBoundary}
+	h := &HMM{n: n, v: v, boundary: NoBoundary, floorDist: make([]float64, v)}
 	h.pi = append([]float64(nil), pi...)
 	h.a = append([]float64(nil), a...)
 	h.bt = make([]float64, v*n)
@@ -85,7 +88,7 @@ func (h *HMM) VocabSize() int { return h.v }
 func (h *HMM) StateBits() float64 { return math.Log2(float64(h.n)) }
 
 // Name is "hmm-N".
-func (h *HMM) Name() string { return fmt.Sprintf("hmm-%d", h.n) }
+func (h *HMM) Name() string { return BaselineSpec{Kind: "hmm", States: h.n}.String() }
 
 // Kind is "hmm".
 func (h *HMM) Kind() string { return "hmm" }
@@ -223,7 +226,7 @@ func (h *HMM) LogProbsProgress(ctx context.Context, dst []float64, seq []int, pr
 	alpha := make([]float64, n)
 	pred := make([]float64, n)
 	start := true
-	eps := h.floor / float64(h.v)
+	keep := 1 - h.floor
 	for t, o := range seq {
 		if t%1024 == 0 {
 			if err := ctx.Err(); err != nil {
@@ -239,9 +242,10 @@ func (h *HMM) LogProbsProgress(ctx context.Context, dst []float64, seq []int, pr
 			vecMat(pred, alpha, h.a, n)
 		}
 		b := h.bt[o*n : (o+1)*n]
+		eps := h.floor * h.floorDist[o]
 		var p float64
 		for i := range n {
-			alpha[i] = pred[i] * ((1-h.floor)*b[i] + eps)
+			alpha[i] = pred[i] * (keep*b[i] + eps)
 			p += alpha[i]
 		}
 		dst[t] = math.Log(p)
@@ -268,12 +272,13 @@ func (h *HMM) Distribution(dst []float64, history []int) error {
 	n := h.n
 	pred := append([]float64(nil), h.pi...)
 	alpha := make([]float64, n)
-	eps := h.floor / float64(h.v)
+	keep := 1 - h.floor
 	for _, o := range history {
 		b := h.bt[o*n : (o+1)*n]
+		eps := h.floor * h.floorDist[o]
 		var p float64
 		for i := range n {
-			alpha[i] = pred[i] * ((1-h.floor)*b[i] + eps)
+			alpha[i] = pred[i] * (keep*b[i] + eps)
 			p += alpha[i]
 		}
 		for i := range alpha {
@@ -287,9 +292,10 @@ func (h *HMM) Distribution(dst []float64, history []int) error {
 	}
 	for w := range dst {
 		b := h.bt[w*n : (w+1)*n]
+		eps := h.floor * h.floorDist[w]
 		var p float64
 		for i := range n {
-			p += pred[i] * ((1-h.floor)*b[i] + eps)
+			p += pred[i] * (keep*b[i] + eps)
 		}
 		dst[w] = p
 	}
@@ -311,11 +317,16 @@ type HMMOptions struct {
 	// Boundary is the token id that ends a document, or NoBoundary (-1).
 	// Mind the zero value: it makes token 0 the boundary.
 	Boundary int
-	// EmissionFloor is the weight ε of the uniform distribution mixed into
-	// the emissions when scoring, (1-ε)·b_i(k) + ε/V, in 0..1. Training
-	// itself is plain maximum likelihood. Zero means 1e-6; a negative value
-	// means none.
+	// EmissionFloor is the weight δ of the add-one unigram distribution
+	// mixed into every emission when scoring, over and above the weight
+	// of the symbols the training tokens lack (see TrainHMM), in 0..1: it
+	// keeps every symbol possible in every state. Training itself is plain
+	// maximum likelihood. Zero means 1e-6; a negative value means none.
 	EmissionFloor float64
+	// Unigram is the count of each symbol 0..vocab-1 in the whole training
+	// split (TokenCounts), when the model trains on a part of it; nil
+	// means the counts of the training tokens given.
+	Unigram []int
 	// Threads is the number of goroutines sharing the transition counts,
 	// at least 1. Zero means 2.
 	Threads int
@@ -333,6 +344,25 @@ type HMMOptions struct {
 // add-one, each symbol's weight times a unit exponential, normalised. The
 // spread matters: states that start too alike (factors within 1..2, say)
 // leave EM near the symmetric saddle for tens of iterations.
+//
+// Emission floor. Baum-Welch gives probability zero to every symbol its
+// training tokens lack, and the model may be trained on a part of the
+// training split (hmm_max_tokens). When scoring, every emission is
+// interpolated with a unigram distribution (linear interpolation,
+// Jelinek & Mercer 1980):
+//
+//	b'_i(k) = (1 - m - δ)·b_i(k) + m·u_S(k) + δ·u(k)
+//	u(k)    = (c(k) + 1) / (T + V)          (add-one on the whole split)
+//	m       = Σ_{k ∈ S} u(k),  u_S(k) = u(k)/m for k ∈ S, 0 otherwise
+//
+// where c(k) counts symbol k in the whole training split of T tokens
+// (opts.Unigram), S is the set of symbols the HMM's own training tokens
+// lack, and δ is opts.EmissionFloor. So a symbol the HMM never saw is
+// predicted at about its unigram rate in the whole training split, in
+// every state, rather than at a token probability of δ/V; m is the share
+// of the (add-one) training split taken up by such symbols, the rate at
+// which the model would meet one if it read the whole split. This rule is
+// weft's own; each b'_i sums to 1.
 //
 // Each iteration runs the scaled forward-backward algorithm over every
 // document. It keeps the scaled forward vectors only at every 256th
@@ -363,12 +393,16 @@ func TrainHMM(ctx context.Context, train []int, vocab int, opts HMMOptions) (*HM
 	case floor > 1:
 		return nil, fmt.Errorf("hmm: emission floor %g above 1", floor)
 	}
-	h := &HMM{n: n, v: vocab, boundary: opts.Boundary, floor: floor}
+	h := &HMM{n: n, v: vocab, boundary: opts.Boundary}
 	for i, o := range train {
 		if o < 0 || o >= vocab {
 			return nil, fmt.Errorf("hmm: token %d at position %d outside 0..%d", o, i, vocab-1)
 		}
 	}
+	if opts.Unigram != nil && len(opts.Unigram) != vocab {
+		return nil, fmt.Errorf("hmm: %d unigram counts for %d symbols", len(opts.Unigram), vocab)
+	}
+	h.setFloor(train, opts.Unigram, floor)
 	h.initRandom(train, opts.Seed)
 	prev := math.Inf(-1)
 	for it := range opts.MaxIterations {
@@ -389,6 +423,40 @@ func TrainHMM(ctx context.Context, train []int, vocab int, opts HMMOptions) (*HM
 	h.LogLik = append(h.LogLik, final)
 	opts.Progress.report("baum-welch", opts.MaxIterations, opts.MaxIterations)
 	return h, nil
+}
+
+// setFloor sets the emission floor as TrainHMM documents: delta is δ,
+// unigram the whole training split's counts (nil: those of train).
+func (h *HMM) setFloor(train []int, unigram []int, delta float64) {
+	seen := TokenCounts(train, h.v)
+	if unigram == nil {
+		unigram = seen
+	}
+	total := 0
+	for _, c := range unigram {
+		total += c
+	}
+	u := make([]float64, h.v)
+	m := 0.0
+	for k, c := range unigram {
+		u[k] = float64(c+1) / float64(total+h.v)
+		if seen[k] == 0 {
+			m += u[k]
+		}
+	}
+	// f(k) = m·u_S(k) + δ·u(k) = (1[k ∈ S] + δ)·u(k), of total mass m + δ.
+	h.floor = m + delta
+	h.floorDist = make([]float64, h.v)
+	if h.floor == 0 {
+		return
+	}
+	for k := range u {
+		w := delta
+		if seen[k] == 0 {
+			w++
+		}
+		h.floorDist[k] = w * u[k] / h.floor
+	}
 }
 
 func (h *HMM) initRandom(train []int, seed uint64) {

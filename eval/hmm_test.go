@@ -1,10 +1,13 @@
 package eval
 
 import (
+	"bytes"
 	"context"
+	"encoding/json"
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"os"
 	"testing"
 )
 
@@ -64,20 +67,89 @@ func TestIceCreamForward(t *testing.T) {
 	checkClose(t, "Viterbi probability", math.Exp(logp), 0.0128, tolExact)
 }
 
-// eisnerDays is the 33-day ice-cream diary of Eisner (2002), "An
-// interactive spreadsheet for teaching the forward-backward algorithm".
-// Recalled from memory of the spreadsheet, not verified against it here;
-// the posteriors it gives below match the values the spreadsheet is known
-// for (0.871 and 0.977, per shared/CHECKS.md), which is strong evidence.
+// eisnerDays is a 33-day ice-cream diary as the author of this test
+// remembered it from Eisner (2002), "An interactive spreadsheet for
+// teaching the forward-backward algorithm", not verified against the
+// spreadsheet. The test does not rest on that memory: its values come from
+// the exact rational computation of testdata/hmm_reference.py.
 var eisnerDays = []int{2, 3, 3, 2, 3, 2, 3, 2, 2, 3, 1, 3, 3, 1, 1, 1, 2, 1, 1, 1, 3, 1, 2, 1, 1, 1, 2, 3, 3, 2, 3, 2, 2}
 
+// hmmReference is testdata/hmm_reference.json, exact values computed by
+// testdata/hmm_reference.py in rational arithmetic (brute force over all
+// state paths, and the unscaled recursions checked against it).
+type hmmReference struct {
+	IceCream struct {
+		Probability float64     `json:"probability"`
+		Alpha       [][]float64 `json:"alpha"`
+		Posteriors  [][]float64 `json:"posteriors"`
+		ViterbiPath []int       `json:"viterbi_path"`
+		ViterbiProb float64     `json:"viterbi_probability"`
+	} `json:"ice_cream_313"`
+	Diary struct {
+		LogProbability float64   `json:"log_probability"`
+		PosteriorsH    []float64 `json:"posteriors_H"`
+	} `json:"diary_33"`
+}
+
+func loadHMMReference(t *testing.T) hmmReference {
+	t.Helper()
+	b, err := os.ReadFile("testdata/hmm_reference.json")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var ref hmmReference
+	if err := json.Unmarshal(b, &ref); err != nil {
+		t.Fatal(err)
+	}
+	return ref
+}
+
+// TestIceCreamPosteriors checks the forward trellis, the posteriors and
+// the Viterbi path of J&M's 3 1 3 against the brute force over all eight
+// state paths in testdata/hmm_reference.json.
+func TestIceCreamPosteriors(t *testing.T) {
+	ref := loadHMMReference(t)
+	h := iceCream(t)
+	obs := []int{2, 0, 2}
+	alpha := make([]float64, 6)
+	p, err := h.Forward(alpha, obs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, "P(3 1 3)", p, ref.IceCream.Probability, tolRef)
+	post := make([]float64, 6)
+	ll, err := h.Posteriors(post, obs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	checkClose(t, "ln P(3 1 3) from Posteriors", ll, math.Log(ref.IceCream.Probability), tolRef)
+	for tt := range obs {
+		for i := range 2 {
+			checkClose(t, fmt.Sprintf("α_%d(%d)", tt+1, i), alpha[tt*2+i], ref.IceCream.Alpha[tt][i], tolRef)
+			checkClose(t, fmt.Sprintf("γ_%d(%d)", tt+1, i), post[tt*2+i], ref.IceCream.Posteriors[tt][i], tolRef)
+		}
+	}
+	path, logp, err := h.Viterbi(obs)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i := range path {
+		if path[i] != ref.IceCream.ViterbiPath[i] {
+			t.Fatalf("Viterbi path: got %v, want %v", path, ref.IceCream.ViterbiPath)
+		}
+	}
+	checkClose(t, "Viterbi probability", math.Exp(logp), ref.IceCream.ViterbiProb, tolRef)
+}
+
 func TestEisnerPosteriors(t *testing.T) {
-	// Initial parameters of Eisner's spreadsheet, from memory: p(H|start)
-	// = p(C|start) = .5; p(H|H) = p(C|C) = .8, p(C|H) = p(H|C) = .1,
-	// p(stop|·) = .1; p(1|H)=.1, p(2|H)=.2, p(3|H)=.7; p(1|C)=.7, p(2|C)=.2,
-	// p(3|C)=.1. The stop probability is the same from both states, so
-	// dropping it and renormalising the transitions to 8/9 and 1/9 leaves
-	// every posterior unchanged (each path has the same number of steps).
+	// Starting parameters as remembered from Eisner's spreadsheet (see
+	// eisnerDays): p(H|start) = p(C|start) = .5; p(H|H) = p(C|C) = .8,
+	// p(C|H) = p(H|C) = .1, p(stop|·) = .1; p(1|H)=.1, p(2|H)=.2,
+	// p(3|H)=.7; p(1|C)=.7, p(2|C)=.2, p(3|C)=.1. The stop probability is
+	// the same from both states, so dropping it and renormalising the
+	// transitions to 8/9 and 1/9 leaves every posterior unchanged (each
+	// path has the same number of steps).
+	ref := loadHMMReference(t)
 	h, err := NewHMM(
 		[]float64{.5, .5}, // H, C
 		[]float64{8.0 / 9, 1.0 / 9, 1.0 / 9, 8.0 / 9},
@@ -91,18 +163,19 @@ func TestEisnerPosteriors(t *testing.T) {
 		obs[i] = d - 1
 	}
 	post := make([]float64, len(obs)*2)
-	if _, err := h.Posteriors(post, obs); err != nil {
+	ll, err := h.Posteriors(post, obs)
+	if err != nil {
 		t.Fatal(err)
 	}
-	// The spreadsheet shows three decimals: 0.871 and 0.977.
-	const tolSheet = 0.0005
-	if got := post[0]; math.Abs(got-0.871) > tolSheet {
-		t.Errorf("P(day 1 = H): got %.4f, want 0.871 ± %g", got, tolSheet)
-	}
-	if got := post[2]; math.Abs(got-0.977) > tolSheet {
-		t.Errorf("P(day 2 = H): got %.4f, want 0.977 ± %g", got, tolSheet)
+	// Exact values from testdata/hmm_reference.py; they round to the
+	// 0.871 and 0.977 the spreadsheet is remembered to show for days 1
+	// and 2. 33 scaled steps in float64 stay well within tolRef.
+	checkClose(t, "ln P(diary)", ll, ref.Diary.LogProbability, tolRef)
+	if len(ref.Diary.PosteriorsH) != len(obs) {
+		t.Fatalf("reference has %d days, want %d", len(ref.Diary.PosteriorsH), len(obs))
 	}
 	for d := range obs {
+		checkClose(t, fmt.Sprintf("P(day %d = H)", d+1), post[2*d], ref.Diary.PosteriorsH[d], tolRef)
 		if s := post[2*d] + post[2*d+1]; math.Abs(s-1) > tolNorm {
 			t.Errorf("day %d: posteriors sum to %g, want 1", d+1, s)
 		}
@@ -363,5 +436,73 @@ func TestBaumWelchStopsOnTolerance(t *testing.T) {
 	}
 	if _, err := TrainHMM(context.Background(), []int{0, 9}, 4, HMMOptions{States: 3, MaxIterations: 1, Boundary: NoBoundary}); err == nil {
 		t.Error("a token outside the vocabulary gave no error")
+	}
+}
+
+// TestHMMFloorFromWholeTrainingSplit: an HMM trained on the first
+// hmm_max_tokens tokens predicts a symbol those tokens lack at its add-one
+// unigram rate in the whole training split, (1+δ)·(c(k)+1)/(T+V), not at
+// δ/V (issue 11, defect 4: such symbols cost about 20 + log2 V bits each).
+func TestHMMFloorFromWholeTrainingSplit(t *testing.T) {
+	rng := rand.New(rand.NewPCG(11, 11))
+	const V, half = 4, 600
+	train := make([]int, 2*half)
+	for i := range train {
+		if i < half {
+			train[i] = rng.IntN(3) // the first half lacks symbol 3
+		} else {
+			train[i] = rng.IntN(4)
+		}
+	}
+	cfg := DefaultConfig()
+	cfg.NgramOrders, cfg.MarkovOrders = nil, nil
+	cfg.HMMStates, cfg.HMMMaxIterations, cfg.HMMMaxTokens = []int{3}, 5, half
+	l, err := FitLadder(context.Background(), train, V, NoBoundary, cfg, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	h := l.HMMs[0]
+	// Independent count of symbol 3 in the whole training split.
+	c3 := 0
+	for _, w := range train {
+		if w == 3 {
+			c3++
+		}
+	}
+	const delta = 1e-6 // HMMOptions.EmissionFloor's default
+	u3 := float64(c3+1) / float64(len(train)+V)
+	lp := make([]float64, 3)
+	if err := h.LogProbs(context.Background(), lp, []int{0, 3, 1}); err != nil {
+		t.Fatal(err)
+	}
+	// Every state's Baum-Welch emission of symbol 3 is exactly 0, so the
+	// prediction is the floor alone, whatever the state distribution.
+	checkClose(t, "ln P(unseen symbol)", lp[1], math.Log((1+delta)*u3), 1e-12)
+	dist := make([]float64, V)
+	if err := h.Distribution(dist, []int{0, 3}); err != nil {
+		t.Fatal(err)
+	}
+	s := 0.0
+	for _, p := range dist {
+		s += p
+	}
+	checkClose(t, "distribution sum", s, 1, tolNorm)
+	// The floor survives a save and a load.
+	var buf bytes.Buffer
+	if err := WriteHMM(&buf, h); err != nil {
+		t.Fatal(err)
+	}
+	h2, err := ReadHMM(&buf)
+	if err != nil {
+		t.Fatal(err)
+	}
+	lp2 := make([]float64, 3)
+	if err := h2.LogProbs(context.Background(), lp2, []int{0, 3, 1}); err != nil {
+		t.Fatal(err)
+	}
+	for i := range lp {
+		if lp[i] != lp2[i] {
+			t.Errorf("after a round trip: position %d got %g, want %g", i, lp2[i], lp[i])
+		}
 	}
 }

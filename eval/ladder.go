@@ -22,7 +22,8 @@ type Ladder struct {
 // FitLadder fits the baselines of cfg on the training token ids train
 // (below vocab; boundary as for CountNGrams). The counts are taken once at
 // the largest order any model needs; HMMs train on the first
-// cfg.HMMMaxTokens tokens. progress, if not nil, hears about each stage.
+// cfg.HMMMaxTokens tokens, their emission floor drawn from the unigram
+// counts of all of train (TrainHMM). progress, if not nil, hears about each stage.
 func FitLadder(ctx context.Context, train []int, vocab, boundary int, cfg Config, progress ProgressFunc) (*Ladder, error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, fmt.Errorf("fit baselines: %w", err)
@@ -35,10 +36,13 @@ func FitLadder(ctx context.Context, train []int, vocab, boundary int, cfg Config
 	if cfg.HMMMaxTokens > 0 && len(hmmTrain) > cfg.HMMMaxTokens {
 		hmmTrain = hmmTrain[:cfg.HMMMaxTokens]
 	}
+	// The emission floor of an HMM trained on the first HMMMaxTokens
+	// tokens comes from the whole training split's unigram counts.
+	unigram := TokenCounts(train, vocab)
 	for _, n := range cfg.HMMStates {
 		h, err := TrainHMM(ctx, hmmTrain, vocab, HMMOptions{
 			States: n, MaxIterations: cfg.HMMMaxIterations, Tolerance: cfg.HMMTolerance,
-			Seed: cfg.Seed, Boundary: boundary, Progress: progress,
+			Seed: cfg.Seed, Boundary: boundary, Progress: progress, Unigram: unigram,
 		})
 		if err != nil {
 			return nil, fmt.Errorf("fit baselines: %w", err)
@@ -180,26 +184,41 @@ func LoadLadder(dir string, cfg Config) (*Ladder, error) {
 	return l, nil
 }
 
-// BestBaseline returns the index of the row with the lowest finite bits
-// per character among the comparable rows of kinds "ngram", "markov" and
-// "hmm" (the reference for Bootstrap), or an error when there is none.
+// BestBaseline returns the index of the baseline row (kinds "ngram",
+// "markov" and "hmm") with the lowest finite bits per character, or an
+// error when there is none. Comparable rows are preferred; rows not
+// comparable are considered only when no baseline row is comparable,
+// which happens when a whole table is not (rows scored with one
+// vocabulary share its unknown tokens and its lower-casing, so they rank
+// alike by bits per character and by bits per token).
 func BestBaseline(rows []Result) (int, error) {
-	best := -1
-	for i, r := range rows {
-		switch r.Kind {
-		case "ngram", "markov", "hmm":
-		default:
-			continue
-		}
-		if !r.Comparable || math.IsInf(r.BitsPerChar, 0) || math.IsNaN(r.BitsPerChar) {
-			continue
-		}
-		if best < 0 || r.BitsPerChar < rows[best].BitsPerChar {
-			best = i
-		}
-	}
+	best := bestOf(rows, "ngram", "markov", "hmm")
 	if best < 0 {
-		return -1, errors.New("no comparable baseline with a finite score")
+		return -1, errors.New("no baseline with a finite score")
 	}
 	return best, nil
+}
+
+// bestOf returns the index of the row of one of the kinds with the lowest
+// finite bits per character, comparable rows first as BestBaseline says,
+// or -1.
+func bestOf(rows []Result, kinds ...string) int {
+	for _, comparableOnly := range []bool{true, false} {
+		best := -1
+		for i, r := range rows {
+			if !slices.Contains(kinds, r.Kind) || (comparableOnly && !r.Comparable) {
+				continue
+			}
+			if math.IsInf(r.BitsPerChar, 0) || math.IsNaN(r.BitsPerChar) {
+				continue
+			}
+			if best < 0 || r.BitsPerChar < rows[best].BitsPerChar {
+				best = i
+			}
+		}
+		if best >= 0 {
+			return best
+		}
+	}
+	return -1
 }

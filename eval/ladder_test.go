@@ -97,3 +97,25 @@ func TestConfigValidate(t *testing.T) {
 		}
 	}
 }
+
+// TestBestBaselinePrefersComparable: a comparable row wins over a better
+// row that is not comparable; when no baseline row is comparable (a whole
+// table scored with one lower-cased vocabulary, say) the lowest finite one
+// is taken.
+func TestBestBaselinePrefersComparable(t *testing.T) {
+	rows := []Result{
+		{Model: "a", Kind: "ngram", BitsPerChar: 1.0},
+		{Model: "b", Kind: "markov", BitsPerChar: 2.0, Comparable: true},
+		{Model: "c", Kind: "hmm", BitsPerChar: 0.5},
+	}
+	if b, err := BestBaseline(rows); err != nil || b != 1 {
+		t.Errorf("got %d (%v), want 1, the only comparable row", b, err)
+	}
+	rows[1].Comparable = false
+	if b, err := BestBaseline(rows); err != nil || b != 2 {
+		t.Errorf("none comparable: got %d (%v), want 2, the lowest", b, err)
+	}
+	if _, err := BestBaseline([]Result{{Kind: "rnn", BitsPerChar: 1}, {Kind: "ngram", BitsPerChar: math.Inf(1)}}); err == nil {
+		t.Error("no finite baseline row gave no error")
+	}
+}

@@ -2,7 +2,6 @@ package eval
 
 import (
 	"fmt"
-	"strconv"
 )
 
 // MarkovChain is the plainest memoryless predictor: a fixed-order Markov
@@ -35,7 +34,7 @@ func NewMarkovChain(c *Counts, k int, delta float64) (*MarkovChain, error) {
 
 // Name is a label such as "markov-2(add 1)".
 func (m *MarkovChain) Name() string {
-	return fmt.Sprintf("markov-%d(add %s)", m.k, strconv.FormatFloat(m.sm.K, 'g', -1, 64))
+	return BaselineSpec{Kind: "markov", Context: m.k, K: m.sm.K}.String()
 }
 
 // Kind is "markov".

@@ -11,9 +11,11 @@ import (
 // held-out split. Totals are over the whole split; "bits" are base 2 and
 // "nats" natural logarithms. A model that gave some token probability zero
 // has infinite cross-entropy, bits and perplexity: the row keeps the
-// infinities (JSON writes them as the strings "+Inf" and "-Inf"), so it is
-// never silently dropped. Values not computed, such as the interval of a
-// row without a bootstrap, are NaN, written as JSON null.
+// infinities, so it is never silently dropped. Values not computed, such
+// as the interval of a row without a bootstrap, are NaN. JSON writes
+// every value that is not finite as null; reading a row with
+// ZeroProbTokens above 0 turns a null score (cross-entropy, bits per
+// token, perplexity, bits per character) back into +Inf.
 type Result struct {
 	// Model is the model's label, such as "5-gram kneser_ney".
 	Model string `json:"model"`
@@ -105,10 +107,12 @@ func NewResult(model, kind, split string, logp []float64, characters int) Result
 
 // SetUnknown counts the tokens of seq (the scored sequence) equal to the
 // unknown symbol unk (a negative unk means there is none). When
-// coversMany is true, the unknown symbol stands for many different strings
-// (a closed-vocabulary word model): its probability is then not the
-// probability of the text it replaced, so a row with any unknown tokens is
-// marked not comparable on bits per character, with the reason.
+// coversMany is true, the unknown symbol stands for many different strings:
+// its probability is then not the probability of the text it replaced, so
+// a row with any unknown tokens is marked not comparable on bits per
+// character, with the reason. The unknown entry of every tokenizer of
+// package data stands for every piece without an entry of its own, so
+// comparisons pass true whatever the tokenizer.
 func (r *Result) SetUnknown(seq []int, unk int, coversMany bool) {
 	n := 0
 	if unk >= 0 {
@@ -124,10 +128,19 @@ func (r *Result) SetUnknown(seq []int, unk int, coversMany bool) {
 		r.UnknownRate = float64(n) / float64(len(seq))
 	}
 	if coversMany && n > 0 {
-		r.Comparable = false
-		r.NotComparable = fmt.Sprintf("closed vocabulary: %d tokens (%.2f%%) are the unknown symbol, which stands for many strings, so bits per character undercounts them",
-			n, 100*r.UnknownRate)
+		r.SetNotComparable(fmt.Sprintf("%d tokens (%.2f%%) are the unknown symbol, which stands for every piece without an entry of its own; its probability is not spread over what it stands for, so bits per character undercounts them",
+			n, 100*r.UnknownRate))
 	}
+}
+
+// SetNotComparable marks the row not comparable on bits per character
+// and adds the reason to NotComparable, after any reason already there.
+func (r *Result) SetNotComparable(reason string) {
+	r.Comparable = false
+	if r.NotComparable != "" {
+		r.NotComparable += "; "
+	}
+	r.NotComparable += reason
 }
 
 // SetIntervals stores a model's interval and its difference from the
@@ -138,19 +151,16 @@ func (r *Result) SetIntervals(reference string, own Interval, diff Interval) {
 	r.DiffBitsPerChar, r.DiffCILow, r.DiffCIHigh = diff.Estimate, diff.Low, diff.High
 }
 
-// jsonFloat writes finite values as numbers, infinities as the strings
-// "+Inf" and "-Inf", and NaN as null, since JSON has no such numbers.
+// jsonFloat writes finite values as numbers and every other value (NaN,
+// ±Inf) as null, since JSON has no such numbers. It reads null as NaN,
+// and the strings "+Inf" and "-Inf" that version 1 of the eval report
+// wrote as infinities.
 type jsonFloat float64
 
 func (f jsonFloat) MarshalJSON() ([]byte, error) {
 	v := float64(f)
-	switch {
-	case math.IsNaN(v):
+	if math.IsNaN(v) || math.IsInf(v, 0) {
 		return []byte("null"), nil
-	case math.IsInf(v, 1):
-		return []byte(`"+Inf"`), nil
-	case math.IsInf(v, -1):
-		return []byte(`"-Inf"`), nil
 	}
 	return strconv.AppendFloat(nil, v, 'g', -1, 64), nil
 }
@@ -200,8 +210,8 @@ type resultJSON struct {
 	StateBits        jsonFloat `json:"state_bits,omitempty"`
 }
 
-// MarshalJSON writes the row with the keys of the field tags, infinities
-// as "+Inf"/"-Inf" and values not computed (NaN) as null.
+// MarshalJSON writes the row with the keys of the field tags, values that
+// are not finite as null.
 func (r Result) MarshalJSON() ([]byte, error) {
 	return json.Marshal(resultJSON{
 		r.Model, r.Kind, r.Split, r.Tokens, r.Characters,
@@ -213,7 +223,9 @@ func (r Result) MarshalJSON() ([]byte, error) {
 	})
 }
 
-// UnmarshalJSON reads what MarshalJSON writes.
+// UnmarshalJSON reads what MarshalJSON writes (null scores of a row with
+// tokens of probability zero become +Inf), and the "+Inf" strings of
+// version 1 of the eval report.
 func (r *Result) UnmarshalJSON(b []byte) error {
 	var j resultJSON
 	if err := json.Unmarshal(b, &j); err != nil {
@@ -226,6 +238,13 @@ func (r *Result) UnmarshalJSON(b []byte) error {
 		j.Reference, float64(j.DiffBitsPerChar), float64(j.DiffCILow), float64(j.DiffCIHigh),
 		j.ZeroProbTokens, j.UnknownTokens, float64(j.UnknownRate), j.Comparable, j.NotComparable,
 		float64(j.StateBits),
+	}
+	if r.ZeroProbTokens > 0 {
+		for _, f := range []*float64{&r.CrossEntropyNats, &r.CrossEntropyBits, &r.BitsPerToken, &r.Perplexity, &r.BitsPerChar} {
+			if math.IsNaN(*f) {
+				*f = math.Inf(1)
+			}
+		}
 	}
 	return nil
 }

@@ -197,11 +197,7 @@ func (m *NGram) Discounts(order int) [3]float64 {
 
 // Name is a table label such as "5-gram kneser_ney" or "3-gram add_k(1)".
 func (m *NGram) Name() string {
-	s := fmt.Sprintf("%d-gram %s", m.order, m.sm.Method)
-	if m.sm.Method == AddK {
-		s += "(" + strconv.FormatFloat(m.sm.K, 'g', -1, 64) + ")"
-	}
-	return s
+	return BaselineSpec{Kind: "ngram", Order: m.order, Method: m.sm.Method, K: m.sm.K}.String()
 }
 
 // Kind is "ngram".

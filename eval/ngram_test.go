@@ -94,7 +94,9 @@ func TestSamBigrams(t *testing.T) {
 }
 
 func TestDiscountFormulas(t *testing.T) {
-	// Expected values computed by hand from Chen & Goodman (1998), TR-10-98 (as in shared/CHECKS.md):
+	// Expected values computed by hand from Chen & Goodman (1998), "An
+	// empirical study of smoothing techniques for language modeling",
+	// Harvard TR-10-98:
 	// Y = n1/(n1+2 n2), D1 = 1-2Y n2/n1, D2 = 2-3Y n3/n2, D3+ = 3-4Y n4/n3.
 	tests := []struct {
 		n    [4]int

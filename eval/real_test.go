@@ -53,7 +53,7 @@ func TestMobyDick(t *testing.T) {
 	}
 	// Order-0 entropy of the training characters, -Σ p log2 p: about
 	// 4.4-4.5 bits for English prose with case and punctuation (common
-	// practice; shared/DATA.md); the issue asks for 4.3-4.6.
+	// practice); the test asks for 4.3-4.6.
 	h := 0.0
 	for _, n := range TokenCounts(train, V) {
 		if n > 0 {
@@ -68,25 +68,105 @@ func TestMobyDick(t *testing.T) {
 	if u := bpc(Smoothing{Method: AddK, K: 1}, 1); u < 4.3 || u > 4.6 {
 		t.Errorf("held-out unigram add-one: got %.4f bits/char, want 4.3-4.6", u)
 	}
-	// Kneser-Ney of order 5 beats add-one of order 5 (Chen & Goodman 1998
-	// find interpolated Kneser-Ney best and additive smoothing worst).
+	// Add-one and Witten-Bell of order 5 against the independent
+	// implementation below (plain maps, the formulas of the package doc
+	// written out again): they must agree to rounding.
 	add1 := bpc(Smoothing{Method: AddK, K: 1}, 5)
 	kn := bpc(Smoothing{Method: KneserNey}, 5)
 	mkn := bpc(Smoothing{Method: ModifiedKneserNey}, 5)
 	wb := bpc(Smoothing{Method: WittenBell}, 5)
-	if !(kn < add1) {
-		t.Errorf("5-gram Kneser-Ney %.4f bits/char does not beat add-one %.4f", kn, add1)
+	refAdd1, refWB := refCharModels(train, test, V, 5)
+	t.Logf("independent: 5-gram add-one %.6f, Witten-Bell %.6f bits/char", refAdd1, refWB)
+	checkClose(t, "5-gram add-one against the independent count", add1, refAdd1, tolSum)
+	checkClose(t, "5-gram Witten-Bell against the independent count", wb, refWB, tolSum)
+	// Kneser-Ney has no independent implementation here. Chen & Goodman
+	// (1998) rank interpolated Kneser-Ney above Witten-Bell and modified
+	// Kneser-Ney above both on every corpus they tried, so both must beat
+	// the independently computed Witten-Bell; and the gaps between these
+	// methods are a few percent of the cross-entropy there (from memory
+	// of their figures; 1.6% and 2.1% measured here), so both must come
+	// within 10% of it. That band (0.22 bits) replaces 1.5-3 bits/char.
+	if !(mkn < kn && kn < refWB) {
+		t.Errorf("5-gram modified Kneser-Ney %.4f, Kneser-Ney %.4f, Witten-Bell %.4f: want them in that order", mkn, kn, refWB)
 	}
-	if !(mkn < add1 && wb < add1) {
-		t.Errorf("5-gram modified Kneser-Ney %.4f and Witten-Bell %.4f should beat add-one %.4f", mkn, wb, add1)
+	if mkn < 0.9*refWB {
+		t.Errorf("5-gram modified Kneser-Ney %.4f bits/char is more than 10%% below Witten-Bell %.4f", mkn, refWB)
 	}
-	// Shannon (1951) puts English at 0.6-1.3 bits a letter with long
-	// context and F3 ≈ 3.1 for trigrams of a 27-letter alphabet; a
-	// 5-gram character model of one novel lands in between (common
-	// practice: about 2-2.5 bits/char).
-	if kn < 1.5 || kn > 3 {
-		t.Errorf("5-gram Kneser-Ney: got %.4f bits/char, want 1.5-3", kn)
+}
+
+// tolSum is the agreement of two float64 sums of about a hundred thousand
+// logarithms taken in different orders.
+const tolSum = 1e-10
+
+// refCharModels scores test after train with the order-n add-one and
+// interpolated Witten-Bell models, written out here independently of the
+// package from the formulas of its doc comment: the history before the
+// first token of each sequence is n-1 padding symbols (id V); add-one
+// uses the full context only, (c(h w) + 1) / (c(h •) + V), and 1/V when h
+// was never seen; Witten-Bell recurses from the uniform 1/V through the
+// contexts of length 0..n-1, P = (c(h w) + N1+(h •)·P') / (c(h •) +
+// N1+(h •)), skipping contexts never seen. It returns bits per character.
+func refCharModels(train, test []int, V, n int) (add1, wb float64) {
+	base := uint64(V + 1)
+	key := func(hist []int) uint64 { // a context as a number in base V+1
+		k := uint64(1)
+		for _, x := range hist {
+			k = k*base + uint64(x)
+		}
+		return k
 	}
+	pad := func(seq []int) []int {
+		out := make([]int, n-1, n-1+len(seq))
+		for i := range out {
+			out[i] = V
+		}
+		return append(out, seq...)
+	}
+	type ctxStats struct{ total, types int }
+	pair := map[[2]uint64]int{}
+	ctx := map[uint64]*ctxStats{}
+	tr := pad(train)
+	for i := n - 1; i < len(tr); i++ {
+		w := tr[i]
+		for k := 0; k < n; k++ { // context length
+			h := key(tr[i-k : i])
+			st := ctx[h]
+			if st == nil {
+				st = &ctxStats{}
+				ctx[h] = st
+			}
+			st.total++
+			pair[[2]uint64{h, uint64(w)}]++
+			if pair[[2]uint64{h, uint64(w)}] == 1 {
+				st.types++
+			}
+		}
+	}
+	te := pad(test)
+	for i := n - 1; i < len(te); i++ {
+		w := te[i]
+		// Add-one on the full context.
+		h := key(te[i-(n-1) : i])
+		c, T := 0.0, 0.0
+		if st := ctx[h]; st != nil {
+			T = float64(st.total)
+			c = float64(pair[[2]uint64{h, uint64(w)}])
+		}
+		add1 -= math.Log2((c + 1) / (T + float64(V)))
+		// Witten-Bell from the shortest context up.
+		p := 1 / float64(V)
+		for k := 0; k < n; k++ {
+			h := key(te[i-k : i])
+			st := ctx[h]
+			if st == nil {
+				continue
+			}
+			c := float64(pair[[2]uint64{h, uint64(w)}])
+			p = (c + float64(st.types)*p) / (float64(st.total) + float64(st.types))
+		}
+		wb -= math.Log2(p)
+	}
+	return add1 / float64(len(test)), wb / float64(len(test))
 }
 
 func TestMobyDickHMM(t *testing.T) {
@@ -145,8 +225,17 @@ func TestSOTUWords(t *testing.T) {
 		ppl[s.Method] = r.Perplexity
 		t.Logf("%-26s perplexity %.1f", m.Name(), r.Perplexity)
 	}
-	if !(ppl[KneserNey] < ppl[AddK]*0.7 && ppl[ModifiedKneserNey] < ppl[AddK]*0.7) {
-		t.Errorf("3-gram perplexities: Kneser-Ney %.1f, modified %.1f, add-one %.1f; want both Kneser-Ney below 0.7× add-one",
-			ppl[KneserNey], ppl[ModifiedKneserNey], ppl[AddK])
+	// Chen & Goodman's ranking, method by method: modified Kneser-Ney,
+	// Kneser-Ney, Witten-Bell, add-one. Add-one spreads a pseudo-count over
+	// all 25,708 types after every context, so its perplexity is two
+	// orders of magnitude above the others (measured ratio 0.0118 for
+	// Kneser-Ney); a bound of 0.02 catches a Kneser-Ney that degrades
+	// towards it, where 0.7 caught nothing.
+	if !(ppl[ModifiedKneserNey] < ppl[KneserNey] && ppl[KneserNey] < ppl[WittenBell] && ppl[WittenBell] < ppl[AddK]) {
+		t.Errorf("3-gram perplexities: modified Kneser-Ney %.1f, Kneser-Ney %.1f, Witten-Bell %.1f, add-one %.1f; want them in that order",
+			ppl[ModifiedKneserNey], ppl[KneserNey], ppl[WittenBell], ppl[AddK])
+	}
+	if !(ppl[KneserNey] < 0.02*ppl[AddK]) {
+		t.Errorf("3-gram Kneser-Ney perplexity %.1f is not below 0.02× add-one %.1f", ppl[KneserNey], ppl[AddK])
 	}
 }

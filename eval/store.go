@@ -34,9 +34,19 @@ import (
 // ladder is rebuilt from one counts file with NewNGram.
 //
 // The HMM payload is varints N, V, boundary+1 and the number I of
-// recorded log-likelihoods, then float64 values: the emission floor, the I
-// log-likelihoods, π (N), a (N×N, row-major) and b (V×N, symbol-major).
-const FormatVersion = 1
+// recorded log-likelihoods, then float64 values: the emission floor ε, its
+// distribution q over the V symbols (TrainHMM), the I log-likelihoods,
+// π (N), a (N×N, row-major) and b (V×N, symbol-major).
+//
+// Versions: 1 had no q (the floor was uniform, ε/V for every symbol); its
+// n-gram counts files read as version 2's, and its HMM files are refused
+// with ErrStaleHMM, so that a cache of them is fitted again.
+const FormatVersion = 2
+
+// ErrStaleHMM is wrapped by the error of reading a hidden Markov model
+// saved by format version 1, whose uniform emission floor charged symbols
+// its training tokens lacked about 20 + log2 V bits: fit it again.
+var ErrStaleHMM = errors.New("hidden Markov model saved with the uniform emission floor of format version 1: fit it again")
 
 const (
 	kindCounts = 1
@@ -77,7 +87,7 @@ func WriteCounts(w io.Writer, c *Counts) error {
 // ReadCounts reads counts written by WriteCounts. Damage gives an error
 // wrapping ErrCorrupt, never a panic.
 func ReadCounts(r io.Reader) (*Counts, error) {
-	p, err := readFile(r, kindCounts)
+	p, _, err := readFile(r, kindCounts)
 	if err != nil {
 		return nil, err
 	}
@@ -143,7 +153,7 @@ func WriteHMM(w io.Writer, h *HMM) error {
 		p = binary.AppendUvarint(p, uint64(v))
 	}
 	p = binary.LittleEndian.AppendUint64(p, math.Float64bits(h.floor))
-	for _, xs := range [][]float64{h.LogLik, h.pi, h.a, h.bt} {
+	for _, xs := range [][]float64{h.floorDist, h.LogLik, h.pi, h.a, h.bt} {
 		for _, x := range xs {
 			p = binary.LittleEndian.AppendUint64(p, math.Float64bits(x))
 		}
@@ -154,9 +164,12 @@ func WriteHMM(w io.Writer, h *HMM) error {
 // ReadHMM reads a model written by WriteHMM. Damage gives an error
 // wrapping ErrCorrupt, never a panic.
 func ReadHMM(r io.Reader) (*HMM, error) {
-	p, err := readFile(r, kindHMM)
+	p, version, err := readFile(r, kindHMM)
 	if err != nil {
 		return nil, err
+	}
+	if version < 2 {
+		return nil, ErrStaleHMM
 	}
 	d := decoder{buf: p}
 	n, v, b1, iters := d.int(MaxHMMStates), d.int(math.MaxInt32-1), d.int(math.MaxInt32), d.int(math.MaxInt32)
@@ -166,7 +179,7 @@ func ReadHMM(r io.Reader) (*HMM, error) {
 	if n < 1 || v < 1 || b1 > v {
 		return nil, fmt.Errorf("%w: header (%d states, %d symbols, boundary %d)", ErrCorrupt, n, v, b1-1)
 	}
-	want := 8 * (1 + iters + n + n*n + v*n)
+	want := 8 * (1 + v + iters + n + n*n + v*n)
 	if iters > len(d.buf) || len(d.buf) != want {
 		return nil, fmt.Errorf("%w: %d payload bytes for %d states and %d symbols, want %d", ErrCorrupt, len(d.buf), n, v, want)
 	}
@@ -180,12 +193,13 @@ func ReadHMM(r io.Reader) (*HMM, error) {
 	}
 	h := &HMM{n: n, v: v, boundary: b1 - 1}
 	h.floor = f(1)[0]
+	h.floorDist = f(v)
 	h.LogLik = f(iters)
 	h.pi, h.a, h.bt = f(n), f(n*n), f(v*n)
 	if !(h.floor >= 0 && h.floor <= 1) {
 		return nil, fmt.Errorf("%w: emission floor %g", ErrCorrupt, h.floor)
 	}
-	for _, x := range [][]float64{h.pi, h.a, h.bt} {
+	for _, x := range [][]float64{h.floorDist, h.pi, h.a, h.bt} {
 		for _, p := range x {
 			if !(p >= 0 && p <= 1) {
 				return nil, fmt.Errorf("%w: probability %g", ErrCorrupt, p)
@@ -257,44 +271,47 @@ func writeFile(w io.Writer, kind uint16, payload []byte) error {
 	return nil
 }
 
-func readFile(r io.Reader, kind uint16) ([]byte, error) {
+// readFile reads a baseline file of the kind and returns its payload and
+// format version (1..FormatVersion).
+func readFile(r io.Reader, kind uint16) ([]byte, int, error) {
 	var hdr [headerSize]byte
 	if _, err := io.ReadFull(r, hdr[:]); err != nil {
-		return nil, fmt.Errorf("%w: header: %v", ErrCorrupt, err)
+		return nil, 0, fmt.Errorf("%w: header: %v", ErrCorrupt, err)
 	}
 	if string(hdr[:8]) != magic {
-		return nil, fmt.Errorf("%w: not a weft baseline file", ErrCorrupt)
+		return nil, 0, fmt.Errorf("%w: not a weft baseline file", ErrCorrupt)
 	}
-	if v := binary.LittleEndian.Uint16(hdr[8:]); v != FormatVersion {
-		if v > FormatVersion {
-			return nil, fmt.Errorf("format version %d newer than supported %d", v, FormatVersion)
-		}
-		return nil, fmt.Errorf("%w: format version %d", ErrCorrupt, v)
+	version := binary.LittleEndian.Uint16(hdr[8:])
+	if version > FormatVersion {
+		return nil, 0, fmt.Errorf("format version %d newer than supported %d", version, FormatVersion)
+	}
+	if version < 1 {
+		return nil, 0, fmt.Errorf("%w: format version %d", ErrCorrupt, version)
 	}
 	if k := binary.LittleEndian.Uint16(hdr[10:]); k != kind {
 		names := map[uint16]string{kindCounts: "n-gram counts", kindHMM: "a hidden Markov model"}
 		if n, ok := names[k]; ok {
-			return nil, fmt.Errorf("file holds %s, not %s", n, names[kind])
+			return nil, 0, fmt.Errorf("file holds %s, not %s", n, names[kind])
 		}
-		return nil, fmt.Errorf("%w: unknown kind %d", ErrCorrupt, k)
+		return nil, 0, fmt.Errorf("%w: unknown kind %d", ErrCorrupt, k)
 	}
 	size := binary.LittleEndian.Uint64(hdr[16:])
 	var buf bytes.Buffer
 	// Read what is there rather than trusting the size for an allocation.
 	if _, err := io.Copy(&buf, io.LimitReader(r, int64(min(size, math.MaxInt64-64))+sha256.Size+1)); err != nil {
-		return nil, err
+		return nil, 0, err
 	}
 	data := buf.Bytes()
 	if uint64(len(data)) != size+sha256.Size {
-		return nil, fmt.Errorf("%w: %d bytes after the header, want %d", ErrCorrupt, len(data), size+sha256.Size)
+		return nil, 0, fmt.Errorf("%w: %d bytes after the header, want %d", ErrCorrupt, len(data), size+sha256.Size)
 	}
 	h := sha256.New()
 	h.Write(hdr[:])
 	h.Write(data[:size])
 	if !bytes.Equal(h.Sum(nil), data[size:]) {
-		return nil, fmt.Errorf("%w: checksum mismatch", ErrCorrupt)
+		return nil, 0, fmt.Errorf("%w: checksum mismatch", ErrCorrupt)
 	}
-	return data[:size], nil
+	return data[:size], int(version), nil
 }
 
 // decoder reads unsigned varints from a payload, remembering the first

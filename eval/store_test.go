@@ -3,10 +3,13 @@ package eval
 import (
 	"bytes"
 	"context"
+	"crypto/sha256"
+	"encoding/binary"
 	"errors"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 )
 
@@ -163,4 +166,47 @@ func FuzzReadPayload(f *testing.F) {
 			h.LogProbs(context.Background(), make([]float64, 1), []int{0})
 		}
 	})
+}
+
+// withVersion returns a copy of the baseline file b with its format
+// version set to v and the checksum made right again.
+func withVersion(b []byte, v uint16) []byte {
+	out := append([]byte(nil), b...)
+	binary.LittleEndian.PutUint16(out[8:], v)
+	sum := sha256.Sum256(out[:len(out)-sha256.Size])
+	copy(out[len(out)-sha256.Size:], sum[:])
+	return out
+}
+
+// TestStoreVersion1: counts files of format version 1 still load (their
+// layout did not change); HMM files of version 1, whose uniform emission
+// floor mispriced unseen symbols (issue 11), are refused with ErrStaleHMM
+// so that a cache of them is fitted again.
+func TestStoreVersion1(t *testing.T) {
+	train := []int{0, 1, 2, 1, 0, 2, 2, 1}
+	c, err := CountNGrams(train, 3, 2, NoBoundary, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var buf bytes.Buffer
+	if err := WriteCounts(&buf, c); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := ReadCounts(bytes.NewReader(withVersion(buf.Bytes(), 1))); err != nil {
+		t.Errorf("counts of version 1: %v", err)
+	}
+	h, err := TrainHMM(context.Background(), train, 3, HMMOptions{States: 2, MaxIterations: 2, Boundary: NoBoundary})
+	if err != nil {
+		t.Fatal(err)
+	}
+	buf.Reset()
+	if err := WriteHMM(&buf, h); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := ReadHMM(bytes.NewReader(withVersion(buf.Bytes(), 1))); !errors.Is(err, ErrStaleHMM) {
+		t.Errorf("HMM of version 1: got %v, want ErrStaleHMM", err)
+	}
+	if _, err := ReadHMM(bytes.NewReader(withVersion(buf.Bytes(), FormatVersion+1))); err == nil || !strings.Contains(err.Error(), "newer") {
+		t.Errorf("HMM of a newer version: got %v", err)
+	}
 }

@@ -34,17 +34,23 @@ type torchCase struct {
 	Tensors map[string]torchTensor `json:"tensors"`
 }
 
+// torchSetup is the network shape and the data of a PyTorch reference
+// file.
+type torchSetup struct {
+	Source  string `json:"source"`
+	V       int    `json:"V"`
+	E       int    `json:"E"`
+	H       int    `json:"H"`
+	Layers  int    `json:"layers"`
+	T       int    `json:"T"`
+	B       int    `json:"B"`
+	Inputs  []int  `json:"inputs"`
+	Targets []int  `json:"targets"`
+}
+
 type torchFile struct {
-	Source  string               `json:"source"`
-	V       int                  `json:"V"`
-	E       int                  `json:"E"`
-	H       int                  `json:"H"`
-	Layers  int                  `json:"layers"`
-	T       int                  `json:"T"`
-	B       int                  `json:"B"`
-	Inputs  []int                `json:"inputs"`
-	Targets []int                `json:"targets"`
-	Cases   map[string]torchCase `json:"cases"`
+	torchSetup
+	Cases map[string]torchCase `json:"cases"`
 }
 
 func TestAgainstPyTorch(t *testing.T) {

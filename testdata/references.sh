@@ -23,5 +23,6 @@ fi
 cd "$root/rnn/testdata" && "$py" torch_reference.py && "$py" torch_class_reference.py && "$py" chi2_critical.py > chi2_critical.json
 cd "$root/rnn/linalg/testdata" && "$py" softmax_ce.py > softmax_ce.out
 cd "$root" && "$py" eval/testdata/nltk_reference.py > eval/testdata/nltk_reference.json
+cd "$root" && "$py" eval/testdata/hmm_reference.py > eval/testdata/hmm_reference.json
 cd "$root/checkpoint/testdata/interop" && "$py" write_reference.py && "$py" read_weft.py
 echo "references regenerated; see git diff"

@@ -5,7 +5,8 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"sort"
+	"slices"
+	"strconv"
 	"strings"
 	"text/tabwriter"
 
@@ -13,207 +14,107 @@ import (
 	"weft/eval"
 )
 
-// candidate is one model of a comparison with its scores on the
-// validation split (used to choose the best baseline and to tune the
-// interpolation, never to report) and on the reported split.
+// candidate is one model of a comparison.
 type candidate struct {
 	name      string
-	kind      string // "rnn", "ngram", "markov", "hmm", "interpolated"
+	kind      string // "rnn", "ngram", "markov", "hmm"
 	model     eval.LanguageModel
 	stateBits float64 // log2 N for an HMM
-	val, rep  []float64
 }
 
-func (c *candidate) isBaseline() bool {
-	return c.kind == "ngram" || c.kind == "markov" || c.kind == "hmm"
-}
+// comparison is the outcome of comparing models on one held-out split, as
+// eval.Compare builds it.
+type comparison = eval.Comparison
 
-// comparison is the outcome of comparing models on one held-out split.
-type comparison struct {
-	Split        string
-	Rows         []eval.Result // best first
-	BestBaseline string        // chosen on the validation split
-	// BestBaselineValBPC is that baseline's validation bits per character.
-	BestBaselineValBPC float64
-	Lambda             float64 // interpolation weight of the recurrent model, NaN when none
-	Bands              []modelBreakdown
-	LongRange          []modelBreakdown // for the demo corpus: marked vs other positions
-}
-
-type modelBreakdown struct {
-	Model string           `json:"model"`
-	Parts []eval.Breakdown `json:"parts"`
-}
-
-// compareModels scores every candidate on the validation split and on the
-// reported split, picks the best baseline on validation, adds the row of the
-// recurrent model interpolated with it, and computes bootstrap intervals on
-// the reported split. marks, when not nil, flags the tokens of the reported
-// split to break down separately (the demo's long-range positions).
+// compareModels compares the candidates on the reported split of ds with
+// eval.Compare: the best baseline and the interpolation weight are chosen
+// on the validation split. marks, when not nil, flags the tokens of the
+// reported split to break down separately (the demo's long-range
+// positions).
 func compareModels(ctx context.Context, cfg eval.Config, ds *data.Dataset, split string, cands []*candidate, marks []bool, progress eval.ProgressFunc) (*comparison, error) {
-	val := ds.Validation
 	rep := ds.Test
 	if split == "validation" {
 		rep = ds.Validation
 	}
-	if len(rep.Tokens) == 0 {
-		return nil, fmt.Errorf("the %s split is empty: raise data.%s_fraction", split, map[string]string{"test": "test", "validation": "validation"}[split])
+	in := eval.CompareInput{
+		Split:         split,
+		Validation:    eval.HeldOut{Tokens: ds.Validation.Tokens, Chars: ds.Validation.TokenChars(nil)},
+		Reported:      eval.HeldOut{Tokens: rep.Tokens, Chars: rep.TokenChars(nil)},
+		Unknown:       ds.Vocab.Unknown(),
+		Lowercased:    ds.Vocab.Lowercase(),
+		CharacterUnit: characterUnit(ds.Vocab.Kind()),
+		TrainCounts:   eval.TokenCounts(ds.Train.Tokens, ds.Vocab.Len()),
+		Marks:         marks,
+		Progress:      progress,
 	}
-	for i, c := range cands {
-		if progress != nil {
-			progress("score models on validation and "+split, i, len(cands))
-		}
-		c.val = make([]float64, len(val.Tokens))
-		if err := c.model.LogProbs(ctx, c.val, val.Tokens); err != nil {
-			return nil, fmt.Errorf("score %s on validation: %w", c.name, err)
-		}
-		if split == "validation" {
-			c.rep = c.val
-			continue
-		}
-		c.rep = make([]float64, len(rep.Tokens))
-		if err := c.model.LogProbs(ctx, c.rep, rep.Tokens); err != nil {
-			return nil, fmt.Errorf("score %s on %s: %w", c.name, split, err)
-		}
-	}
-	if progress != nil {
-		progress("score models on validation and "+split, len(cands), len(cands))
-	}
-	cmp := &comparison{Split: split, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
-
-	// The best baseline is chosen on validation, so the reported split
-	// stays untouched by the choice.
-	best := -1
-	bestBPC := math.Inf(1)
-	for i, c := range cands {
-		if !c.isBaseline() {
-			continue
-		}
-		if b := totalBits(c.val) / float64(val.Characters); b < bestBPC {
-			best, bestBPC = i, b
-		}
-	}
-	if best >= 0 {
-		cmp.BestBaseline = cands[best].name
-		cmp.BestBaselineValBPC = bestBPC
-	}
-	rnnIdx := -1
-	for i, c := range cands {
-		if c.kind == "rnn" {
-			rnnIdx = i
-			break
-		}
-	}
-	if cfg.Interpolate && rnnIdx >= 0 && best >= 0 {
-		lambda, err := eval.TuneMixture(cands[rnnIdx].val, cands[best].val)
-		if err != nil {
-			return nil, err
-		}
-		mixRep := make([]float64, len(rep.Tokens))
-		eval.MixLogProbs(mixRep, cands[rnnIdx].rep, cands[best].rep, lambda)
-		cmp.Lambda = lambda
-		cands = append(cands, &candidate{
-			name: fmt.Sprintf("%s + %s (λ=%.2f)", cands[rnnIdx].name, cands[best].name, lambda),
-			kind: "interpolated",
-			rep:  mixRep,
-		})
-	}
-
-	chars := rep.TokenChars(nil)
-	closedVocab := ds.Vocab.Kind() == data.KindWord || ds.Vocab.Kind() == data.KindSymbols
-	results := make([]eval.Result, len(cands))
-	series := make([]eval.Series, len(cands))
-	for i, c := range cands {
-		r := eval.NewResult(c.name, c.kind, split, c.rep, int(rep.Characters))
-		r.SetUnknown(rep.Tokens, ds.Vocab.Unknown(), closedVocab)
-		r.StateBits = c.stateBits
-		results[i] = r
-		series[i] = eval.Series{LogProbs: c.rep, Chars: chars}
-	}
-	if cfg.BootstrapSamples > 0 && len(cands) > 0 {
-		ref := best
-		if ref < 0 {
-			ref = 0
-		}
-		bpc, diff, err := eval.Bootstrap(series, ref, eval.BootstrapConfig{
-			Samples: cfg.BootstrapSamples, BlockChars: cfg.BootstrapBlockChars,
-			Level: cfg.ConfidenceLevel, Seed: cfg.Seed,
-		})
-		if err != nil {
-			return nil, err
-		}
-		for i := range results {
-			results[i].CILow, results[i].CIHigh = bpc[i].Low, bpc[i].High
-			if best >= 0 {
-				results[i].Reference = cands[best].name
-				results[i].DiffBitsPerChar = diff[i].Estimate
-				results[i].DiffCILow, results[i].DiffCIHigh = diff[i].Low, diff[i].High
-			}
-		}
-	}
-
-	// Breakdowns for the models a reader compares: the recurrent one, the
-	// interpolation and the best baseline.
-	counts := eval.TokenCounts(ds.Train.Tokens, ds.Vocab.Len())
 	for _, c := range cands {
-		if c.kind != "rnn" && c.kind != "interpolated" && (best < 0 || c.name != cands[best].name) {
-			continue
-		}
-		cmp.Bands = append(cmp.Bands, modelBreakdown{c.name, eval.FrequencyBands(c.rep, rep.Tokens, chars, counts)})
-		if marks != nil {
-			in, out := eval.Marked(c.rep, chars, marks)
-			in.Label, out.Label = "long-range positions", "all other positions"
-			cmp.LongRange = append(cmp.LongRange, modelBreakdown{c.name, []eval.Breakdown{in, out}})
-		}
+		in.Models = append(in.Models, eval.Entrant{Model: c.model, Label: c.name, Kind: c.kind})
 	}
-
-	sortBestFirst(results)
-	cmp.Rows = results
-	return cmp, nil
+	return eval.Compare(ctx, cfg, in)
 }
 
-// sortBestFirst orders rows by bits per character, best first, NaN last,
-// keeping the given order among equals.
-func sortBestFirst(rows []eval.Result) {
-	sort.SliceStable(rows, func(i, j int) bool { return lessBPC(rows[i].BitsPerChar, rows[j].BitsPerChar) })
-}
-
-// lessBPC orders scores best first, NaN last.
-func lessBPC(a, b float64) bool {
-	if math.IsNaN(b) {
-		return !math.IsNaN(a)
+// characterUnit says what a character of Split.TokenChars is for the
+// tokenizer kind: for symbols the whitespace between symbols belongs to no
+// token and is not counted; "" (a character of the text) otherwise.
+func characterUnit(k data.Kind) string {
+	if k == data.KindSymbols {
+		return "a character of a symbol or a line end (the whitespace between symbols is not counted)"
 	}
-	return a < b
+	return ""
 }
 
-func totalBits(logp []float64) float64 {
-	var s float64
-	for _, lp := range logp {
-		s -= lp
-	}
-	return s / math.Ln2
-}
+// sortBestFirst orders rows by bits per character, best first, NaN last.
+func sortBestFirst(rows []eval.Result) { eval.SortBestFirst(rows) }
 
 // printComparison writes the comparison table, best first.
 func printComparison(w io.Writer, cmp *comparison) {
-	fmt.Fprintf(w, "held-out %s split, best first; intervals are %s block-bootstrap intervals\n", cmp.Split, "95%")
+	if cmp.BlockChars > 0 {
+		fmt.Fprintf(w, "held-out %s split, best first; intervals are %s%% moving-block bootstrap intervals (blocks of %d characters)\n",
+			cmp.Split, strconv.FormatFloat(100*cmp.ConfidenceLevel, 'g', 4, 64), cmp.BlockChars)
+	} else {
+		fmt.Fprintf(w, "held-out %s split, best first\n", cmp.Split)
+	}
+	if cmp.IntervalNote != "" {
+		fmt.Fprintf(w, "%s\n", cmp.IntervalNote)
+	}
+	if cmp.CharacterUnit != "" {
+		fmt.Fprintf(w, "a character here is %s\n", cmp.CharacterUnit)
+	}
 	if cmp.BestBaseline != "" {
 		fmt.Fprintf(w, "best baseline (chosen on the validation split): %s\n", cmp.BestBaseline)
+	}
+	if cmp.TunedOnReported {
+		fmt.Fprintln(w, "the best baseline and the interpolation weight were chosen on this same split: the 'vs best baseline' column and the interpolated row are optimistic (report the test split)")
+	}
+	if cmp.InterpolationPartner != "" {
+		fmt.Fprintf(w, "interpolated with the best n-gram (chosen on the validation split): %s, weight %.3f on the recurrent model (tuned on the validation split)\n",
+			cmp.InterpolationPartner, cmp.Lambda)
 	}
 	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "model\tkind\tbits/char\tinterval\tvs best baseline\tbits/token\tperplexity\tnote")
+	var reasons []string
 	for _, r := range cmp.Rows {
-		note := ""
+		var notes []string
 		if !r.Comparable {
-			note = "not comparable on bits/char: closed vocabulary"
+			notes = append(notes, "not comparable on bits/char (*)")
+			if !slices.Contains(reasons, r.NotComparable) {
+				reasons = append(reasons, r.NotComparable)
+			}
+		}
+		if cmp.TunedOnReported && r.Model == cmp.BestBaseline {
+			notes = append(notes, "chosen on this split")
+		}
+		if cmp.TunedOnReported && r.Kind == "interpolated" {
+			notes = append(notes, "weight tuned on this split")
 		}
 		if r.ZeroProbTokens > 0 {
-			note = fmt.Sprintf("%d tokens given probability zero", r.ZeroProbTokens)
+			notes = append(notes, fmt.Sprintf("%d tokens given probability zero", r.ZeroProbTokens))
 		}
 		if r.StateBits > 0 {
-			note = strings.TrimSpace(note + fmt.Sprintf(" state holds %.0f bits", r.StateBits))
+			notes = append(notes, fmt.Sprintf("state holds %.0f bits", r.StateBits))
 		}
+		note := strings.Join(notes, "; ")
 		diff := "-"
 		if r.Reference != "" && r.Model != r.Reference && !math.IsNaN(r.DiffBitsPerChar) {
 			diff = fmt.Sprintf("%+.3f [%+.3f, %+.3f]", r.DiffBitsPerChar, r.DiffCILow, r.DiffCIHigh)
@@ -222,6 +123,9 @@ func printComparison(w io.Writer, cmp *comparison) {
 			interval(r.CILow, r.CIHigh), diff, num(r.BitsPerToken, 3), num(r.Perplexity, 2), note)
 	}
 	tw.Flush()
+	for _, r := range reasons {
+		fmt.Fprintf(w, "(*) not comparable on bits per character: %s\n", r)
+	}
 	if len(cmp.LongRange) > 0 {
 		fmt.Fprintln(w, "\nbits per character at the positions only long-range context predicts (demo corpus marks):")
 		printBreakdowns(w, cmp.LongRange)
@@ -232,7 +136,7 @@ func printComparison(w io.Writer, cmp *comparison) {
 	}
 }
 
-func printBreakdowns(w io.Writer, bs []modelBreakdown) {
+func printBreakdowns(w io.Writer, bs []eval.ModelBreakdown) {
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "model\tpositions\ttokens\tbits/char")
 	for _, b := range bs {

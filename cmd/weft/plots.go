@@ -9,6 +9,7 @@ import (
 	"io/fs"
 	"math"
 	"os"
+	"strconv"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -45,6 +46,12 @@ func plotComparison(path string, cmp *comparison) error {
 	p := plot.New()
 	p.Title.Text = fmt.Sprintf("Bits per character on the %s split (lower is better)", cmp.Split)
 	p.X.Label.Text = "bits per character"
+	if cmp.BlockChars > 0 {
+		p.X.Label.Text = fmt.Sprintf("bits per character (whiskers: %s%% moving-block bootstrap intervals, blocks of %d characters)",
+			strconv.FormatFloat(100*cmp.ConfidenceLevel, 'g', 4, 64), cmp.BlockChars)
+	} else if cmp.IntervalNote != "" {
+		p.X.Label.Text = "bits per character (" + cmp.IntervalNote + ")"
+	}
 	p.X.Min = 0
 	n := len(rows)
 	names := make([]string, n)

@@ -6,8 +6,6 @@ import (
 	"io"
 	"os"
 	"path/filepath"
-	"regexp"
-	"strconv"
 	"strings"
 
 	"github.com/spf13/cobra"
@@ -141,88 +139,35 @@ func loadScorer(opts *scoreOptions) (*scorer, error) {
 	return &scorer{lm: lm, kind: kind, vocab: v}, nil
 }
 
-var (
-	ngramLabel  = regexp.MustCompile(`^([0-9]+)-gram[ _-]([a-z_]+)(\(([0-9.eE+-]+)\))?$`)
-	markovLabel = regexp.MustCompile(`^markov-([0-9]+)(\(add ([0-9.eE+-]+)\))?$`)
-	hmmLabel    = regexp.MustCompile(`^hmm-([0-9]+)$`)
-)
-
-// openBaseline rebuilds a fitted baseline from the run's baselines folder,
-// from the files eval.SaveCounts and eval.SaveHMM wrote.
+// openBaseline rebuilds a fitted baseline from the run's baselines folder
+// by its label (eval.ParseBaselineLabel, eval.LoadBaseline); a pseudo-count
+// the label leaves out comes from the run file.
 func openBaseline(run, name string) (eval.LanguageModel, string, error) {
-	dir := runs.Layout(run).Baselines()
-	addK := func(label string) (float64, error) {
-		if label != "" {
-			k, err := strconv.ParseFloat(label, 64)
-			if err != nil || !(k > 0) {
-				return 0, fmt.Errorf("baseline %q: pseudo-count %q is not a positive number", name, label)
-			}
-			return k, nil
-		}
+	spec, err := eval.ParseBaselineLabel(name)
+	if errors.Is(err, eval.ErrBadLabel) {
+		return nil, "", usagef(`--baseline %q: want a label such as "5-gram kneser_ney", "3-gram add_k(0.5)", "markov-2" or "hmm-16"`, name)
+	}
+	if err != nil {
+		return nil, "", fmt.Errorf("baseline %v", err)
+	}
+	k := spec.K
+	if k == 0 && (spec.Kind == "markov" || spec.Method == eval.AddK) {
 		r, err := runs.ReadRunFile(run, nil)
 		if err != nil {
-			return 0, err
+			return nil, "", err
 		}
-		return r.Evaluation.AddK, nil
+		k = r.Evaluation.AddK
 	}
-	counts := func() (*eval.Counts, error) {
-		c, err := eval.LoadCounts(filepath.Join(dir, eval.CountsFile))
-		if os.IsNotExist(err) || (err != nil && strings.Contains(err.Error(), "no such file")) {
-			return nil, fmt.Errorf("run directory %s has no fitted n-gram counts; run 'weft baselines --run %s' first", run, run)
-		}
-		return c, err
-	}
+	lm, err := eval.LoadBaseline(runs.Layout(run).Baselines(), spec, k)
 	switch {
-	case hmmLabel.MatchString(name):
-		m := hmmLabel.FindStringSubmatch(name)
-		h, err := eval.LoadHMM(filepath.Join(dir, "hmm-"+m[1]+".bin"))
-		if err != nil {
-			if _, serr := os.Stat(filepath.Join(dir, "hmm-"+m[1]+".bin")); serr != nil {
-				return nil, "", fmt.Errorf("run directory %s has no fitted %s-state HMM; run 'weft baselines --run %s' with it configured", run, m[1], run)
-			}
-			return nil, "", err
-		}
-		return h, h.Kind(), nil
-	case markovLabel.MatchString(name):
-		m := markovLabel.FindStringSubmatch(name)
-		k, _ := strconv.Atoi(m[1])
-		delta, err := addK(m[3])
-		if err != nil {
-			return nil, "", err
-		}
-		c, err := counts()
-		if err != nil {
-			return nil, "", err
-		}
-		mc, err := eval.NewMarkovChain(c, k, delta)
-		if err != nil {
-			return nil, "", fmt.Errorf("baseline %q: %w", name, err)
-		}
-		return mc, mc.Kind(), nil
-	case ngramLabel.MatchString(name):
-		m := ngramLabel.FindStringSubmatch(name)
-		order, _ := strconv.Atoi(m[1])
-		method, err := eval.ParseMethod(m[2])
-		if err != nil {
-			return nil, "", fmt.Errorf("baseline %q: %w", name, err)
-		}
-		sm := eval.Smoothing{Method: method}
-		if method == eval.AddK {
-			if sm.K, err = addK(m[4]); err != nil {
-				return nil, "", err
-			}
-		}
-		c, err := counts()
-		if err != nil {
-			return nil, "", err
-		}
-		ng, err := eval.NewNGram(c, order, sm)
-		if err != nil {
-			return nil, "", fmt.Errorf("baseline %q: %w", name, err)
-		}
-		return ng, ng.Kind(), nil
+	case errors.Is(err, os.ErrNotExist) && spec.Kind == "hmm":
+		return nil, "", fmt.Errorf("run directory %s has no fitted %d-state HMM; run 'weft baselines --run %s' with it configured", run, spec.States, run)
+	case errors.Is(err, os.ErrNotExist):
+		return nil, "", fmt.Errorf("run directory %s has no fitted n-gram counts; run 'weft baselines --run %s' first", run, run)
+	case err != nil:
+		return nil, "", fmt.Errorf("baseline %q: %w", name, err)
 	}
-	return nil, "", usagef(`--baseline %q: want a label such as "5-gram kneser_ney", "3-gram add_k(0.5)", "markov-2" or "hmm-16"`, name)
+	return lm, spec.Kind, nil
 }
 
 // rowSink receives the rows: printed at once, or ranked first.

@@ -6,8 +6,12 @@ import "math"
 //
 // Method (Cody and Waite range reduction with a minimax polynomial, as in
 // S. L. Moshier's Cephes library, files expf.c and tanhf.c, "Methods and
-// Programs for Mathematical Functions", 1989; coefficients quoted from
-// Cephes from memory, checked by elementwise_test.go against package math):
+// Programs for Mathematical Functions", 1989). The coefficients below were
+// written from memory of Cephes; exp32_test.go checks them on their own
+// against package math over the whole reduced range, in float64: the exp
+// polynomial is within 1.10e-9 relative of e^r for |r| ≤ ln2/2 and the
+// tanh polynomial within 4.39e-9 of tanh x for |x| < 0.625, far below half
+// a float32 ulp (2^-24 ≈ 6e-8):
 //
 //	exp(x)  = 2^n · exp(r),  n = round(x·log2 e),  r = x − n·C1 − n·C2
 //	          with C1 + C2 = ln 2 split so that n·C1 is exact, and

@@ -166,6 +166,100 @@ def case_gru_reset_before():
     }
 
 
+# A realistic float32 case: 2 layers of 256 units over a whole training
+# window of 35 steps and 4 streams, V = E = 64, weights by det() as above
+# times scale32(), a non-zero carried state; computed in float32, the path
+# weft trains on, and in float64 as the reference the Go test compares
+# with. Written to torch_float32_reference.json: the loss, the final hidden
+# states, every gradient tensor's Euclidean norm and 64 of its entries at
+# indices (j * 7919) mod size, and, for calibration, how far PyTorch's own
+# float32 run is from its float64 one (the norm-wise relative error of each
+# quantity).
+V32, E32, H32, L32, T32, B32 = 64, 64, 256, 2, 35, 4
+SAMPLES = 64
+
+
+def scale32(k):
+    """The scale of tensor k (numbered as in case_window): the recurrent
+    layers' tensors times 3, so that the gates work away from their linear
+    middle, and the output weight times 5, so that the predictions are far
+    from uniform."""
+    if 1 <= k <= 4 * L32:
+        return 3.0
+    if k == 1 + 4 * L32:
+        return 5.0
+    return 1.0
+
+
+def window_tokens():
+    toks = [[(7 * t + 13 * b + t * t * (b + 1)) % V32 for b in range(B32)] for t in range(T32 + 1)]
+    return toks[:T32], toks[1:]
+
+
+def case_window(kind, dtype):
+    torch.set_default_dtype(dtype)
+    emb = torch.nn.Embedding(V32, E32)
+    net = torch.nn.LSTM(E32, H32, num_layers=L32) if kind == "lstm" else torch.nn.GRU(E32, H32, num_layers=L32)
+    out = torch.nn.Linear(H32, V32)
+    k = 0
+    with torch.no_grad():
+        for p in [emb.weight] + [p for _, p in net.named_parameters()] + [out.weight, out.bias]:
+            # det() in float64, times the scale, rounded once to the
+            # run's type.
+            p.copy_((det(tuple(p.shape), k) * scale32(k)).to(dtype))
+            k += 1
+    h0 = torch.stack([det((B32, H32), 50 + l) for l in range(L32)]).to(dtype)
+    c0 = torch.stack([det((B32, H32), 60 + l) for l in range(L32)]).to(dtype)
+    inputs, targets = window_tokens()
+    x = emb(torch.tensor(inputs))
+    if kind == "lstm":
+        y, (hT, _) = net(x, (h0, c0))
+    else:
+        y, hT = net(x, h0)
+    logits = out(y)
+    loss = torch.nn.functional.cross_entropy(logits.reshape(T32 * B32, V32), torch.tensor(targets).reshape(T32 * B32))
+    loss.backward()
+    grads = {"embedding.weight": emb.weight.grad}
+    for l in range(L32):
+        bi, bh = getattr(net, f"bias_ih_l{l}"), getattr(net, f"bias_hh_l{l}")
+        grads[f"layer.{l}.input_weight"] = getattr(net, f"weight_ih_l{l}").grad
+        grads[f"layer.{l}.recurrent_weight"] = getattr(net, f"weight_hh_l{l}").grad
+        grads[f"layer.{l}.bias"] = bi.grad  # d/d(bias_ih) = d/d(bias_hh) for the summed bias
+        if kind == "gru":
+            grads[f"layer.{l}.recurrent_bias"] = bh.grad[2 * H32:]
+    grads["output.weight"] = out.weight.grad
+    grads["output.bias"] = out.bias.grad
+    torch.set_default_dtype(torch.float64)
+    return float(loss), hT.detach().double().reshape(-1), {n: g.detach().double().reshape(-1) for n, g in grads.items()}
+
+
+def window_reference():
+    res = {"source": "PyTorch %s, torch_reference.py" % torch.__version__,
+           "V": V32, "E": E32, "H": H32, "layers": L32, "T": T32, "B": B32}
+    inputs, targets = window_tokens()
+    res["inputs"] = [v for row in inputs for v in row]
+    res["targets"] = [v for row in targets for v in row]
+    res["cases"] = {}
+    rel = lambda a, b: float((a - b).norm() / b.norm())
+    for kind in ["lstm", "gru"]:
+        l64, h64, g64 = case_window(kind, torch.float64)
+        l32, h32, g32 = case_window(kind, torch.float32)
+        tensors = {}
+        for name, g in g64.items():
+            idx = [(j * 7919) % g.numel() for j in range(SAMPLES)]
+            tensors[name] = {"size": g.numel(), "norm": float(g.norm()), "indices": idx,
+                             "values": [float(g[i]) for i in idx],
+                             "torch_float32_rel_err": rel(g32[name], g)}
+        res["cases"][kind] = {
+            "loss": l64, "torch_float32_loss_rel_err": abs(l32 - l64) / abs(l64),
+            "final_h": [float(v) for v in h64], "torch_float32_final_h_rel_err": rel(h32, h64),
+            "tensors": tensors,
+        }
+    with open("torch_float32_reference.json", "w") as f:
+        json.dump(res, f, indent=1)
+        f.write("\n")
+
+
 def main():
     torch.manual_seed(0)  # nothing random is drawn; set for good measure
     ref = {
@@ -184,6 +278,7 @@ def main():
     with open("torch_reference.json", "w") as f:
         json.dump(ref, f, indent=1)
         f.write("\n")
+    window_reference()
 
 
 if __name__ == "__main__":
