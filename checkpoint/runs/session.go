@@ -114,6 +114,7 @@ type session struct {
 	lastSave      time.Time
 	lastSavedStep int64
 	logp          []float64
+	valChars      int64 // characters of the validation split, the bits-per-character denominator
 
 	// Since the last metrics line.
 	winLoss   float64
@@ -646,7 +647,12 @@ func (s *session) validate() error {
 		}
 		return fmt.Errorf("validation at step %d: %w", step, err)
 	}
-	res := eval.NewResult("rnn", "rnn", data.SplitValidation, logp, int(v.Characters))
+	if s.valChars == 0 {
+		// The denominator eval.Compare uses: the characters the tokens
+		// cover (for symbols, without the whitespace between them).
+		s.valChars = v.CountedCharacters()
+	}
+	res := eval.NewResult("rnn", "rnn", data.SplitValidation, logp, int(s.valChars))
 	val := Validation{Step: step, CrossEntropy: res.CrossEntropyNats / float64(res.Tokens), Perplexity: res.Perplexity, BitsPerChar: res.BitsPerChar}
 	s.prog.ValidationDue = false
 	s.prog.LastValidationStep = step

@@ -463,3 +463,37 @@ func TestFailedFreshRunLeavesNothing(t *testing.T) {
 		t.Errorf("left %v, want only notes.txt", ents)
 	}
 }
+
+// TestValidationDenominator: with the symbols tokenizer, whose whitespace
+// between symbols belongs to no token, validation divides by the
+// characters the tokens cover, as eval.Compare does (issue 11's one
+// denominator), not by every character of the split.
+func TestValidationDenominator(t *testing.T) {
+	dir := t.TempDir()
+	r := tinyRun(t, dir)
+	r.Data.Tokenizer = "symbols"
+	r.Evaluation.EverySteps = 1
+	run := filepath.Join(dir, "run")
+	_, rec, err := train(t, context.Background(), r, run, 1, TrainOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	d, err := Open(run)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer d.Close()
+	ds, err := Prepare(context.Background(), r, d, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	v := rec.validations[0]
+	counted, all := ds.Validation.CountedCharacters(), ds.Validation.Characters
+	if counted >= all {
+		t.Fatalf("counted %d of %d characters: the corpus has no whitespace between symbols", counted, all)
+	}
+	bits := v.CrossEntropy * float64(len(ds.Validation.Tokens)) / math.Ln2
+	if got, want := v.BitsPerChar, bits/float64(counted); math.Abs(got-want) > 1e-12*want {
+		t.Errorf("validation bits per character %v, want %v (bits over the %d counted characters, not the %d of the split)", got, want, counted, all)
+	}
+}

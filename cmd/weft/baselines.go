@@ -131,16 +131,20 @@ func runBaselines(opts *baselinesOptions) error {
 		return fmt.Errorf("no baselines configured: set evaluation.ngram_orders and ngram_smoothers, markov_orders or hmm_states")
 	}
 	var rows []eval.Result
+	var chars int64
 	score := prog.Func()
 	for i, c := range bl.cands {
 		if score != nil {
 			score("score baselines on validation", i, len(bl.cands))
 		}
 		lp := make([]float64, len(ds.Validation.Tokens))
+		if chars == 0 {
+			chars = ds.Validation.CountedCharacters() // eval.Compare's denominator
+		}
 		if err := c.model.LogProbs(opts.ctx, lp, ds.Validation.Tokens); err != nil {
 			return fmt.Errorf("score %s: %w", c.name, err)
 		}
-		res := eval.NewResult(c.name, c.kind, "validation", lp, int(ds.Validation.Characters))
+		res := eval.NewResult(c.name, c.kind, "validation", lp, int(chars))
 		res.StateBits = c.stateBits
 		rows = append(rows, res)
 	}

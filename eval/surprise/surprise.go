@@ -384,7 +384,7 @@ func (s *Scorer) consume(p *piece) error {
 	keepText := s.o.Unit != Document
 	if len(p.tokens) > 0 {
 		res := eval.NewResult(s.lm.Name(), s.kind, "", p.logp, p.nchars)
-		res.SetUnknown(p.tokens, v.Unknown(), false)
+		res.SetUnknown(p.tokens, v.Unknown(), true)
 		offset := s.row.Characters
 		for i, lp := range p.logp {
 			id := p.tokens[i]
