@@ -1,7 +1,6 @@
 package main
 
 import (
-	"context"
 	"encoding/json"
 	"fmt"
 	"os"
@@ -12,38 +11,8 @@ import (
 
 	"weft/checkpoint/runs"
 	"weft/configs"
-	"weft/data"
 	"weft/eval"
 )
-
-// baselines is the fitted baseline ladder of a run.
-type baselines struct {
-	ladder *eval.Ladder
-	cands  []*candidate
-}
-
-// fitBaselines fits (or loads from the run's baselines folder dir, "" for
-// none) the configured ladder through runs.FitBaselines, and makes a
-// comparison candidate of each model.
-func fitBaselines(ctx context.Context, cfg eval.Config, ds *data.Dataset, dir string, prog *stageProgress) (*baselines, error) {
-	ladder, err := runs.FitBaselines(ctx, cfg, ds, dir, prog.Func(), prog.Status)
-	if err != nil {
-		return nil, err
-	}
-	prog.finish()
-	bl := &baselines{ladder: ladder}
-	for _, m := range ladder.Models() {
-		c := &candidate{name: m.Name(), kind: "baseline", model: m}
-		if k, ok := m.(eval.Kinder); ok {
-			c.kind = k.Kind()
-		}
-		if sb, ok := m.(eval.StateBitser); ok {
-			c.stateBits = sb.StateBits()
-		}
-		bl.cands = append(bl.cands, c)
-	}
-	return bl, nil
-}
 
 type baselinesOptions struct {
 	cmdContext
@@ -123,36 +92,20 @@ func runBaselines(opts *baselinesOptions) error {
 	if rd != nil {
 		blDir = rd.Baselines()
 	}
-	bl, err := fitBaselines(opts.ctx, r.Evaluation.Config, ds, blDir, prog)
+	ladder, err := runs.FitBaselines(opts.ctx, r.Evaluation.Config, ds, blDir, prog.Func(), prog.Status)
 	if err != nil {
 		return err
 	}
-	if len(bl.cands) == 0 {
+	models := runs.BaselineEntrants(ladder)
+	if len(models) == 0 {
 		return fmt.Errorf("no baselines configured: set evaluation.ngram_orders and ngram_smoothers, markov_orders or hmm_states")
 	}
-	var rows []eval.Result
-	var chars int64
-	score := prog.Func()
-	for i, c := range bl.cands {
-		if score != nil {
-			score("score baselines on validation", i, len(bl.cands))
-		}
-		lp := make([]float64, len(ds.Validation.Tokens))
-		if chars == 0 {
-			chars = ds.Validation.CountedCharacters() // eval.Compare's denominator
-		}
-		if err := c.model.LogProbs(opts.ctx, lp, ds.Validation.Tokens); err != nil {
-			return fmt.Errorf("score %s: %w", c.name, err)
-		}
-		res := eval.NewResult(c.name, c.kind, "validation", lp, int(chars))
-		res.StateBits = c.stateBits
-		rows = append(rows, res)
-	}
-	if score != nil {
-		score("score baselines on validation", len(bl.cands), len(bl.cands))
+	rows, err := runs.ScoreOnValidation(opts.ctx, ds, models, prog.Func())
+	if err != nil {
+		return err
 	}
 	prog.finish()
-	sortBestFirst(rows)
+	eval.SortBestFirst(rows)
 	if opts.JSON {
 		enc := json.NewEncoder(opts.Out)
 		enc.SetIndent("", "  ")

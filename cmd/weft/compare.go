@@ -1,7 +1,6 @@
 package main
 
 import (
-	"context"
 	"fmt"
 	"io"
 	"math"
@@ -10,61 +9,12 @@ import (
 	"strings"
 	"text/tabwriter"
 
-	"weft/data"
 	"weft/eval"
 )
-
-// candidate is one model of a comparison.
-type candidate struct {
-	name      string
-	kind      string // "rnn", "ngram", "markov", "hmm"
-	model     eval.LanguageModel
-	stateBits float64 // log2 N for an HMM
-}
 
 // comparison is the outcome of comparing models on one held-out split, as
 // eval.Compare builds it.
 type comparison = eval.Comparison
-
-// compareModels compares the candidates on the reported split of ds with
-// eval.Compare: the best baseline and the interpolation weight are chosen
-// on the validation split. marks, when not nil, flags the tokens of the
-// reported split to break down separately (the demo's long-range
-// positions).
-func compareModels(ctx context.Context, cfg eval.Config, ds *data.Dataset, split string, cands []*candidate, marks []bool, progress eval.ProgressFunc) (*comparison, error) {
-	rep := ds.Test
-	if split == "validation" {
-		rep = ds.Validation
-	}
-	in := eval.CompareInput{
-		Split:         split,
-		Validation:    eval.HeldOut{Tokens: ds.Validation.Tokens, Chars: ds.Validation.TokenChars(nil)},
-		Reported:      eval.HeldOut{Tokens: rep.Tokens, Chars: rep.TokenChars(nil)},
-		Unknown:       ds.Vocab.Unknown(),
-		Lowercased:    ds.Vocab.Lowercase(),
-		CharacterUnit: characterUnit(ds.Vocab.Kind()),
-		TrainCounts:   eval.TokenCounts(ds.Train.Tokens, ds.Vocab.Len()),
-		Marks:         marks,
-		Progress:      progress,
-	}
-	for _, c := range cands {
-		in.Models = append(in.Models, eval.Entrant{Model: c.model, Label: c.name, Kind: c.kind})
-	}
-	return eval.Compare(ctx, cfg, in)
-}
-
-// characterUnit says what a character of Split.TokenChars is for the
-// tokenizer kind: for symbols the whitespace between symbols belongs to no
-// token and is not counted; "" (a character of the text) otherwise.
-func characterUnit(k data.Kind) string {
-	if k == data.KindSymbols {
-		return "a character of a symbol or a line end (the whitespace between symbols is not counted)"
-	}
-	return ""
-}
-
-// sortBestFirst orders rows by bits per character, best first, NaN last.
-func sortBestFirst(rows []eval.Result) { eval.SortBestFirst(rows) }
 
 // printComparison writes the comparison table, best first.
 func printComparison(w io.Writer, cmp *comparison) {

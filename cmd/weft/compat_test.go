@@ -1,9 +1,11 @@
 package main
 
 import (
+	"context"
 	"os"
 	"weft/checkpoint/modeltest"
 	"weft/checkpoint/runs"
+	"weft/data"
 	"weft/data/demo"
 	"weft/eval"
 	"weft/eval/surprise"
@@ -35,3 +37,18 @@ func fileExists(p string) bool {
 var writeDemoCorpus = demo.WriteFiles
 
 var sameTrainingState = modeltest.SameTrainingState
+
+// candidate and compareModels are the comparison's entrants and call as
+// the evaluation tests knew them, before both moved to runs.
+type candidate struct {
+	name, kind string
+	model      eval.LanguageModel
+}
+
+func compareModels(ctx context.Context, cfg eval.Config, ds *data.Dataset, split string, cands []*candidate, marks []bool, progress eval.ProgressFunc) (*eval.Comparison, error) {
+	var models []eval.Entrant
+	for _, c := range cands {
+		models = append(models, eval.Entrant{Model: c.model, Label: c.name, Kind: c.kind})
+	}
+	return runs.CompareDataset(ctx, cfg, ds, split, models, marks, progress)
+}

@@ -2,15 +2,16 @@ package main
 
 import (
 	"encoding/json"
+	"errors"
 	"fmt"
-	"os"
 	"path/filepath"
+	"strings"
 
 	"github.com/spf13/cobra"
 
-	"weft/checkpoint"
 	"weft/checkpoint/runs"
 	"weft/configs"
+	"weft/eval"
 )
 
 type evalOptions struct {
@@ -104,49 +105,24 @@ type evalSettings struct {
 	Quiet           bool
 }
 
-// evaluateRun compares a run's model and its baselines and saves the
-// report (JSON and plots) in the run's report folder.
-func evaluateRun(cc cmdContext, r *configs.Run, rd *runs.Dir, s evalSettings) (*comparison, error) {
-	ds, err := prepareData(cc, r, rd)
-	if err != nil {
-		return nil, err
-	}
+// evaluateRun compares a run's model and its baselines (runs.Evaluate,
+// which saves the comparison in the report folder) and draws the plots.
+func evaluateRun(cc cmdContext, r *configs.Run, rd *runs.Dir, s evalSettings) (*eval.Comparison, error) {
 	prog := newStageProgress(cc.deps, s.Quiet)
-	bl, err := fitBaselines(cc.ctx, r.Evaluation.Config, ds, rd.Baselines(), prog)
-	if err != nil {
-		return nil, err
-	}
-	cands := bl.cands
-	if !s.NoRNN {
-		m, err := runs.OpenModel(rd.Path(), s.Checkpoint)
-		if err != nil {
-			return nil, fmt.Errorf("%w (train first, or pass --baselines-only)", err)
-		}
-		if m.Vocab.Len() != ds.Vocab.Len() {
-			return nil, fmt.Errorf("checkpoint %s: vocabulary of %d entries, the run's corpus has %d", m.Path, m.Vocab.Len(), ds.Vocab.Len())
-		}
-		if err := m.Net.SetScoring(s.Streams, s.Warmup); err != nil {
-			return nil, usagef("%v", err)
-		}
-		cands = append([]*candidate{{name: rnnLabel(m), kind: "rnn", model: m.Net}}, cands...)
-	}
-	marks, err := demoMarks(r, ds, s.Split)
-	if err != nil {
-		return nil, err
-	}
-	cmp, err := compareModels(cc.ctx, r.Evaluation.Config, ds, s.Split, cands, marks, prog.Func())
-	if err != nil {
+	cmp, err := runs.Evaluate(cc.ctx, r, rd, runs.EvalOptions{Checkpoint: s.Checkpoint, Split: s.Split, Streams: s.Streams, Warmup: s.Warmup,
+		BaselinesOnly: s.NoRNN, Progress: prog.Func(), Note: prog.Status, Stdin: cc.In})
+	var me *runs.ModelError
+	switch {
+	case errors.As(err, &me):
+		return nil, fmt.Errorf("%w (train first, or pass --baselines-only)", err)
+	case errors.Is(err, runs.ErrScoring):
+		return nil, usagef("%s", strings.TrimPrefix(err.Error(), runs.ErrScoring.Error()+": "))
+	case err != nil:
 		return nil, err
 	}
 	prog.finish()
-	if err := os.MkdirAll(rd.Report(), 0o755); err != nil {
-		return nil, fmt.Errorf("report folder: %w", err)
-	}
-	if err := rd.WriteJSON(filepath.Join(runs.ReportDir, "eval-"+s.Split+".json"), cmp); err != nil {
-		return nil, err
-	}
 	if r.Output.Plots {
-		if err := plotComparison(filepath.Join(rd.Report(), "comparison-"+s.Split+".png"), cmp); err != nil {
+		if err := plotComparison(filepath.Join(rd.Report(), "comparison-"+cmp.Split+".png"), cmp); err != nil {
 			return nil, err
 		}
 		if err := plotLearningCurve(filepath.Join(rd.Report(), "learning-curve.png"), rd.Metrics(), cmp); err != nil {
@@ -154,9 +130,4 @@ func evaluateRun(cc cmdContext, r *configs.Run, rd *runs.Dir, s evalSettings) (*
 		}
 	}
 	return cmp, nil
-}
-
-func rnnLabel(m *checkpoint.Model) string {
-	c := m.Config
-	return fmt.Sprintf("%s %dx%d (step %d)", c.Cell, c.Layers, c.HiddenSize, m.Step)
 }

@@ -1,0 +1,184 @@
+package runs
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+
+	"weft/checkpoint"
+	"weft/configs"
+	"weft/data"
+	"weft/data/demo"
+	"weft/eval"
+)
+
+// ModelError is Evaluate's error when the run's model cannot be opened
+// (the run has not been trained, say); it wraps OpenModel's error.
+type ModelError struct{ Err error }
+
+func (e *ModelError) Error() string { return e.Err.Error() }
+func (e *ModelError) Unwrap() error { return e.Err }
+
+// ErrScoring is wrapped by Evaluate's error when the scoring layout it was
+// asked for (streams, warm-up) is invalid.
+var ErrScoring = errors.New("invalid scoring layout")
+
+// EvalOptions say what Evaluate compares.
+type EvalOptions struct {
+	// Checkpoint picks the model: "best" (or empty), "latest", a step or a
+	// file name inside the checkpoints folder (see OpenModel).
+	Checkpoint string
+	// Split is the reported split, "test" (or empty) or "validation".
+	Split string
+	// Streams and Warmup lay the recurrent model's scoring out as that
+	// many pieces side by side, each after the first warmed up on Warmup
+	// tokens (rnn.Model.SetScoring); 0 or 1 stream is exact.
+	Streams, Warmup int
+	// BaselinesOnly compares the baselines without a trained model.
+	BaselinesOnly bool
+	// Progress hears the stages of fitting and scoring; Note hears why a
+	// cached ladder was refitted. Either may be nil.
+	Progress eval.ProgressFunc
+	Note     func(string)
+	// Stdin is read when the run file's corpus is "-".
+	Stdin io.Reader
+}
+
+// Evaluate compares the run's model (the checkpoint o names) with its
+// baselines, fitted or loaded from the baselines folder, on the held-out
+// split o names, with eval.Compare (best baseline and interpolation weight
+// chosen on validation), and saves the comparison as the report folder's
+// eval-SPLIT.json.
+func Evaluate(ctx context.Context, r *configs.Run, d *Dir, o EvalOptions) (*eval.Comparison, error) {
+	split := o.Split
+	if split == "" {
+		split = data.SplitTest
+	}
+	ds, err := Prepare(ctx, r, d, o.Stdin)
+	if err != nil {
+		return nil, err
+	}
+	ladder, err := FitBaselines(ctx, r.Evaluation.Config, ds, d.Baselines(), o.Progress, o.Note)
+	if err != nil {
+		return nil, err
+	}
+	models := BaselineEntrants(ladder)
+	if !o.BaselinesOnly {
+		m, err := OpenModel(d.Path(), o.Checkpoint)
+		if err != nil {
+			return nil, &ModelError{err}
+		}
+		if m.Vocab.Len() != ds.Vocab.Len() {
+			return nil, fmt.Errorf("checkpoint %s: vocabulary of %d entries, the run's corpus has %d", m.Path, m.Vocab.Len(), ds.Vocab.Len())
+		}
+		if err := m.Net.SetScoring(max(o.Streams, 1), o.Warmup); err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrScoring, err)
+		}
+		models = append([]eval.Entrant{{Model: m.Net, Label: ModelLabel(m), Kind: "rnn"}}, models...)
+	}
+	var marks []bool
+	if len(r.Data.Files) == 1 {
+		sp := ds.Test
+		if split == data.SplitValidation {
+			sp = ds.Validation
+		}
+		if marks, err = demo.SplitMarks(r.Data.Files[0], sp); err != nil {
+			return nil, err
+		}
+	}
+	cmp, err := CompareDataset(ctx, r.Evaluation.Config, ds, split, models, marks, o.Progress)
+	if err != nil {
+		return nil, err
+	}
+	if err := os.MkdirAll(d.Report(), 0o755); err != nil {
+		return nil, fmt.Errorf("report folder: %w", err)
+	}
+	if err := d.WriteJSON(filepath.Join(ReportDir, "eval-"+split+".json"), cmp); err != nil {
+		return nil, err
+	}
+	return cmp, nil
+}
+
+// ModelLabel names a model's row: cell, layers × units and step.
+func ModelLabel(m *checkpoint.Model) string {
+	c := m.Config
+	return fmt.Sprintf("%s %dx%d (step %d)", c.Cell, c.Layers, c.HiddenSize, m.Step)
+}
+
+// BaselineEntrants lists the models of a fitted ladder as comparison
+// entrants.
+func BaselineEntrants(l *eval.Ladder) []eval.Entrant {
+	var out []eval.Entrant
+	for _, m := range l.Models() {
+		out = append(out, eval.Entrant{Model: m, Label: m.Name()})
+	}
+	return out
+}
+
+// CompareDataset compares models on the reported split of ds ("test" or
+// "validation") with eval.Compare: the best baseline and the interpolation
+// weight are chosen on the validation split. marks, when not nil, flags
+// the tokens of the reported split to break down separately.
+func CompareDataset(ctx context.Context, cfg eval.Config, ds *data.Dataset, split string, models []eval.Entrant, marks []bool, progress eval.ProgressFunc) (*eval.Comparison, error) {
+	rep := ds.Test
+	if split == data.SplitValidation {
+		rep = ds.Validation
+	}
+	return eval.Compare(ctx, cfg, eval.CompareInput{
+		Split:         split,
+		Validation:    eval.HeldOut{Tokens: ds.Validation.Tokens, Chars: ds.Validation.TokenChars(nil)},
+		Reported:      eval.HeldOut{Tokens: rep.Tokens, Chars: rep.TokenChars(nil)},
+		Models:        models,
+		Unknown:       ds.Vocab.Unknown(),
+		Lowercased:    ds.Vocab.Lowercase(),
+		CharacterUnit: characterUnit(ds.Vocab.Kind()),
+		TrainCounts:   eval.TokenCounts(ds.Train.Tokens, ds.Vocab.Len()),
+		Marks:         marks,
+		Progress:      progress,
+	})
+}
+
+// characterUnit says what a character of Split.TokenChars is for the
+// tokenizer kind: for symbols the whitespace between symbols belongs to no
+// token and is not counted; "" (a character of the text) otherwise.
+func characterUnit(k data.Kind) string {
+	if k == data.KindSymbols {
+		return "a character of a symbol or a line end (the whitespace between symbols is not counted)"
+	}
+	return ""
+}
+
+// ScoreOnValidation scores each model on ds's validation split, dividing
+// by the characters its tokens cover (eval.Compare's denominator), in the
+// order given.
+func ScoreOnValidation(ctx context.Context, ds *data.Dataset, models []eval.Entrant, progress eval.ProgressFunc) ([]eval.Result, error) {
+	const stage = "score baselines on validation"
+	v := ds.Validation
+	chars := int(v.CountedCharacters())
+	var rows []eval.Result
+	for i, e := range models {
+		if progress != nil {
+			progress(stage, i, len(models))
+		}
+		lp := make([]float64, len(v.Tokens))
+		if err := e.Model.LogProbs(ctx, lp, v.Tokens); err != nil {
+			return nil, fmt.Errorf("score %s: %w", e.Model.Name(), err)
+		}
+		kind := e.Kind
+		if k, ok := e.Model.(eval.Kinder); ok && kind == "" {
+			kind = k.Kind()
+		}
+		res := eval.NewResult(e.Model.Name(), kind, data.SplitValidation, lp, chars)
+		if sb, ok := e.Model.(eval.StateBitser); ok {
+			res.StateBits = sb.StateBits()
+		}
+		rows = append(rows, res)
+	}
+	if progress != nil {
+		progress(stage, len(models), len(models))
+	}
+	return rows, nil
+}
