@@ -51,8 +51,12 @@ type Status struct {
 	Loss           float64 // training loss of the last window, nats per token
 	GradNorm       float64 // its gradient norm before clipping
 	ValBitsPerChar float64 // of the last validation; NaN before the first
-	ETA            time.Duration
-	MaxSteps       int64 // the step budget, 0 when none
+	// BestBitsPerChar is the best validation so far (NaN before the
+	// first), at step BestStep.
+	BestBitsPerChar float64
+	BestStep        int64
+	ETA             time.Duration // to the first budget; -1 when there is none
+	MaxSteps        int64         // the step budget, 0 when none
 }
 
 // Validation is one measurement of the validation split.

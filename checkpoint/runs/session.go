@@ -751,10 +751,11 @@ func (s *session) progress() {
 	el := now.Sub(s.start).Seconds()
 	st := Status{
 		Step: s.tr.Steps(), Epoch: s.prog.Epoch, Loss: s.lastInfo.Loss, GradNorm: s.lastInfo.GradNorm,
-		ValBitsPerChar: math.NaN(), ETA: -1, MaxSteps: int64(s.r.Training.MaxSteps),
+		ValBitsPerChar: math.NaN(), BestBitsPerChar: math.NaN(), ETA: -1, MaxSteps: int64(s.r.Training.MaxSteps),
 	}
 	if s.prog.HaveBest {
 		st.ValBitsPerChar = s.prog.LastBitsPerChar
+		st.BestBitsPerChar, st.BestStep = s.prog.BestBitsPerChar, s.prog.BestStep
 	}
 	if el > 0 {
 		st.TokensPerSec = float64(s.tokens-s.startTokens) / el

@@ -12,19 +12,27 @@ import (
 	"github.com/schollz/progressbar/v3"
 )
 
-// statusText is the progress line of a training run.
+// statusText is the progress line of a training run, in the order an
+// overnight user reads it: where validation stands and its best, the time
+// left to the budget, then speed, training loss and gradient norm, and the
+// position; every figure with its unit.
 func statusText(st runs.Status) string {
 	var b strings.Builder
-	fmt.Fprintf(&b, "step %s", thousands(st.Step))
-	if st.Epoch > 0 {
-		fmt.Fprintf(&b, " (epoch %d)", st.Epoch+1)
-	}
-	fmt.Fprintf(&b, " · %s tok/s · loss %.4f · grad %.3g", thousands(int64(st.TokensPerSec)), st.Loss, st.GradNorm)
-	if !math.IsNaN(st.ValBitsPerChar) {
-		fmt.Fprintf(&b, " · val %.4f bits/char", st.ValBitsPerChar)
+	if math.IsNaN(st.ValBitsPerChar) {
+		b.WriteString("validation not measured yet")
+	} else {
+		fmt.Fprintf(&b, "validation %.4f bits/char", st.ValBitsPerChar)
+		if st.BestStep != st.Step || st.BestBitsPerChar != st.ValBitsPerChar {
+			fmt.Fprintf(&b, " (best %.4f at step %s)", st.BestBitsPerChar, thousands(st.BestStep))
+		}
 	}
 	if st.ETA >= 0 {
-		fmt.Fprintf(&b, " · %s to the budget", roundDuration(st.ETA))
+		fmt.Fprintf(&b, " | %s left", roundDuration(st.ETA))
+	}
+	fmt.Fprintf(&b, " | %s tokens/s | training loss %.4f nats/token | gradient norm %.3g before clipping | step %s",
+		thousands(int64(st.TokensPerSec)), st.Loss, st.GradNorm, thousands(st.Step))
+	if st.Epoch > 0 {
+		fmt.Fprintf(&b, " of epoch %d", st.Epoch+1)
 	}
 	return b.String()
 }

@@ -698,16 +698,18 @@ func TestProgressLines(t *testing.T) {
 	if code != exitOK {
 		t.Fatalf("exit %d: %s", code, stderr)
 	}
-	re := regexp.MustCompile(`(?m)^\d\d:\d\d:\d\d  step (\d+) · [\d,]+ tok/s · loss [\d.]+ · grad \S+`)
+	// Issue 12's layout: validation first, time left, then speed, loss
+	// and gradient norm with their units, and the step last.
+	re := regexp.MustCompile(`(?m)^\d\d:\d\d:\d\d  validation (not measured yet|[\d.]+ bits/char( \(best [\d.]+ at step [\d,]+\))?) \| \S+ left \| [\d,]+ tokens/s \| training loss [\d.]+ nats/token \| gradient norm \S+ before clipping \| step (\d+)`)
 	var steps []string
 	for _, m := range re.FindAllStringSubmatch(stderr, -1) {
-		steps = append(steps, m[1])
+		steps = append(steps, m[3])
 	}
 	want := []string{"5", "9", "13", "17", "21", "25", "29", "33", "37"}
 	if !reflect.DeepEqual(steps, want) {
 		t.Errorf("progress lines at steps %v, want %v:\n%s", steps, want, stderr)
 	}
-	if !strings.Contains(stderr, "· val ") || !strings.Contains(stderr, "to the budget") {
+	if !strings.Contains(stderr, "  validation 4.") || !strings.Contains(stderr, " left | ") {
 		t.Errorf("progress lines lack validation or ETA:\n%s", stderr)
 	}
 	lines := metricsLines(t, runDir)
@@ -758,7 +760,7 @@ func TestProgressBarOnTerminal(t *testing.T) {
 		t.Fatalf("exit %d: %s", code, errb.String())
 	}
 	s := errb.String()
-	if !strings.Contains(s, "\r") || !strings.Contains(s, "tok/s") || !strings.Contains(s, "/40") {
+	if !strings.Contains(s, "\r") || !strings.Contains(s, "tokens/s") || !strings.Contains(s, "/40") {
 		t.Errorf("no bar drawn on the terminal:\n%q", s)
 	}
 }
