@@ -124,3 +124,25 @@ func TestScoreTextIsTheInput(t *testing.T) {
 		}
 	}
 }
+
+// TestCompletion: issue 12, shell completion is on, and completes preset
+// names, run-file keys for --set and directories for --run.
+func TestCompletion(t *testing.T) {
+	code, out, _ := runCmd(t, "", "completion", "bash")
+	if code != exitOK || !strings.Contains(out, "bash completion") {
+		t.Errorf("completion bash: exit %d, %d bytes", code, len(out))
+	}
+	for _, tc := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"__complete", "config", "new", ""}, "char-small\t"},
+		{[]string{"__complete", "train", "x.toml", "--set", "training.max_s"}, "training.max_steps=\n:2\n"},
+		{[]string{"__complete", "sample", "--run", ""}, ":16\n"}, // ShellCompDirectiveFilterDirs
+	} {
+		code, out, _ := runCmd(t, "", tc.args...)
+		if code != exitOK || !strings.Contains(out, tc.want) {
+			t.Errorf("%v: exit %d output %q, want %q", tc.args, code, out, tc.want)
+		}
+	}
+}

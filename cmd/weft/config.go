@@ -41,8 +41,9 @@ func newConfigNewCmd(d *deps, runF func(*configNewOptions) error) *cobra.Command
 		Short: "Write a commented starter run file to standard output",
 		Long: "Write a commented starter run file to standard output.\n\nPresets:\n" +
 			strings.Join(names, "\n") + "\n\nWithout PRESET, " + configs.DefaultPreset + " is written.",
-		Example: "  weft config new char-large > night.toml",
-		Args:    rangeArgs(0, 1, "at most one preset name"),
+		Example:           "  weft config new char-large > night.toml",
+		Args:              rangeArgs(0, 1, "at most one preset name"),
+		ValidArgsFunction: completePresets,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.Preset = configs.DefaultPreset
 			if len(args) == 1 {

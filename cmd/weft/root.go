@@ -207,7 +207,6 @@ and lives in a run directory (--run DIR).`,
 		SilenceErrors: true,
 	}
 	root.SetFlagErrorFunc(func(_ *cobra.Command, err error) error { return &usageError{err} })
-	root.CompletionOptions.DisableDefaultCmd = true
 	root.SetVersionTemplate("weft {{.Version}}\n")
 	root.AddCommand(
 		newConfigCmd(d, nil),
@@ -222,6 +221,7 @@ and lives in a run directory (--run DIR).`,
 		newExportCmd(d, nil),
 		newBenchCmd(d, nil),
 	)
+	addCompletions(root)
 	return root
 }
 
