@@ -25,7 +25,7 @@ type baselinesOptions struct {
 func newBaselinesCmd(d *deps, runF func(*baselinesOptions) error) *cobra.Command {
 	opts := &baselinesOptions{}
 	cmd := &cobra.Command{
-		Use:   "baselines CONFIG-or-RUN",
+		Use:   "baselines [CONFIG] --run DIR",
 		Short: "Fit the n-gram, Markov-chain and hidden-Markov baselines and score them on validation",
 		Long: `Fit the baseline ladder of the run's [evaluation] section on the training split:
 n-gram models at every configured order with every configured smoother
@@ -35,18 +35,23 @@ trained by Baum-Welch. Prints their validation bits per character (the test
 split is left for 'weft eval') and caches them in the run directory's
 baselines folder, where 'weft eval' and 'weft score' find them.
 
-The argument is a run directory, or a run file with --run DIR.`,
-		Args: exactArgs(1, "a run file or a run directory"),
+With --run DIR alone the run is the one saved in DIR (by 'weft prepare' or
+'weft train'); with a run file too, the baselines of that run are fitted
+and cached in DIR. A run file alone fits them without caching.`,
+		Example: "  weft baselines --run runs/night",
+		Args:    rangeArgs(0, 1, "at most one run file"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
-			opts.Target = args[0]
+			if len(args) == 1 {
+				opts.Target = args[0]
+			}
 			if runF != nil {
 				return runF(opts)
 			}
 			return runBaselines(opts)
 		},
 	}
-	cmd.Flags().StringVar(&opts.Run, "run", "", "run directory to cache the baselines in (with a run file)")
+	cmd.Flags().StringVar(&opts.Run, "run", "", "run directory: its saved run, or where a run file's baselines are cached")
 	cmd.Flags().BoolVar(&opts.JSON, "json", false, "print the validation scores as JSON")
 	addSetFlag(cmd, &opts.Set)
 	return cmd
@@ -72,6 +77,14 @@ func resolveTarget(target, runFlag string, sets []string) (*configs.Run, string,
 }
 
 func runBaselines(opts *baselinesOptions) error {
+	switch {
+	case opts.Target == "" && opts.Run == "":
+		return usagef("give --run DIR (and a run file to fit that run's baselines there)")
+	case opts.Target == "":
+		opts.Target = opts.Run
+	case isDir(opts.Target):
+		deprecated(opts.deps, "'weft baselines DIR'", "'weft baselines --run DIR'")
+	}
 	r, dir, err := resolveTarget(opts.Target, opts.Run, opts.Set)
 	if err != nil {
 		return err

@@ -5,6 +5,8 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"github.com/spf13/cobra"
 )
 
 // Tests of the command-line behaviours issue 12 asks for: messages that
@@ -144,5 +146,70 @@ func TestCompletion(t *testing.T) {
 		if code != exitOK || !strings.Contains(out, tc.want) {
 			t.Errorf("%v: exit %d output %q, want %q", tc.args, code, out, tc.want)
 		}
+	}
+}
+
+// TestEveryVerbHasExamples: issue 12, every verb's help ends with
+// examples, and they are the commands the README shows.
+func TestEveryVerbHasExamples(t *testing.T) {
+	readme, err := os.ReadFile(filepath.Join("..", "..", "README.md"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	root := newRootCmd(&deps{})
+	var walk func(c *cobra.Command)
+	walk = func(c *cobra.Command) {
+		for _, sub := range c.Commands() {
+			walk(sub)
+		}
+		if !c.Runnable() || c.Hidden || c == root || c.Name() == "help" || c.Parent().Name() == "completion" || c.Name() == "completion" {
+			return
+		}
+		if c.Name() == "bench" {
+			return // its examples follow the many-core work on bench
+		}
+		if strings.TrimSpace(c.Example) == "" {
+			t.Errorf("%s: no examples in its help", c.CommandPath())
+			return
+		}
+		for _, line := range strings.Split(c.Example, "\n") {
+			if line = strings.TrimSpace(line); !strings.Contains(string(readme), line) {
+				t.Errorf("%s: example %q is not in the README", c.CommandPath(), line)
+			}
+		}
+	}
+	walk(root)
+}
+
+// TestRunFlagEverywhere: issue 12, the run directory is --run DIR for
+// baselines and inspect too; the positional forms still work with a line
+// saying they go.
+func TestRunFlagEverywhere(t *testing.T) {
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	run := filepath.Join(dir, "run")
+	if code, _, stderr := weftIn(t, nil, "train", cfg, "--run", run, "--steps", "5", "--quiet"); code != exitOK {
+		t.Fatalf("train: %s", stderr)
+	}
+	small := []string{"--set", "evaluation.hmm_states=[]", "--set", "evaluation.ngram_orders=[1,2]"}
+	for _, tc := range []struct {
+		args       []string
+		deprecated bool
+	}{
+		{[]string{"inspect", "--run", run}, false},
+		{[]string{"inspect", run}, true},
+		{append([]string{"baselines", "--run", run}, small...), false},
+		{append([]string{"baselines", run}, small...), true},
+	} {
+		code, out, stderr := weftIn(t, nil, tc.args...)
+		if code != exitOK || out == "" {
+			t.Errorf("%v: exit %d stderr %q", tc.args, code, stderr)
+		}
+		if got := strings.Contains(stderr, "is deprecated and goes in the next release; use"); got != tc.deprecated {
+			t.Errorf("%v: deprecation line %v, want %v (stderr %q)", tc.args, got, tc.deprecated, stderr)
+		}
+	}
+	if code, _, _ := weftIn(t, nil, "inspect"); code != exitUsage {
+		t.Errorf("inspect with nothing: exit %d, want 2", code)
 	}
 }

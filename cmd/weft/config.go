@@ -41,7 +41,7 @@ func newConfigNewCmd(d *deps, runF func(*configNewOptions) error) *cobra.Command
 		Short: "Write a commented starter run file to standard output",
 		Long: "Write a commented starter run file to standard output.\n\nPresets:\n" +
 			strings.Join(names, "\n") + "\n\nWithout PRESET, " + configs.DefaultPreset + " is written.",
-		Example:           "  weft config new char-large > night.toml",
+		Example:           "  weft config new char-small > night.toml",
 		Args:              rangeArgs(0, 1, "at most one preset name"),
 		ValidArgsFunction: completePresets,
 		RunE: func(cmd *cobra.Command, args []string) error {
@@ -77,9 +77,10 @@ func runConfigNew(opts *configNewOptions) error {
 func newConfigShowCmd(d *deps, runF func(*configShowOptions) error) *cobra.Command {
 	opts := &configShowOptions{deps: d}
 	cmd := &cobra.Command{
-		Use:   "show FILE",
-		Short: "Print the fully resolved run file: defaults, the file and overrides applied",
-		Args:  exactArgs(1, "one run file"),
+		Use:     "show FILE",
+		Example: "  weft config show night.toml",
+		Short:   "Print the fully resolved run file: defaults, the file and overrides applied",
+		Args:    exactArgs(1, "one run file"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.File = args[0]
 			if runF != nil {

@@ -19,7 +19,8 @@ const demoCorpusName = "port-averly-log.txt"
 
 type demoOptions struct {
 	cmdContext
-	Dir     string
+	Run     string // the run directory, which holds the generated corpus and run file too
+	Dir     string // deprecated: the folder holding the corpus, run file and run directory DIR/run
 	For     time.Duration
 	Seed    uint64
 	Size    int
@@ -38,7 +39,8 @@ and compare everything on the held-out test split, including the characters
 that only long-range context predicts (call signs repeated 43-72 characters
 after they first appear, the separator that closes a counted list, closing
 brackets and quotes). Run it again to resume training where it stopped.`,
-		Args: exactArgs(0, "no arguments"),
+		Example: "  weft demo\n  weft demo --for 20m",
+		Args:    exactArgs(0, "no arguments"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
 			if opts.For <= 0 {
@@ -50,7 +52,9 @@ brackets and quotes). Run it again to resume training where it stopped.`,
 			return runDemo(opts)
 		},
 	}
-	cmd.Flags().StringVar(&opts.Dir, "dir", filepath.Join("runs", "demo"), "folder for the demo corpus, run file and run directory")
+	cmd.Flags().StringVar(&opts.Run, "run", filepath.Join("runs", "demo"), "run directory of the demo (the corpus and run file are written there too)")
+	cmd.Flags().StringVar(&opts.Dir, "dir", "", "folder for the demo corpus and run file, with the run in DIR/run")
+	cmd.Flags().MarkDeprecated("dir", "it goes in the next release; use --run DIR")
 	cmd.Flags().DurationVar(&opts.For, "for", 3*time.Minute, "training time budget")
 	cmd.Flags().Uint64Var(&opts.Seed, "seed", 1, "seed of the corpus generator")
 	cmd.Flags().IntVar(&opts.Size, "size", demo.Size, "size of the demo corpus in bytes")
@@ -88,10 +92,19 @@ func demoRun(corpus string, size int) configs.Run {
 }
 
 func runDemo(opts *demoOptions) error {
-	if err := os.MkdirAll(opts.Dir, 0o755); err != nil {
-		return fmt.Errorf("demo folder %s: %w", opts.Dir, unwrapPath(err))
+	folder, runPath := opts.Run, opts.Run
+	if opts.Dir != "" { // the layout before --run
+		folder, runPath = opts.Dir, filepath.Join(opts.Dir, "run")
 	}
-	corpus := filepath.Join(opts.Dir, demoCorpusName)
+	if opts.Restart {
+		if err := os.RemoveAll(runPath); err != nil {
+			return fmt.Errorf("restart demo: %w", err)
+		}
+	}
+	if err := os.MkdirAll(folder, 0o755); err != nil {
+		return fmt.Errorf("demo folder %s: %w", folder, unwrapPath(err))
+	}
+	corpus := filepath.Join(folder, demoCorpusName)
 	fmt.Fprintf(opts.Out, "weft demo: generating the Port Averly dispatch log (seed %d, %s bytes)\n", opts.Seed, thousands(int64(opts.Size)))
 	nMarks, err := demo.WriteFiles(corpus, opts.Seed, opts.Size)
 	if err != nil {
@@ -108,15 +121,9 @@ func runDemo(opts *demoOptions) error {
 	if err != nil {
 		return err
 	}
-	runFile := filepath.Join(opts.Dir, "demo.toml")
+	runFile := filepath.Join(folder, "demo.toml")
 	if err := writeFileAtomic(runFile, b); err != nil {
 		return err
-	}
-	runPath := filepath.Join(opts.Dir, "run")
-	if opts.Restart {
-		if err := os.RemoveAll(runPath); err != nil {
-			return fmt.Errorf("restart demo: %w", err)
-		}
 	}
 	fmt.Fprintf(opts.Out, "weft demo: training a 1-layer LSTM of %d units for up to %v (run file %s)\n", r.Model.HiddenSize, opts.For, runFile)
 	res, err := trainRun(opts.cmdContext, &r, runPath, trainRunOptions{Duration: opts.For})

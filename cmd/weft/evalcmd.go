@@ -29,8 +29,9 @@ type evalOptions struct {
 func newEvalCmd(d *deps, runF func(*evalOptions) error) *cobra.Command {
 	opts := &evalOptions{}
 	cmd := &cobra.Command{
-		Use:   "eval --run DIR",
-		Short: "Compare the trained model with the baselines on the held-out test split",
+		Use:     "eval --run DIR",
+		Example: "  weft eval --run runs/night",
+		Short:   "Compare the trained model with the baselines on the held-out test split",
 		Long: `Score the run's best checkpoint (or --checkpoint) and every baseline of its
 [evaluation] section on the test split (or --split validation) and print one
 table, best first: bits per character with its block-bootstrap interval, the

@@ -19,8 +19,9 @@ type exportOptions struct {
 func newExportCmd(d *deps, runF func(*exportOptions) error) *cobra.Command {
 	opts := &exportOptions{}
 	cmd := &cobra.Command{
-		Use:   "export (--run DIR | --checkpoint FILE) -o FILE",
-		Short: "Write a trained model as an ONNX model for other runtimes",
+		Use:     "export (--run DIR | --checkpoint FILE) -o FILE",
+		Example: "  weft export --run runs/demo -o demo.onnx",
+		Short:   "Write a trained model as an ONNX model for other runtimes",
 		Long: `Write a trained model in a format other programs run: --format onnx (the
 only one for now) writes an ONNX model (IR version 8, operator set 14) that
 any ONNX runtime can score text and sample with. The model is the best

@@ -15,14 +15,16 @@ import (
 
 type inspectOptions struct {
 	cmdContext
-	Path string
-	JSON bool
+	Path       string // a positional checkpoint file (or, deprecated, run directory)
+	Run        string
+	Checkpoint string
+	JSON       bool
 }
 
 func newInspectCmd(d *deps, runF func(*inspectOptions) error) *cobra.Command {
 	opts := &inspectOptions{}
 	cmd := &cobra.Command{
-		Use:   "inspect PATH",
+		Use:   "inspect (--run DIR | --checkpoint FILE | FILE)",
 		Short: "Describe a checkpoint or a run directory's checkpoints and check that they are intact",
 		Long: `Verify a checkpoint file and describe it: format version, checksum,
 training step and epoch, the model (cell, layers, sizes, vocabulary and
@@ -30,22 +32,41 @@ tokenizer) and the table of tensors with their types, shapes and sizes.
 Given a run directory, describe its newest checkpoint and its best one.
 
 A damaged file is reported on one line and the status is 1.`,
-		Args: exactArgs(1, "a checkpoint file or a run directory"),
+		Example: "  weft inspect --run runs/night",
+		Args:    rangeArgs(0, 1, "at most one checkpoint file"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
-			opts.Path = args[0]
+			if len(args) == 1 {
+				opts.Path = args[0]
+			}
 			if runF != nil {
 				return runF(opts)
 			}
 			return runInspect(opts)
 		},
 	}
+	cmd.Flags().StringVar(&opts.Run, "run", "", "run directory whose newest and best checkpoints to describe")
+	cmd.Flags().StringVar(&opts.Checkpoint, "checkpoint", "", "checkpoint file to describe")
 	cmd.Flags().BoolVar(&opts.JSON, "json", false, "print the description as JSON")
 	return cmd
 }
 
 func runInspect(opts *inspectOptions) error {
-	all, err := runs.Inspect(opts.Path)
+	path := opts.Path
+	given := 0
+	for _, p := range []string{opts.Path, opts.Run, opts.Checkpoint} {
+		if p != "" {
+			given++
+			path = p
+		}
+	}
+	switch {
+	case given != 1:
+		return usagef("give one of --run DIR, --checkpoint FILE or a checkpoint file")
+	case opts.Path != "" && isDir(opts.Path):
+		deprecated(opts.deps, "'weft inspect DIR'", "'weft inspect --run DIR'")
+	}
+	all, err := runs.Inspect(path)
 	if err != nil {
 		return err
 	}

@@ -24,8 +24,9 @@ type prepareOptions struct {
 func newPrepareCmd(d *deps, runF func(*prepareOptions) error) *cobra.Command {
 	opts := &prepareOptions{}
 	cmd := &cobra.Command{
-		Use:   "prepare CONFIG",
-		Short: "Tokenize, split and cache a corpus and print the split report",
+		Use:     "prepare CONFIG",
+		Example: "  weft prepare night.toml --run runs/night",
+		Short:   "Tokenize, split and cache a corpus and print the split report",
 		Long: `Read the corpus a run file names, learn the vocabulary on the training split,
 encode the three splits and print their sizes, out-of-vocabulary rates and
 how many test lines also occur verbatim in training (leakage, which flatters

@@ -46,8 +46,9 @@ type sampleOptions struct {
 func newSampleCmd(d *deps, runF func(*sampleOptions) error) *cobra.Command {
 	opts := &sampleOptions{}
 	cmd := &cobra.Command{
-		Use:   "sample (--run DIR | --checkpoint FILE)",
-		Short: "Generate continuations of a prompt with a trained model",
+		Use:     "sample (--run DIR | --checkpoint FILE)",
+		Example: "  weft sample --run runs/night --prompt \"Dear\" --length 300c --seed 7",
+		Short:   "Generate continuations of a prompt with a trained model",
 		Long: `Continue a prompt with a trained model and print the continuations as they are
 generated. The model is the best checkpoint of --run DIR (the newest one before
 the first validation), or the one --checkpoint names: with --run, "best",

@@ -35,8 +35,9 @@ type scoreOptions struct {
 func newScoreCmd(d *deps, runF func(*scoreOptions) error) *cobra.Command {
 	opts := &scoreOptions{}
 	cmd := &cobra.Command{
-		Use:   "score (--run DIR | --checkpoint FILE) [--baseline NAME] FILE... | -",
-		Short: "Score text by how surprising a model finds it, line by line",
+		Use:     "score (--run DIR | --checkpoint FILE) [--baseline NAME] FILE... | -",
+		Example: "  weft score --run runs/night --top 20 app.log\n  weft score --run runs/demo --context 200 --sort check.log",
+		Short:   "Score text by how surprising a model finds it, line by line",
 		Long: `Score text files (- reads standard input) with a trained model (the run's best
 checkpoint, or --checkpoint as for 'weft sample') or with a fitted baseline of
 the run (--baseline NAME, a label of the 'weft baselines' table such as

@@ -135,3 +135,14 @@ func writeJSONLine(w io.Writer, v any) error {
 }
 
 func finite(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+
+// deprecated warns, on one line, that an old form of a command still works
+// for this release and names the form to use instead.
+func deprecated(d *deps, old, use string) {
+	fmt.Fprintf(d.Err, "weft: %s is deprecated and goes in the next release; use %s\n", old, use)
+}
+
+func isDir(p string) bool {
+	fi, err := os.Stat(p)
+	return err == nil && fi.IsDir()
+}

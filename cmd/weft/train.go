@@ -39,8 +39,9 @@ type trainOptions struct {
 func newTrainCmd(d *deps, runF func(*trainOptions) error) *cobra.Command {
 	opts := &trainOptions{}
 	cmd := &cobra.Command{
-		Use:   "train CONFIG --run DIR",
-		Short: "Train a model as a run file says, in a run directory that survives interruptions",
+		Use:     "train CONFIG --run DIR",
+		Example: "  weft train night.toml --run runs/night --until 07:00",
+		Short:   "Train a model as a run file says, in a run directory that survives interruptions",
 		Long: `Train the model a run file describes, keeping everything in the run
 directory: the resolved run file, the vocabulary, the split report, the
 metrics log (metrics.jsonl) and the checkpoints.
