@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"slices"
 	"sort"
 )
 
@@ -317,4 +318,33 @@ func totalBits(logp []float64) float64 {
 		s -= lp
 	}
 	return s / math.Ln2
+}
+
+// Family names the family of a row for FamilyBest: its kind, and for an
+// n-gram row its smoothing method too ("ngram kneser_ney"), so that each
+// smoother keeps its best order.
+func Family(r Result) string {
+	if r.Kind == "ngram" {
+		if spec, err := ParseBaselineLabel(r.Model); err == nil {
+			return r.Kind + " " + spec.Method.String()
+		}
+	}
+	return r.Kind
+}
+
+// FamilyBest keeps, of rows sorted best first, the first row of each
+// Family, and every row named in keep (the best baseline, say), in their
+// order: the short table a reader starts with.
+func FamilyBest(rows []Result, keep ...string) []Result {
+	seen := map[string]bool{}
+	var out []Result
+	for _, r := range rows {
+		f := Family(r)
+		if seen[f] && !slices.Contains(keep, r.Model) {
+			continue
+		}
+		seen[f] = true
+		out = append(out, r)
+	}
+	return out
 }

@@ -4,6 +4,7 @@ import (
 	"context"
 	"math"
 	"math/rand/v2"
+	"slices"
 	"strings"
 	"testing"
 )
@@ -241,5 +242,29 @@ func TestCompareShortSplitIntervals(t *testing.T) {
 		if !tc.wantWidth && !(math.IsNaN(r.CILow) && math.IsNaN(r.CIHigh)) {
 			t.Errorf("%d characters: got interval [%g, %g], want none", tc.n, r.CILow, r.CIHigh)
 		}
+	}
+}
+
+// TestFamilyBest keeps the best row of each family (each smoother its best
+// order) in order, and a row asked for by name.
+func TestFamilyBest(t *testing.T) {
+	rows := []Result{
+		{Model: "lstm 1x16 (step 5) + 5-gram kneser_ney (λ=0.80)", Kind: "interpolated"},
+		{Model: "5-gram kneser_ney", Kind: "ngram"},
+		{Model: "lstm 1x16 (step 5)", Kind: "rnn"},
+		{Model: "3-gram kneser_ney", Kind: "ngram"},
+		{Model: "5-gram witten_bell", Kind: "ngram"},
+		{Model: "markov-2(add 1)", Kind: "markov"},
+		{Model: "3-gram witten_bell", Kind: "ngram"},
+		{Model: "markov-1(add 1)", Kind: "markov"},
+		{Model: "hmm-32", Kind: "hmm"},
+	}
+	var got []string
+	for _, r := range FamilyBest(rows, "3-gram witten_bell") {
+		got = append(got, r.Model)
+	}
+	want := []string{"lstm 1x16 (step 5) + 5-gram kneser_ney (λ=0.80)", "5-gram kneser_ney", "lstm 1x16 (step 5)", "5-gram witten_bell", "markov-2(add 1)", "3-gram witten_bell", "hmm-32"}
+	if !slices.Equal(got, want) {
+		t.Errorf("got %q\nwant %q", got, want)
 	}
 }

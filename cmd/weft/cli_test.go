@@ -213,3 +213,45 @@ func TestRunFlagEverywhere(t *testing.T) {
 		t.Errorf("inspect with nothing: exit %d, want 2", code)
 	}
 }
+
+// TestEvalRows: issue 12, weft eval lists the best of each family by
+// default, every row with --all and the N best with --top N.
+func TestEvalRows(t *testing.T) {
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	run := filepath.Join(dir, "run")
+	if code, _, stderr := weftIn(t, nil, "train", cfg, "--run", run, "--steps", "5", "--quiet"); code != exitOK {
+		t.Fatalf("train: %s", stderr)
+	}
+	ladder := []string{"--set", "evaluation.hmm_states=[]", "--set", "evaluation.ngram_orders=[1,2,3]",
+		"--set", `evaluation.ngram_smoothers=["kneser_ney","witten_bell"]`, "--set", "evaluation.markov_orders=[1,2]", "--set", "output.plots=false"}
+	// The table's rows: the lines after its header, up to the first that
+	// is blank or a note in brackets.
+	rowsOf := func(out string) int {
+		_, body, _ := strings.Cut(out, "\nmodel ")
+		lines := strings.Split(body, "\n")[1:]
+		n := 0
+		for _, l := range lines {
+			if l == "" || strings.HasPrefix(l, "(") {
+				break
+			}
+			n++
+		}
+		return n
+	}
+	for _, tc := range []struct {
+		flags []string
+		rows  int
+		more  bool
+	}{
+		{nil, 5, true}, // recurrent, interpolated, best kneser_ney, best witten_bell, best markov
+		{[]string{"--all"}, 10, false},
+		{[]string{"--top", "3"}, 3, true},
+	} {
+		args := append(append([]string{"eval", "--run", run}, ladder...), tc.flags...)
+		code, out, stderr := weftIn(t, nil, args...)
+		if code != exitOK || rowsOf(out) != tc.rows || strings.Contains(out, "more rows: --all") != tc.more {
+			t.Errorf("%v: exit %d, %d rows, want %d:\n%s%s", tc.flags, code, rowsOf(out), tc.rows, out, stderr)
+		}
+	}
+}

@@ -16,8 +16,21 @@ import (
 // eval.Compare builds it.
 type comparison = eval.Comparison
 
-// printComparison writes the comparison table, best first.
-func printComparison(w io.Writer, cmp *comparison) {
+// shownRows picks the rows the table prints: the best of each family with
+// the best baseline (the default), every row (all), or the top best.
+func shownRows(cmp *comparison, all bool, top int) []eval.Result {
+	switch {
+	case top > 0:
+		return cmp.Rows[:min(top, len(cmp.Rows))]
+	case all:
+		return cmp.Rows
+	}
+	return eval.FamilyBest(cmp.Rows, cmp.BestBaseline)
+}
+
+// printComparison writes the comparison table of rows (of cmp, best
+// first), saying how many of cmp's rows it leaves out.
+func printComparison(w io.Writer, cmp *comparison, rows []eval.Result) {
 	if cmp.BlockChars > 0 {
 		fmt.Fprintf(w, "held-out %s split, best first; intervals are %s%% moving-block bootstrap intervals (blocks of %d characters)\n",
 			cmp.Split, strconv.FormatFloat(100*cmp.ConfidenceLevel, 'g', 4, 64), cmp.BlockChars)
@@ -44,7 +57,7 @@ func printComparison(w io.Writer, cmp *comparison) {
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "model\tkind\tbits/char\tinterval\tvs best baseline\tbits/token\tperplexity\tnote")
 	var reasons []string
-	for _, r := range cmp.Rows {
+	for _, r := range rows {
 		var notes []string
 		if !r.Comparable {
 			notes = append(notes, "not comparable on bits/char (*)")
@@ -73,6 +86,9 @@ func printComparison(w io.Writer, cmp *comparison) {
 			interval(r.CILow, r.CIHigh), diff, num(r.BitsPerToken, 3), num(r.Perplexity, 2), note)
 	}
 	tw.Flush()
+	if left := len(cmp.Rows) - len(rows); left > 0 {
+		fmt.Fprintf(w, "(%d more rows: --all lists every row, --top N the N best; the report folder's eval-%s.json has them all)\n", left, cmp.Split)
+	}
 	for _, r := range reasons {
 		fmt.Fprintf(w, "(*) not comparable on bits per character: %s\n", r)
 	}

@@ -146,7 +146,7 @@ func runDemo(opts *demoOptions) error {
 		return err
 	}
 	fmt.Fprintln(opts.Out)
-	printComparison(opts.Out, cmp)
+	printComparison(opts.Out, cmp, shownRows(cmp, false, 0))
 	fmt.Fprintln(opts.Out)
 	printDemoVerdict(opts, cmp)
 	fmt.Fprintf(opts.Out, "\nrun directory: %s\nreport: %s (comparison-test.png, learning-curve.png, eval-test.json)\n",

@@ -24,6 +24,8 @@ type evalOptions struct {
 	Streams    int
 	Warmup     int
 	NoRNN      bool
+	All        bool
+	Top        int
 }
 
 func newEvalCmd(d *deps, runF func(*evalOptions) error) *cobra.Command {
@@ -65,6 +67,8 @@ before it: faster, and an approximation at the N-1 piece starts.`,
 	cmd.Flags().IntVar(&opts.Streams, "streams", 1, "score the recurrent model as this many pieces side by side (1 is exact)")
 	cmd.Flags().IntVar(&opts.Warmup, "warmup", 256, "tokens each piece after the first is warmed up on, with --streams")
 	cmd.Flags().BoolVar(&opts.NoRNN, "baselines-only", false, "compare the baselines alone, without a trained model")
+	cmd.Flags().BoolVar(&opts.All, "all", false, "list every row (by default the best of each family: each smoother, Markov chains, HMMs, the recurrent and interpolated rows)")
+	cmd.Flags().IntVar(&opts.Top, "top", 0, "list the N best rows")
 	addSetFlag(cmd, &opts.Set)
 	return cmd
 }
@@ -94,7 +98,10 @@ func runEval(opts *evalOptions) error {
 		enc.SetIndent("", "  ")
 		return enc.Encode(cmp) // the eval report format, eval.ReportVersion
 	}
-	printComparison(opts.Out, cmp)
+	if opts.Top < 0 {
+		return usagef("--top must be 1 or more, got %d", opts.Top)
+	}
+	printComparison(opts.Out, cmp, shownRows(cmp, opts.All, opts.Top))
 	return nil
 }
 

@@ -393,7 +393,7 @@ func TestCompareUnknownAndLowercase(t *testing.T) {
 				}
 			}
 			var out strings.Builder
-			printComparison(&out, cmp)
+			printComparison(&out, cmp, cmp.Rows)
 			if !strings.Contains(out.String(), tc.reason) {
 				t.Errorf("the table does not give the reason %q:\n%s", tc.reason, out.String())
 			}
@@ -417,7 +417,7 @@ func TestCompareHeaderLevel(t *testing.T) {
 	}{{0.95, "95% "}, {0.9, "90% "}, {0.995, "99.5% "}} {
 		cmp := &comparison{Split: "test", ConfidenceLevel: tc.level, BlockChars: 2000}
 		var out strings.Builder
-		printComparison(&out, cmp)
+		printComparison(&out, cmp, cmp.Rows)
 		if !strings.Contains(out.String(), "intervals are "+tc.want) {
 			t.Errorf("level %g: header %q lacks %q", tc.level, strings.SplitN(out.String(), "\n", 2)[0], tc.want)
 		}
@@ -434,7 +434,7 @@ func TestCompareNotesAllShown(t *testing.T) {
 	cmp := &comparison{Split: "test", ConfidenceLevel: 0.95, Rows: []eval.Result{r},
 		BestBaseline: "hmm-4", InterpolationPartner: "3-gram kneser_ney", Lambda: 0.25}
 	var out strings.Builder
-	printComparison(&out, cmp)
+	printComparison(&out, cmp, cmp.Rows)
 	for _, want := range []string{"not comparable on bits/char", "1 tokens given probability zero", "state holds 2 bits",
 		"(*) not comparable on bits per character: lower-cased", "interpolated with the best n-gram (chosen on the validation split): 3-gram kneser_ney"} {
 		if !strings.Contains(out.String(), want) {
@@ -476,7 +476,7 @@ func TestCompareValidationLabelled(t *testing.T) {
 			t.Fatal(err)
 		}
 		var out strings.Builder
-		printComparison(&out, cmp)
+		printComparison(&out, cmp, cmp.Rows)
 		for _, want := range []string{"chosen on this same split", "chosen on this split", "weight tuned on this split"} {
 			if got := strings.Contains(out.String(), want); got != tc.labeled {
 				t.Errorf("--split %s: label %q present %v, want %v:\n%s", tc.split, want, got, tc.labeled, out.String())

@@ -10,6 +10,7 @@ import (
 	"math"
 	"os"
 	"strconv"
+	"weft/eval"
 
 	"gonum.org/v1/plot"
 	"gonum.org/v1/plot/plotter"
@@ -30,14 +31,16 @@ type errXY struct {
 	plotter.XErrors
 }
 
-// plotComparison draws bits per character of every model as horizontal
-// bars, best at the top, with the bootstrap intervals as whiskers, the
-// recurrent rows and the best baseline in colour.
+// plotComparison draws bits per character of the best model of each
+// family (as the table shows them by default) as horizontal bars, best at
+// the top, with the bootstrap intervals as whiskers, the recurrent rows and
+// the best baseline in colour.
 func plotComparison(path string, cmp *comparison) error {
-	var rows []int
-	for i, r := range cmp.Rows {
+	shown := shownRows(cmp, false, 0)
+	var rows []eval.Result
+	for _, r := range shown {
 		if !math.IsInf(r.BitsPerChar, 0) && !math.IsNaN(r.BitsPerChar) {
-			rows = append(rows, i)
+			rows = append(rows, r)
 		}
 	}
 	if len(rows) == 0 {
@@ -47,17 +50,16 @@ func plotComparison(path string, cmp *comparison) error {
 	p.Title.Text = fmt.Sprintf("Bits per character on the %s split (lower is better)", cmp.Split)
 	p.X.Label.Text = "bits per character"
 	if cmp.BlockChars > 0 {
-		p.X.Label.Text = fmt.Sprintf("bits per character (whiskers: %s%% moving-block bootstrap intervals, blocks of %d characters)",
+		p.Title.Text += fmt.Sprintf("\nwhiskers: %s%% moving-block bootstrap intervals, blocks of %d characters",
 			strconv.FormatFloat(100*cmp.ConfidenceLevel, 'g', 4, 64), cmp.BlockChars)
 	} else if cmp.IntervalNote != "" {
-		p.X.Label.Text = "bits per character (" + cmp.IntervalNote + ")"
+		p.Title.Text += "\n" + cmp.IntervalNote
 	}
 	p.X.Min = 0
 	n := len(rows)
 	names := make([]string, n)
 	pts := errXY{XYs: make(plotter.XYs, n), XErrors: make(plotter.XErrors, n)}
-	for k, i := range rows {
-		r := cmp.Rows[i]
+	for k, r := range rows {
 		y := n - 1 - k // best at the top
 		names[y] = r.Model
 		pts.XYs[k] = plotter.XY{X: r.BitsPerChar, Y: float64(y)}
@@ -93,8 +95,15 @@ func plotComparison(path string, cmp *comparison) error {
 	p.Add(eb)
 	p.NominalY(names...)
 	p.Add(plotter.NewGrid())
-	h := vg.Length(n)*vg.Points(14) + 2*vg.Centimeter
-	if err := p.Save(8*vg.Inch, h, path); err != nil {
+	// Wide enough for the longest label and title line beside a bar area
+	// of 5 inches, so that no label is cut.
+	w := 8 * vg.Inch
+	for _, name := range names {
+		w = max(w, p.Y.Tick.Label.Width(name)+6*vg.Inch)
+	}
+	w = max(w, p.Title.TextStyle.Width(p.Title.Text)+vg.Inch)
+	h := vg.Length(n)*vg.Points(14) + 2.5*vg.Centimeter
+	if err := p.Save(w, h, path); err != nil {
 		return fmt.Errorf("plot %s: %w", path, err)
 	}
 	return nil
