@@ -153,8 +153,22 @@ func Train(ctx context.Context, r *configs.Run, dir string, o TrainOptions) (*Re
 	}
 	_, statErr := os.Stat(d.RunFile())
 	hadRunFile := statErr == nil
+	ents, _ := checkpoint.List(s.ckdir)
+	fresh := len(ents) == 0
 	res, err := s.run()
-	if err != nil && s.res.ResumedFrom == "" && s.lastGoodPath == "" {
+	end := Outcome{Time: o.Now()}
+	switch {
+	case err != nil:
+		end.State, end.Reason = StateFailed, errOutcome(err)
+	case res.Interrupted:
+		end.State, end.Reason, end.Step = StateInterrupted, res.Reason, res.Steps
+	default:
+		end.State, end.Reason, end.Step = StateFinished, res.Reason, res.Steps
+	}
+	if s.tr != nil && err != nil {
+		end.Step = s.tr.Steps()
+	}
+	if err != nil && fresh && s.lastGoodPath == "" {
 		// A fresh run that failed before its first checkpoint leaves no
 		// run file and no empty checkpoints folder behind (a prepared
 		// corpus cache stays: it is valid and saves the next attempt
@@ -163,6 +177,7 @@ func Train(ctx context.Context, r *configs.Run, dir string, o TrainOptions) (*Re
 			os.Remove(d.RunFile())
 		}
 		os.Remove(s.ckdir) // only when empty
+		os.Remove(d.File(OutcomeFile)) // the training outcome of this invocation
 		if d.created {
 			d.Close()
 			os.Remove(d.Path()) // only when empty, now that the lock is gone
@@ -175,6 +190,11 @@ func Train(ctx context.Context, r *configs.Run, dir string, o TrainOptions) (*Re
 	}
 	if s.pool != nil {
 		s.pool.Close()
+	}
+	// The outcome of an invocation that trained; one refused before
+	// training (a changed run file, say) leaves the previous one.
+	if _, serr := os.Stat(d.Path()); serr == nil && s.tr != nil && (err == nil || !fresh || s.lastGoodPath != "") {
+		d.writeOutcome(end)
 	}
 	return res, err
 }
@@ -407,6 +427,7 @@ const timeBudgetReached = "time budget reached"
 
 func (s *session) train() (*Result, error) {
 	r, tr := s.r, s.tr
+	s.d.writeOutcome(Outcome{State: StateTraining, Step: tr.Steps(), Time: s.o.Now()})
 	s.obs.Started(Start{
 		ResumedFrom: s.res.ResumedFrom, Step: tr.Steps(), Epochs: s.prog.Epoch,
 		Model: s.net.Name(), Params: int64(s.net.NumParams()), TrainTokens: int64(len(s.ds.Train.Tokens)),

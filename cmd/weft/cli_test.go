@@ -255,3 +255,27 @@ func TestEvalRows(t *testing.T) {
 		}
 	}
 }
+
+// TestRunsList: issue 12, weft runs lists the run directories under a
+// folder with their state, step and best validation.
+func TestRunsList(t *testing.T) {
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	for _, name := range []string{"a", "nested/b"} {
+		if code, _, stderr := weftIn(t, nil, "train", cfg, "--run", filepath.Join(dir, "runs", name), "--steps", "4", "--quiet"); code != exitOK {
+			t.Fatalf("train: %s", stderr)
+		}
+	}
+	code, out, stderr := weftIn(t, nil, "runs", filepath.Join(dir, "runs"))
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	for _, want := range []string{"run", "state", "a ", "nested/b ", "finished", "at step 4"} {
+		if !strings.Contains(out, want) {
+			t.Errorf("output lacks %q:\n%s", want, out)
+		}
+	}
+	if code, _, _ := weftIn(t, nil, "runs", filepath.Join(dir, "nope")); code != exitFailure {
+		t.Errorf("missing folder: exit %d, want 1", code)
+	}
+}

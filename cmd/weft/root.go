@@ -220,6 +220,7 @@ and lives in a run directory (--run DIR).`,
 		newScoreCmd(d, nil),
 		newExportCmd(d, nil),
 		newBenchCmd(d, nil),
+		newRunsCmd(d, nil),
 	)
 	addCompletions(root)
 	return root
