@@ -13,6 +13,7 @@ import (
 	"weft/data"
 	"weft/data/demo"
 	"weft/eval"
+	"weft/rnn/linalg"
 )
 
 // ModelError is Evaluate's error when the run's model cannot be opened
@@ -39,6 +40,9 @@ type EvalOptions struct {
 	Streams, Warmup int
 	// BaselinesOnly compares the baselines without a trained model.
 	BaselinesOnly bool
+	// Threads is the number of threads the recurrent model's products use;
+	// 0 or 1: one. The results do not depend on it.
+	Threads int
 	// Progress hears the stages of fitting and scoring; Note hears why a
 	// cached ladder was refitted. Either may be nil.
 	Progress eval.ProgressFunc
@@ -76,6 +80,11 @@ func Evaluate(ctx context.Context, r *configs.Run, d *Dir, o EvalOptions) (*eval
 		}
 		if err := m.Net.SetScoring(max(o.Streams, 1), o.Warmup); err != nil {
 			return nil, fmt.Errorf("%w: %w", ErrScoring, err)
+		}
+		if o.Threads > 1 {
+			pool := linalg.NewPool(o.Threads)
+			defer pool.Close()
+			m.Net.SetPool(pool)
 		}
 		models = append([]eval.Entrant{{Model: m.Net, Label: ModelLabel(m), Kind: "rnn"}}, models...)
 	}

@@ -279,3 +279,29 @@ func TestRunsList(t *testing.T) {
 		t.Errorf("missing folder: exit %d, want 1", code)
 	}
 }
+
+// TestThreadsEverywhere: issue 12, --threads has one meaning (the threads
+// the command computes with) on every verb that computes, train included.
+func TestThreadsEverywhere(t *testing.T) {
+	root := newRootCmd(&deps{})
+	for _, verb := range []string{"train", "eval", "sample", "score", "bench"} {
+		c, _, err := root.Find([]string{verb})
+		if err != nil {
+			t.Fatal(err)
+		}
+		f := c.Flags().Lookup("threads")
+		if f == nil || (verb != "bench" && !strings.HasPrefix(f.Usage, "threads to compute with")) {
+			t.Errorf("%s: --threads %v", verb, f)
+		}
+	}
+	dir := t.TempDir()
+	cfg := tinyRun(t, dir)
+	run := filepath.Join(dir, "run")
+	if code, _, stderr := weftIn(t, nil, "train", cfg, "--run", run, "--steps", "3", "--threads", "2", "--quiet"); code != exitOK {
+		t.Fatalf("train --threads 2: %s", stderr)
+	}
+	b, err := os.ReadFile(filepath.Join(run, "run.toml"))
+	if err != nil || !strings.Contains(string(b), "threads = 2") {
+		t.Errorf("run.toml does not record --threads 2: %v", err)
+	}
+}

@@ -26,6 +26,7 @@ type evalOptions struct {
 	NoRNN      bool
 	All        bool
 	Top        int
+	Threads    int
 }
 
 func newEvalCmd(d *deps, runF func(*evalOptions) error) *cobra.Command {
@@ -69,6 +70,7 @@ before it: faster, and an approximation at the N-1 piece starts.`,
 	cmd.Flags().BoolVar(&opts.NoRNN, "baselines-only", false, "compare the baselines alone, without a trained model")
 	cmd.Flags().BoolVar(&opts.All, "all", false, "list every row (by default the best of each family: each smoother, Markov chains, HMMs, the recurrent and interpolated rows)")
 	cmd.Flags().IntVar(&opts.Top, "top", 0, "list the N best rows")
+	addThreadsFlag(cmd, &opts.Threads, 1, " (on the recurrent model's matrix products)")
 	addSetFlag(cmd, &opts.Set)
 	return cmd
 }
@@ -76,6 +78,9 @@ before it: faster, and an approximation at the N-1 piece starts.`,
 func runEval(opts *evalOptions) error {
 	if opts.Run == "" {
 		return usagef("--run DIR is required")
+	}
+	if opts.Threads < 1 {
+		return usagef("--threads must be at least 1, got %d", opts.Threads)
 	}
 	r, dir, err := resolveTarget(opts.Run, "", opts.Set)
 	if err != nil {
@@ -88,7 +93,7 @@ func runEval(opts *evalOptions) error {
 	defer rd.Close()
 	cmp, err := evaluateRun(opts.cmdContext, r, rd, evalSettings{
 		Checkpoint: opts.Checkpoint, Split: opts.Split, Streams: opts.Streams, Warmup: opts.Warmup,
-		NoRNN: opts.NoRNN, Quiet: opts.JSON,
+		NoRNN: opts.NoRNN, Quiet: opts.JSON, Threads: opts.Threads,
 	})
 	if err != nil {
 		return err
@@ -111,6 +116,7 @@ type evalSettings struct {
 	Streams, Warmup int
 	NoRNN           bool
 	Quiet           bool
+	Threads         int
 }
 
 // evaluateRun compares a run's model and its baselines (runs.Evaluate,
@@ -118,7 +124,7 @@ type evalSettings struct {
 func evaluateRun(cc cmdContext, r *configs.Run, rd *runs.Dir, s evalSettings) (*eval.Comparison, error) {
 	prog := newStageProgress(cc.deps, s.Quiet)
 	cmp, err := runs.Evaluate(cc.ctx, r, rd, runs.EvalOptions{Checkpoint: s.Checkpoint, Split: s.Split, Streams: s.Streams, Warmup: s.Warmup,
-		BaselinesOnly: s.NoRNN, Progress: prog.Func(), Note: prog.Status, Stdin: cc.In})
+		BaselinesOnly: s.NoRNN, Threads: s.Threads, Progress: prog.Func(), Note: prog.Status, Stdin: cc.In})
 	var me *runs.ModelError
 	switch {
 	case errors.As(err, &me):

@@ -117,7 +117,7 @@ With --samples N above 1, each continuation is preceded by a line
 	f.StringArrayVar(&opts.Stop, "stop", nil, "end a continuation before this text (repeatable)")
 	f.BoolVar(&opts.JSON, "json", false, "print each continuation as a JSON object with per-token log-probabilities")
 	f.BoolVar(&opts.MapUnknown, "map-unknown", false, "read prompt characters or words outside the vocabulary as the unknown symbol")
-	addThreadsFlag(cmd, &opts.Threads)
+	addThreadsFlag(cmd, &opts.Threads, 1, " (on the model's matrix products)")
 	return cmd
 }
 

@@ -97,7 +97,7 @@ bounded memory) and implies --sort.`,
 	f.BoolVar(&opts.JSON, "json", false, "print one JSON object per unit")
 	f.BoolVar(&opts.Sort, "sort", false, "print the most surprising units first (bits per character)")
 	f.IntVar(&opts.Top, "top", 0, "print only the N most surprising units (implies --sort)")
-	f.IntVar(&opts.Threads, "threads", 1, "pieces the model scores at the same time, one thread each (baselines use 1; the output does not depend on it)")
+	addThreadsFlag(cmd, &opts.Threads, 1, " (pieces scored at the same time, one thread each; baselines use one)")
 	return cmd
 }
 

@@ -76,10 +76,11 @@ func thousands(n int64) string {
 	return neg + s
 }
 
-// addThreadsFlag adds --threads, the thread count of the model's matrix
-// products. Results do not depend on it.
-func addThreadsFlag(cmd *cobra.Command, dst *int) {
-	cmd.Flags().IntVar(dst, "threads", 1, "threads for the model's matrix products (the output does not depend on it)")
+// addThreadsFlag adds --threads with its one meaning on every verb that
+// computes: the threads the command computes with (def when not given).
+// Results do not depend on it.
+func addThreadsFlag(cmd *cobra.Command, dst *int, def int, how string) {
+	cmd.Flags().IntVar(dst, "threads", def, "threads to compute with"+how+"; the results do not depend on it")
 }
 
 // usePool gives m a pool of n threads and returns the function that

@@ -33,7 +33,10 @@ type trainOptions struct {
 	For     time.Duration
 	Until   string
 	Steps   int
+	Threads int
 	Quiet   bool
+
+	threadsSet bool // --threads was given
 }
 
 func newTrainCmd(d *deps, runF func(*trainOptions) error) *cobra.Command {
@@ -59,6 +62,7 @@ save and exit 3; a second signal exits at once with status 130.`,
 		Args: exactArgs(1, "one run file"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
+			opts.threadsSet = cmd.Flags().Changed("threads")
 			opts.Config = args[0]
 			if runF != nil {
 				return runF(opts)
@@ -73,6 +77,7 @@ save and exit 3; a second signal exits at once with status 130.`,
 	f.StringVar(&opts.Until, "until", "", "stop at this local time of day (HH:MM, the next occurrence) or an RFC 3339 time")
 	f.IntVar(&opts.Steps, "steps", 0, "stop at this many training steps in all (sets training.max_steps)")
 	f.BoolVar(&opts.Quiet, "quiet", false, "print no progress, only warnings and the final summary")
+	addThreadsFlag(cmd, &opts.Threads, 0, " (sets training.threads, which may change on resume; 0: as the model's shapes and the cores suit; default: the run file's)")
 	addSetFlag(cmd, &opts.Set)
 	return cmd
 }
@@ -98,6 +103,9 @@ func runTrain(opts *trainOptions) error {
 	sets := opts.Set
 	if opts.Steps > 0 {
 		sets = append(append([]string(nil), sets...), fmt.Sprintf("training.max_steps=%d", opts.Steps))
+	}
+	if opts.threadsSet {
+		sets = append(append([]string(nil), sets...), fmt.Sprintf("training.threads=%d", opts.Threads))
 	}
 	r, err := configs.Load(opts.Config, sets)
 	if err != nil {
