@@ -17,6 +17,13 @@ type Config struct {
 	// training too. Zero means only at those ends. Default 500.
 	EverySteps int `toml:"every_steps"`
 
+	// EveryMinutes also measures the validation split when this many
+	// minutes of wall-clock time have passed since the last measurement.
+	// With the plateau schedule or early stopping, whose course depends on
+	// the validations, a time cadence makes a run depend on the machine's
+	// speed: use EverySteps for those. Zero means no time cadence. Default 0.
+	EveryMinutes float64 `toml:"every_minutes"`
+
 	// NgramOrders lists the n-gram orders fitted as baselines, each from 1
 	// (unigram) to MaxOrder. The counts are taken once at the largest order
 	// and shared by the smaller ones. Empty means no n-gram baselines.
@@ -110,6 +117,9 @@ func (c Config) Validate() error {
 	var errs []error
 	bad := func(key string, format string, args ...any) {
 		errs = append(errs, fmt.Errorf("%s: "+format, append([]any{key}, args...)...))
+	}
+	if c.EveryMinutes < 0 || math.IsNaN(c.EveryMinutes) {
+		bad("every_minutes", "%v is not 0 or more", c.EveryMinutes)
 	}
 	if c.EverySteps < 0 {
 		bad("every_steps", "%d is negative", c.EverySteps)

@@ -111,10 +111,11 @@ type session struct {
 	tokens      int64 // trained tokens in all
 	startTokens int64
 
-	lastSave      time.Time
-	lastSavedStep int64
-	logp          []float64
-	valChars      int64 // characters of the validation split, the bits-per-character denominator
+	lastSave       time.Time
+	lastValidation time.Time // of this invocation, or its start
+	lastSavedStep  int64
+	logp           []float64
+	valChars       int64 // characters of the validation split, the bits-per-character denominator
 
 	// Since the last metrics line.
 	winLoss   float64
@@ -176,7 +177,7 @@ func Train(ctx context.Context, r *configs.Run, dir string, o TrainOptions) (*Re
 		if !hadRunFile {
 			os.Remove(d.RunFile())
 		}
-		os.Remove(s.ckdir) // only when empty
+		os.Remove(s.ckdir)             // only when empty
 		os.Remove(d.File(OutcomeFile)) // the training outcome of this invocation
 		if d.created {
 			d.Close()
@@ -231,7 +232,7 @@ func (s *session) warn(format string, args ...any) {
 func (s *session) run() (*Result, error) {
 	r, d := s.r, s.d
 	now := s.o.Now()
-	s.start, s.lastSave = now, now
+	s.start, s.lastSave, s.lastValidation = now, now, now
 	if err := s.setDeadline(now); err != nil {
 		return nil, err
 	}
@@ -567,7 +568,7 @@ func (s *session) loop() (string, error) {
 			s.o.AfterStep(info.Step, s.net)
 		}
 
-		if every := r.Evaluation.EverySteps; every > 0 && info.Step%int64(every) == 0 {
+		if every := r.Evaluation.EverySteps; (every > 0 && info.Step%int64(every) == 0) || s.validationTimeDue() {
 			if err := s.validate(); err != nil {
 				return "", err
 			}
@@ -584,6 +585,13 @@ func (s *session) loop() (string, error) {
 			}
 		}
 	}
+}
+
+// validationTimeDue says evaluation.every_minutes have passed since the
+// last validation (or the start of this invocation).
+func (s *session) validationTimeDue() bool {
+	m := s.r.Evaluation.EveryMinutes
+	return m > 0 && s.o.Now().Sub(s.lastValidation) >= time.Duration(m*float64(time.Minute))
 }
 
 func (s *session) periodicDue(step int64) bool {
@@ -677,6 +685,7 @@ func (s *session) validate() error {
 	val := Validation{Step: step, CrossEntropy: res.CrossEntropyNats / float64(res.Tokens), Perplexity: res.Perplexity, BitsPerChar: res.BitsPerChar}
 	s.prog.ValidationDue = false
 	s.prog.LastValidationStep = step
+	s.lastValidation = s.o.Now()
 	s.prog.LastBitsPerChar = val.BitsPerChar
 	val.LearningRateDivided = s.tr.ReportValidation(val.CrossEntropy)
 	val.Improved = !s.prog.HaveBest || val.CrossEntropy < s.prog.BestValidation

@@ -497,3 +497,27 @@ func TestValidationDenominator(t *testing.T) {
 		t.Errorf("validation bits per character %v, want %v (bits over the %d counted characters, not the %d of the split)", got, want, counted, all)
 	}
 }
+
+// TestValidationEveryMinutes: with evaluation.every_minutes, validation
+// follows the clock (a minute a step here), not the step count.
+func TestValidationEveryMinutes(t *testing.T) {
+	dir := t.TempDir()
+	r := tinyRun(t, dir)
+	r.Evaluation.EverySteps, r.Evaluation.EveryMinutes = 0, 4
+	now := fixedClock()
+	_, rec, err := train(t, context.Background(), r, filepath.Join(dir, "run"), 10, TrainOptions{
+		Now:       func() time.Time { return now },
+		AfterStep: func(int64, *rnn.Model[float32]) { now = now.Add(time.Minute) },
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var steps []int64
+	for _, v := range rec.validations {
+		steps = append(steps, v.Step)
+	}
+	// Steps 4 and 8 by the clock, then step 10 at the end of the run.
+	if want := []int64{4, 8, 10}; !reflect.DeepEqual(steps, want) {
+		t.Errorf("validated at steps %v, want %v", steps, want)
+	}
+}
