@@ -57,7 +57,7 @@ and cached in DIR. A run file alone fits them without caching.`,
 	return cmd
 }
 
-// resolveTarget reads the run of a "CONFIG-or-RUN" argument: a run
+// resolveTarget reads the run of a run-file-or-run-directory argument: a run
 // directory's saved run file, or the given run file with runFlag as its
 // directory ("" for none).
 func resolveTarget(target, runFlag string, sets []string) (*configs.Run, string, error) {
