@@ -49,6 +49,16 @@ func (h Holder) LastSeen() time.Time {
 	return h.Started
 }
 
+// Alive reports whether the holder looks alive at now: on this host,
+// whether its process exists; on another host, whose processes cannot be
+// seen, whether its last heartbeat is younger than StaleAfter.
+func (h Holder) Alive(now time.Time) bool {
+	if h.Host == thisHost() {
+		return processAlive(h.PID)
+	}
+	return now.Sub(h.LastSeen()) < StaleAfter
+}
+
 // String gives "pid 1234 on host h (since 2026-12-01T19:18:52Z)".
 func (h Holder) String() string {
 	s := fmt.Sprintf("pid %d on host %s", h.PID, h.Host)
