@@ -266,6 +266,10 @@ func sweepRunEnd(opts *sweepOptions, index int, out *sweep.Outcome, err error, s
 	switch {
 	case errors.Is(err, runs.ErrLocked):
 		return &exitError{code: exitBusy, err: fmt.Errorf("run %d: %w", index, err)}
+	case errors.Is(err, context.Canceled):
+		// Stopped after training, while fitting baselines or evaluating:
+		// the training is saved, and running it again finishes the rest.
+		return &exitError{code: exitInterrupted, err: fmt.Errorf("run %d stopped before its evaluation finished; the training is saved: run it again to finish", index)}
 	case errors.Is(err, sweep.ErrNotInPlan), errors.Is(err, runs.ErrGaveUp):
 		return forGood(fmt.Errorf("run %d: %w", index, err))
 	case err != nil:
@@ -423,12 +427,23 @@ func ladderCandidates(l *eval.Ladder) []*candidate {
 	return out
 }
 
+// recordedPlan is the plan status and compare show: the one recorded in
+// the sweep directory (even when the sweep file has changed since), else
+// the sweep file's own.
+func recordedPlan(opts *sweepOptions, sw *sweep.Sweep) (*sweep.Plan, error) {
+	p, err := sweep.ReadPlan(sw.Dir)
+	if err != nil || p != nil {
+		return p, err
+	}
+	return planSweep(opts.ctx, sw, false)
+}
+
 func runSweepStatus(opts *sweepOptions) error {
 	sw, err := loadSweep(opts.Sweep)
 	if err != nil {
 		return err
 	}
-	p, err := planSweep(opts.ctx, sw, false)
+	p, err := recordedPlan(opts, sw)
 	if err != nil {
 		return err
 	}
@@ -495,7 +510,7 @@ func runSweepCompare(opts *sweepOptions) error {
 	if err != nil {
 		return err
 	}
-	p, err := planSweep(opts.ctx, sw, false)
+	p, err := recordedPlan(opts, sw)
 	if err != nil {
 		return err
 	}

@@ -288,6 +288,41 @@ func TestSweepExitStatuses(t *testing.T) {
 	}
 }
 
+// TestSweepStealStale leaves a lock on a run directory as a dead node of
+// another host would, and checks that 'sweep run' leaves it alone, with
+// the busy status and the advice, until --steal-stale takes it over.
+func TestSweepStealStale(t *testing.T) {
+	skipInShort(t)
+	dir := t.TempDir()
+	sweepFile := tinySweep(t, dir, "s.toml", "s.runs", 10)
+	run0 := filepath.Join(dir, "s.runs", "run-0000")
+	if err := os.MkdirAll(run0, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	lock := func(age time.Duration) {
+		beat := time.Now().UTC().Add(-age).Truncate(time.Second)
+		h := runs.Holder{Host: "node-17.cluster.example", PID: 4711, Started: beat.Add(-time.Hour), Heartbeat: beat}
+		b, _ := json.Marshal(h)
+		if err := os.WriteFile(runs.Layout(run0).Lock(), b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+	lock(time.Minute)
+	code, _, stderr := weftIn(t, nil, "sweep", "run", sweepFile, "--index", "0", "--steal-stale")
+	if code != exitBusy || !strings.Contains(stderr, "pid 4711 on host node-17.cluster.example") || !strings.Contains(stderr, "last heartbeat 1m0s ago") {
+		t.Errorf("fresh heartbeat, --steal-stale: exit %d, %q; want %d naming the holder", code, stderr, exitBusy)
+	}
+	lock(time.Hour)
+	code, _, stderr = weftIn(t, nil, "sweep", "run", sweepFile, "--index", "0")
+	if code != exitBusy || !strings.Contains(stderr, "take it over with --steal-stale") {
+		t.Errorf("stale heartbeat without --steal-stale: exit %d, %q; want %d with the advice", code, stderr, exitBusy)
+	}
+	code, out, stderr := weftIn(t, nil, "sweep", "run", sweepFile, "--index", "0", "--steal-stale")
+	if code != exitOK || !strings.Contains(stderr, "took over the stale lock of "+run0+", held by pid 4711 on host node-17.cluster.example") {
+		t.Errorf("stale heartbeat with --steal-stale: exit %d, %q, %q; want 0 and the takeover reported", code, out, stderr)
+	}
+}
+
 // k8sJob is the part of the Kubernetes batch/v1 Job schema the example
 // manifest uses, field names as in the API reference
 // (kubernetes.io/docs/reference/kubernetes-api/workload-resources/job-v1/);

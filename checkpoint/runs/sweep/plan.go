@@ -241,7 +241,11 @@ func samePlan(a, b *Plan) bool {
 }
 
 func (sw *Sweep) reconcile(old *Plan, exp [][]Setting) (*Plan, error) {
-	p := &Plan{FileHeader: planHeader, Sweep: sw.Path}
+	abs, err := filepath.Abs(sw.Path)
+	if err != nil {
+		abs = sw.Path
+	}
+	p := &Plan{FileHeader: planHeader, Sweep: abs}
 	recorded := map[string]Entry{}
 	if old != nil {
 		for _, e := range old.Runs {

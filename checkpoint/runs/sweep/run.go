@@ -10,6 +10,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
 	"time"
 
 	"weft/checkpoint/runs"
@@ -160,6 +161,11 @@ func (sw *Sweep) Run(ctx context.Context, p *Plan, index int, o RunOptions) (*Ou
 		}
 	}
 	res, err := runs.Train(ctx, r, dir, o.Train)
+	var le *runs.LockedError
+	if errors.As(err, &le) && le.Note != "" && !strings.Contains(err.Error(), le.Note) {
+		// Keep the lock's advice (how to clear a lock from another host).
+		err = fmt.Errorf("%w; %s", err, le.Note)
+	}
 	if err != nil {
 		return nil, sw.failed(e, err)
 	}
