@@ -270,7 +270,9 @@ func sweepRunEnd(opts *sweepOptions, index int, out *sweep.Outcome, err error, s
 		// Stopped after training, while fitting baselines or evaluating:
 		// the training is saved, and running it again finishes the rest.
 		return &exitError{code: exitInterrupted, err: fmt.Errorf("run %d stopped before its evaluation finished; the training is saved: run it again to finish", index)}
-	case errors.Is(err, sweep.ErrNotInPlan), errors.Is(err, runs.ErrGaveUp):
+	case errors.Is(err, sweep.ErrNotInPlan):
+		return forGood(err)
+	case errors.Is(err, runs.ErrGaveUp):
 		return forGood(fmt.Errorf("run %d: %w", index, err))
 	case err != nil:
 		var ce *configs.Error

@@ -275,7 +275,7 @@ func TestSweepExitStatuses(t *testing.T) {
 		code int
 		msg  string
 	}{
-		{[]string{"sweep", "run", sweepFile, "--index", "3"}, exitForGood, "index 3: index not in the sweep plan (it has 0-2)"},
+		{[]string{"sweep", "run", sweepFile, "--index", "3"}, exitForGood, "run 3: index not in the sweep plan (it has 0-2)"},
 		{[]string{"sweep", "run", bad, "--index", "0"}, exitForGood, `unknown run-file key "model.hidden"`},
 		{[]string{"sweep", "plan", bad}, exitForGood, `unknown run-file key "model.hidden"`},
 		{[]string{"sweep", "run", sweepFile}, exitUsage, "no run index"},

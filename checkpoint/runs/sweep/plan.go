@@ -72,7 +72,7 @@ func (p *Plan) Entry(index int) (Entry, error) {
 			return e, nil
 		}
 	}
-	return Entry{}, fmt.Errorf("index %d: %w (it has %s)", index, ErrNotInPlan, p.Indices())
+	return Entry{}, fmt.Errorf("run %d: %w (it has %s)", index, ErrNotInPlan, p.Indices())
 }
 
 // Indices gives the plan's indices as ranges, "0-5,7": the form of a job
