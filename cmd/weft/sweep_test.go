@@ -171,12 +171,28 @@ func TestSweepConcurrent(t *testing.T) {
 	if len(st.Runs) != 3 || st.Runs[1].State != sweep.StateStale || st.Runs[1].Step < killedAt[0].Step {
 		t.Errorf("status after the kill: got %+v, want run 1 stale at step %d or later", st.Runs, killedAt[0].Step)
 	}
-	again := start(1, 0)
-	kids = append(kids, again)
-	for i, k := range []child{kids[0], kids[2], again} {
+	// Runs 0 and 2 finish (one of them fitted the shared baselines), then
+	// run 1 resumes: it must reuse them, not fit them again.
+	for i, k := range []child{kids[0], kids[2]} {
 		if err := k.cmd.Wait(); err != nil {
 			t.Fatalf("child %d: %v: %s", i, err, k.errb.String())
 		}
+	}
+	manifests, _ := filepath.Glob(filepath.Join(sweepDir, sweep.BaselinesDir, "*", runs.ManifestFile))
+	if len(manifests) != 1 {
+		t.Fatalf("shared baselines after runs 0 and 2: got manifests %v, want one", manifests)
+	}
+	fitted, err := os.Stat(manifests[0])
+	if err != nil {
+		t.Fatal(err)
+	}
+	again := start(1, 0)
+	kids = append(kids, again)
+	if err := again.cmd.Wait(); err != nil {
+		t.Fatalf("run 1 again: %v: %s", err, again.errb.String())
+	}
+	if now, err := os.Stat(manifests[0]); err != nil || !os.SameFile(fitted, now) {
+		t.Errorf("run 1 fitted the shared baselines again (%v)", err)
 	}
 	if want := "resuming from " + filepath.Join(ck1, checkpoint.StepName(killedAt[0].Step)); !strings.Contains(again.errb.String(), want) {
 		t.Errorf("run 1 again: got %q, want %q", again.errb.String(), want)
@@ -258,6 +274,16 @@ func TestSweepLocalRunner(t *testing.T) {
 	}
 	name := checkpoint.StepName(20)
 	sameTrainingState(t, filepath.Join(dir, "all.runs", "run-0002", checkpointsDir, name), filepath.Join(dir, "one.runs", "run-0002", checkpointsDir, name))
+
+	// A budget raised in the base file: the done run trains on from its
+	// last checkpoint instead of exiting at once.
+	base := filepath.Join(dir, "run.toml")
+	b, _ = os.ReadFile(base)
+	os.WriteFile(base, bytes.Replace(b, []byte("max_steps = 20"), []byte("max_steps = 30"), 1), 0o644)
+	code, out, stderr = weftIn(t, nil, "sweep", "run", one, "--index", "2")
+	if code != exitOK || !strings.Contains(out, "at step 30") || !strings.Contains(stderr, "resuming from") {
+		t.Errorf("raised budget: exit %d, %q, %q; want a resume to step 30", code, out, stderr)
+	}
 }
 
 // TestSweepExitStatuses checks the documented statuses of failures for

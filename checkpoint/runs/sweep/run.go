@@ -44,6 +44,23 @@ type Record struct {
 	Steps   int64       `json:"steps"`
 	BestBPC runs.Number `json:"best_validation_bits_per_char"`
 	Reason  string      `json:"reason,omitempty"`
+	// RunFile is the SHA-256 of the resolved run file the run finished
+	// with (training.threads left out): a done run whose run file has
+	// changed since (a budget raised in the base file) is run again, and
+	// resumes.
+	RunFile string `json:"run_file_sha256,omitempty"`
+}
+
+// runFileDigest is Record.RunFile for r.
+func runFileDigest(r *configs.Run) string {
+	c := *r
+	c.Training.Threads = 0
+	b, err := configs.Encode(&c)
+	if err != nil {
+		return ""
+	}
+	h := sha256.Sum256(b)
+	return hex.EncodeToString(h[:])
 }
 
 func (sw *Sweep) recordPath(e Entry) string {
@@ -120,7 +137,10 @@ type Outcome struct {
 // sweep directory (runs.Train: a fresh start, or a resume of a partial
 // run), then fits or reuses the baselines shared by the runs of equal data
 // settings, evaluates it through o.Evaluate and records it as done. A run
-// recorded as done returns at once with AlreadyDone. A cancelled ctx
+// recorded as done with the same run file returns at once with
+// AlreadyDone; one whose run file has changed since (a budget raised in the
+// base file) is trained on, and runs.Train refuses the changes a resume
+// cannot take, naming the keys. A cancelled ctx
 // stops training after a save: the outcome's Result says Interrupted and
 // nothing is recorded. A run directory held by a live process is an error
 // wrapping runs.ErrLocked. Any other error is recorded as the run's
@@ -135,12 +155,6 @@ func (sw *Sweep) Run(ctx context.Context, p *Plan, index int, o RunOptions) (*Ou
 		note = func(string) {}
 	}
 	out := &Outcome{Entry: e}
-	if rec, err := sw.ReadRecord(e); err != nil {
-		return nil, err
-	} else if rec != nil && rec.State == StateDone {
-		out.AlreadyDone = true
-		return out, nil
-	}
 	var more []string
 	if o.Threads > 0 {
 		more = append(more, fmt.Sprintf("training.threads=%d", o.Threads))
@@ -148,6 +162,12 @@ func (sw *Sweep) Run(ctx context.Context, p *Plan, index int, o RunOptions) (*Ou
 	r, err := sw.Resolve(e, more...)
 	if err != nil {
 		return nil, err
+	}
+	if rec, err := sw.ReadRecord(e); err != nil {
+		return nil, err
+	} else if rec != nil && rec.State == StateDone && rec.RunFile == runFileDigest(r) {
+		out.AlreadyDone = true
+		return out, nil
 	}
 	dir := sw.RunDir(e)
 	if o.StealStale {
@@ -213,7 +233,7 @@ func (sw *Sweep) finish(ctx context.Context, e Entry, r *configs.Run, dir string
 		}
 	}
 	return sw.writeRecord(e, Record{State: StateDone, Time: time.Now().UTC().Truncate(time.Second),
-		Steps: res.Steps, BestBPC: runs.Number(res.BestValBitsPerChar), Reason: res.Reason})
+		Steps: res.Steps, BestBPC: runs.Number(res.BestValBitsPerChar), Reason: res.Reason, RunFile: runFileDigest(r)})
 }
 
 // BaselinesKey names the shared baselines folder of a run: a digest of
