@@ -144,8 +144,11 @@ func startSlurm(t *testing.T) *slurmCluster {
 	if mem == nil {
 		t.Fatalf("slurmd -C: no RealMemory in %q", hw)
 	}
-	// cred_expire=5 (the least Slurm takes; 120 s by default) is also how
-	// long a requeued task waits before it may start again.
+	// cred_expire (the job credential's lifetime, 120 s by default: the
+	// AuthInfo entry of slurm.conf's manual page) is also how long a
+	// requeued task waits before it may start again; 5 is the least this
+	// Slurm took here (slurmctld 22.05 logged "AuthInfo=cred_expire=2
+	// invalid" and kept 120).
 	s := filepath.Join(dir, "slurm")
 	conf := fmt.Sprintf(`ClusterName=weftci
 SlurmctldHost=localhost(127.0.0.1)
