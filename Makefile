@@ -11,7 +11,7 @@ LDFLAGS   := -X main.version=$(VERSION)
 RACE_PKGS := ./rnn/linalg/... ./checkpoint/... ./cmd/...
 FUZZTIME  ?= 10s
 
-.PHONY: all build test demo bench bench-peer fuzz lint docs references corpora onnxruntime onnx-proto onnx-references clean check-go
+.PHONY: all build test demo bench bench-peer fuzz lint docs references corpora onnxruntime slurm onnx-proto onnx-references clean check-go
 
 all: build
 
@@ -29,7 +29,12 @@ corpora:
 onnxruntime:
 	@./testdata/fetch-onnxruntime.sh
 
-test: check-go corpora onnxruntime
+# Debian's Slurm and munge for the single-node Slurm test of cmd/weft
+# (installed when root; otherwise the script says what is missing).
+slurm:
+	@./testdata/sweep/install-slurm.sh
+
+test: check-go corpora onnxruntime slurm
 	$(GO) mod download
 	$(GO) vet ./...
 	$(GO) test -count=1 ./...

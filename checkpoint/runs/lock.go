@@ -5,8 +5,25 @@ import (
 	"errors"
 	"fmt"
 	"os"
+	"sync"
 	"time"
 )
+
+// The heartbeat of a held lock. While a process holds a run directory it
+// rewrites the heartbeat time in the lock file every HeartbeatEvery. A lock
+// file written on another host whose last heartbeat is older than
+// StaleAfter belongs to a run that has most likely died there (a crashed or
+// powered-off node): StealStale removes it, which a scheduler's retry on a
+// new node does with 'weft sweep run --steal-stale'. flock(2) does not reach
+// across the hosts of a network file system, so the heartbeat is the only
+// sign of life one host sees of another's run.
+const (
+	HeartbeatEvery = time.Minute
+	StaleAfter     = 10 * time.Minute
+)
+
+// heartbeatEvery is HeartbeatEvery; tests shorten it.
+var heartbeatEvery = HeartbeatEvery
 
 // ErrLocked is wrapped by the error Lock returns when another live process
 // holds the directory; errors.As gives the *LockedError with the holder.
@@ -18,6 +35,28 @@ type Holder struct {
 	Host    string    `json:"host"`
 	PID     int       `json:"pid"`
 	Started time.Time `json:"started"`
+	// Heartbeat is the last time the holder said it was alive (UTC, whole
+	// seconds); zero in lock files written before heartbeats existed.
+	Heartbeat time.Time `json:"heartbeat,omitzero"`
+}
+
+// LastSeen is the holder's last heartbeat, or its start time when it has
+// written none.
+func (h Holder) LastSeen() time.Time {
+	if h.Heartbeat.After(h.Started) {
+		return h.Heartbeat
+	}
+	return h.Started
+}
+
+// Alive reports whether the holder looks alive at now: on this host,
+// whether its process exists; on another host, whose processes cannot be
+// seen, whether its last heartbeat is younger than StaleAfter.
+func (h Holder) Alive(now time.Time) bool {
+	if h.Host == thisHost() {
+		return processAlive(h.PID)
+	}
+	return now.Sub(h.LastSeen()) < StaleAfter
 }
 
 // String gives "pid 1234 on host h (since 2026-12-01T19:18:52Z)".
@@ -64,6 +103,10 @@ type DirLock struct {
 	path string
 	file *os.File // open with flock held; nil for the portable lock or after Unlock
 	held bool
+
+	mu       sync.Mutex    // guards file and Held.Heartbeat against the heartbeat goroutine
+	stopBeat chan struct{} // closed by Unlock
+	beatDone chan struct{} // closed when the heartbeat goroutine returns
 }
 
 // Lock takes the run directory dir for this process, writing the host, the
@@ -77,24 +120,90 @@ type DirLock struct {
 // created exclusively and a leftover one counts as stale only when it names
 // this host and a process that no longer exists.
 //
-// The lock is only as good as the file system's flock: local disks are
-// fine; a network file system without lock support would let two hosts in.
+// flock does not reach across the hosts of a network file system, so a
+// lock file that names another host is never taken over on the strength of
+// flock alone: while its heartbeat is younger than StaleAfter the holder is
+// taken to be alive, and after that the lock is still refused until
+// StealStale removes it. While held, the lock's heartbeat is refreshed
+// every HeartbeatEvery by a goroutine that Unlock stops.
 func Lock(dir string) (*DirLock, error) {
 	me := Holder{PID: os.Getpid(), Started: time.Now().UTC().Truncate(time.Second)}
-	me.Host, _ = os.Hostname()
-	if me.Host == "" {
-		me.Host = "unknown"
-	}
+	me.Heartbeat = me.Started
+	me.Host = thisHost()
 	l, err := lockDir(dir, me)
 	if err != nil {
 		return nil, err
 	}
+	l.stopBeat, l.beatDone = make(chan struct{}), make(chan struct{})
+	go l.heartbeat()
 	return l, nil
+}
+
+func thisHost() string {
+	h, _ := os.Hostname()
+	if h == "" {
+		h = "unknown"
+	}
+	return h
+}
+
+// heartbeat rewrites the lock file's heartbeat every heartbeatEvery until
+// Unlock.
+func (l *DirLock) heartbeat() {
+	defer close(l.beatDone)
+	t := time.NewTicker(heartbeatEvery)
+	defer t.Stop()
+	for {
+		select {
+		case <-l.stopBeat:
+			return
+		case now := <-t.C:
+			l.Beat(now)
+		}
+	}
+}
+
+// Beat records now as the holder's heartbeat in the lock file. The
+// heartbeat goroutine calls it; a failed write is left for the next beat
+// (a holder that cannot write its lock file will look stale, which is
+// what it is to other hosts).
+func (l *DirLock) Beat(now time.Time) {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	if !l.held {
+		return
+	}
+	l.Held.Heartbeat = now.UTC().Truncate(time.Second)
+	b := encodeHolder(l.Held)
+	if l.file != nil {
+		// Write over the old content, then cut to length: the times are
+		// of fixed width, so a reader never sees a short file.
+		if _, err := l.file.WriteAt(b, 0); err == nil {
+			l.file.Truncate(int64(len(b)))
+		}
+		return
+	}
+	if f, err := os.OpenFile(l.path, os.O_WRONLY, 0); err == nil {
+		if _, err := f.WriteAt(b, 0); err == nil {
+			f.Truncate(int64(len(b)))
+		}
+		f.Close()
+	}
 }
 
 // Unlock releases the directory and removes the lock file. Calling it again
 // does nothing.
 func (l *DirLock) Unlock() error {
+	if l.stopBeat != nil {
+		select {
+		case <-l.stopBeat:
+		default:
+			close(l.stopBeat)
+			<-l.beatDone
+		}
+	}
+	l.mu.Lock()
+	defer l.mu.Unlock()
 	if !l.held {
 		return nil
 	}
@@ -168,7 +277,7 @@ func lockExcl(dir string, me Holder) (*DirLock, error) {
 			return nil, &LockedError{Dir: dir, Note: "if no run uses it, remove " + path}
 		}
 		if prev.Host != me.Host {
-			return nil, &LockedError{Dir: dir, Holder: prev, Note: "if that run is gone, remove " + path}
+			return nil, otherHostError(dir, prev, time.Now())
 		}
 		if processAlive(prev.PID) {
 			return nil, &LockedError{Dir: dir, Holder: prev}
@@ -180,3 +289,78 @@ func lockExcl(dir string, me Holder) (*DirLock, error) {
 	}
 	return nil, &LockedError{Dir: dir, Note: "the lock file keeps changing"}
 }
+
+// otherHostError refuses a lock file written on another host, saying how
+// old its heartbeat is and when it may be taken over.
+func otherHostError(dir string, prev *Holder, now time.Time) *LockedError {
+	note := "if that run is gone, remove " + Layout(dir).Lock()
+	seen := prev.LastSeen()
+	switch age := now.Sub(seen).Truncate(time.Second); {
+	case seen.IsZero():
+		note += " or take it over with --steal-stale (no heartbeat recorded)"
+	case age >= StaleAfter:
+		note += fmt.Sprintf(" or take it over with --steal-stale (last heartbeat %s ago, over the %s limit)", age, StaleAfter)
+	default:
+		note += fmt.Sprintf(" (last heartbeat %s ago)", age)
+	}
+	return &LockedError{Dir: dir, Holder: prev, Note: note}
+}
+
+// ReadHolder reads the holder recorded in the lock file of the run
+// directory dir; nil, with no error, when there is no lock file or it holds
+// nothing readable (it is being written, or was left empty).
+func ReadHolder(dir string) (*Holder, error) {
+	b, err := os.ReadFile(Layout(dir).Lock())
+	if errors.Is(err, os.ErrNotExist) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, fmt.Errorf("lock of run directory %q: %w", dir, err)
+	}
+	return parseHolder(b), nil
+}
+
+// ErrNotStale is wrapped by StealStale's error when the lock may not be
+// taken over.
+var ErrNotStale = errors.New("lock not stale")
+
+// StealStale removes the lock file of the run directory dir when it was
+// written on another host and its last heartbeat is at least StaleAfter
+// before now, and returns the holder it named; the caller then locks the
+// directory as usual. It returns nil and no error when there is no lock
+// file, or one this host wrote (Lock itself takes over a dead local
+// holder's lock). A lock from another host with a recent heartbeat is an
+// error wrapping ErrNotStale and ErrLocked.
+//
+// Only a lock whose holder is really gone should be stolen: a holder that
+// is alive but cut off from the file system for longer than StaleAfter
+// would go on writing beside the new one.
+func StealStale(dir string, now time.Time) (*Holder, error) {
+	prev, err := ReadHolder(dir)
+	if err != nil || prev == nil || prev.Host == thisHost() {
+		return nil, err
+	}
+	if age := now.Sub(prev.LastSeen()); age < StaleAfter {
+		return nil, &staleError{otherHostError(dir, prev, now)}
+	}
+	path := Layout(dir).Lock()
+	// Check again just before removing: another process on this host may
+	// have stolen and locked it meanwhile.
+	again, err := ReadHolder(dir)
+	if err != nil {
+		return nil, err
+	}
+	if again == nil || *again != *prev {
+		return nil, &staleError{&LockedError{Dir: dir, Holder: again, Note: "the lock file changed while being taken over"}}
+	}
+	if err := os.Remove(path); err != nil && !errors.Is(err, os.ErrNotExist) {
+		return nil, fmt.Errorf("take over the lock of run directory %q: %w", dir, err)
+	}
+	return prev, nil
+}
+
+// staleError is StealStale's refusal: a *LockedError that also wraps
+// ErrNotStale.
+type staleError struct{ *LockedError }
+
+func (e *staleError) Unwrap() []error { return []error{e.LockedError, ErrNotStale} }

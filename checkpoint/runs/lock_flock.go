@@ -8,6 +8,7 @@ import (
 	"io"
 	"os"
 	"syscall"
+	"time"
 )
 
 // lockDir takes an flock(2) on dir/lock. The kernel releases it when the
@@ -37,9 +38,18 @@ func lockDir(dir string, me Holder) (*DirLock, error) {
 			continue
 		}
 		b, err := io.ReadAll(io.LimitReader(f, 4096))
-		if err == nil {
-			err = writeHolder(f, me)
+		if err != nil {
+			f.Close()
+			return nil, fmt.Errorf("lock run directory %q: %s: %w", dir, LockFile, err)
 		}
+		// flock does not reach across the hosts of a network file
+		// system: a holder on another host is judged by its heartbeat,
+		// and never taken over here (StealStale does that).
+		if prev := parseHolder(b); prev != nil && prev.Host != me.Host {
+			f.Close()
+			return nil, otherHostError(dir, prev, time.Now())
+		}
+		err = writeHolder(f, me)
 		if err != nil {
 			f.Close()
 			return nil, fmt.Errorf("lock run directory %q: %s: %w", dir, LockFile, err)

@@ -221,6 +221,7 @@ and lives in a run directory (--run DIR).`,
 		newExportCmd(d, nil),
 		newBenchCmd(d, nil),
 		newRunsCmd(d, nil),
+		newSweepCmd(d, nil),
 	)
 	addCompletions(root)
 	return root
