@@ -209,6 +209,7 @@ and lives in a run directory (--run DIR).`,
 		newScoreCmd(d, nil),
 		newExportCmd(d, nil),
 		newBenchCmd(d, nil),
+		newReportCmd(d, nil),
 	)
 	return root
 }
