@@ -80,7 +80,7 @@ func Build(ctx context.Context, dir string, o Options) (*Data, error) {
 	if base == nil {
 		d.Missing["surprisal_baseline"] = "no best baseline to set beside the model: run 'weft eval --run " + dir + "' first"
 	}
-	s, err := NewSurprisal(ctx, o.Model, base, baseName, split, o.Data.Vocab, o.Stretch)
+	s, err := NewSurprisal(ctx, o.Model, base, baseName, split.Name, split.Tokens, split.TokenChars(nil), o.Stretch)
 	if err != nil {
 		return nil, err
 	}
@@ -157,18 +157,18 @@ func MedianBlock(bpc []float64) int {
 	return idx[(len(idx)-1)/2]
 }
 
-// NewSurprisal makes the surprisal view of split: block stretch (from 1;
-// 0: the median block) scored by m and, when not nil, by base.
-func NewSurprisal(ctx context.Context, m *checkpoint.Model, base eval.LanguageModel, baseName string, split *data.Split, v *data.Vocab, stretch int) (*Surprisal, error) {
-	toks := split.Tokens
+// NewSurprisal makes the surprisal view of the held-out split name, its
+// tokens toks spanning chars[i] characters each (nil: one): block stretch
+// (from 1; 0: the median block) scored by m and, when not nil, by base.
+func NewSurprisal(ctx context.Context, m *checkpoint.Model, base eval.LanguageModel, baseName, name string, toks, chars []int, stretch int) (*Surprisal, error) {
+	v := m.Vocab
 	if len(toks) == 0 {
-		return nil, fmt.Errorf("surprisal view: the %s split is empty", split.Name)
+		return nil, fmt.Errorf("surprisal view: the %s split is empty", name)
 	}
 	lp := make([]float64, len(toks))
 	if err := m.Net.LogProbs(ctx, lp, toks); err != nil {
-		return nil, fmt.Errorf("surprisal view: score the %s split: %w", split.Name, err)
+		return nil, fmt.Errorf("surprisal view: score the %s split: %w", name, err)
 	}
-	chars := split.TokenChars(nil)
 	bounds := Blocks(len(toks), chars, BlockChars)
 	nb := len(bounds) - 1
 	bpc := make([]float64, nb)
@@ -184,12 +184,12 @@ func NewSurprisal(ctx context.Context, m *checkpoint.Model, base eval.LanguageMo
 	blk := med
 	if stretch != 0 {
 		if stretch < 1 || stretch > nb {
-			return nil, fmt.Errorf("--stretch %d: the %s split has %d blocks of about %d characters (1 to %d)", stretch, split.Name, nb, BlockChars, nb)
+			return nil, fmt.Errorf("--stretch %d: the %s split has %d blocks of about %d characters (1 to %d)", stretch, name, nb, BlockChars, nb)
 		}
 		blk = stretch - 1
 	}
 	lo, hi := bounds[blk], bounds[blk+1]
-	s := &Surprisal{Split: split.Name, Block: blk + 1, Blocks: nb, Median: med + 1, Model: modelLabel(m),
+	s := &Surprisal{Split: name, Block: blk + 1, Blocks: nb, Median: med + 1, Model: modelLabel(m),
 		BitsPerChar: bpc[blk], BaselineBitsPerChar: Number(math.NaN())}
 
 	var blp []float64
