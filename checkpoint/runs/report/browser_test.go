@@ -43,6 +43,9 @@ const minColours = 6
 // chromium finds the browser; under CI a missing one fails the test.
 func chromium(t *testing.T) string {
 	t.Helper()
+	if testing.Short() {
+		t.Skip("starts a browser; run without -short")
+	}
 	for _, name := range []string{os.Getenv("WEFT_CHROMIUM"), "chromium", "chromium-browser"} {
 		if name == "" {
 			continue
