@@ -16,7 +16,8 @@ import (
 type reportOptions struct {
 	cmdContext
 	Run     string
-	Compare []string
+	Compare bool
+	Dirs    []string
 	Page    string
 	Stretch int
 }
@@ -24,7 +25,7 @@ type reportOptions struct {
 func newReportCmd(d *deps, runF func(*reportOptions) error) *cobra.Command {
 	opts := &reportOptions{}
 	cmd := &cobra.Command{
-		Use:   "report --run DIR | --compare DIR...",
+		Use:   "report (--run DIR | --compare DIR...)",
 		Short: "Write the morning report of a run: one self-contained HTML page",
 		Long: `Write report/index.html in the run directory: one self-contained page (no
 network, no external file) with the learning curves, the learning rate and
@@ -41,14 +42,18 @@ shows block N instead.
 --compare DIR... puts several runs on one page (--out, default
 runs-compared.html): their validation curves on shared axes and one table,
 best first.`,
-		Args: exactArgs(0, "no arguments (name the run with --run, or runs with --compare)"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
+			opts.Dirs = args
 			switch {
-			case opts.Run == "" && len(opts.Compare) == 0:
-				return usagef("give --run DIR or --compare DIR...")
-			case opts.Run != "" && len(opts.Compare) > 0:
+			case opts.Compare && opts.Run != "":
 				return usagef("give --run DIR or --compare DIR..., not both")
+			case opts.Compare && len(args) == 0:
+				return usagef("--compare takes the run directories as arguments: weft report --compare DIR...")
+			case !opts.Compare && opts.Run == "":
+				return usagef("give --run DIR or --compare DIR...")
+			case !opts.Compare && len(args) > 0:
+				return usagef("%s takes no arguments with --run, got %d (to put several runs on one page, use --compare DIR...)", cmd.CommandPath(), len(args))
 			case opts.Stretch < 0:
 				return usagef("--stretch must be a block number from 1, got %d", opts.Stretch)
 			}
@@ -60,16 +65,16 @@ best first.`,
 	}
 	f := cmd.Flags()
 	f.StringVar(&opts.Run, "run", "", "run directory to report on")
-	f.StringSliceVar(&opts.Compare, "compare", nil, "run directories to put on one page (repeat, or separate with commas)")
+	f.BoolVar(&opts.Compare, "compare", false, "put the run directories given as arguments on one page")
 	f.StringVar(&opts.Page, "out", "runs-compared.html", "page to write with --compare")
 	f.IntVar(&opts.Stretch, "stretch", 0, "block of held-out text for the surprisal view, from 1 (default: the median block)")
 	return cmd
 }
 
 func runReport(opts *reportOptions) error {
-	if len(opts.Compare) > 0 {
+	if opts.Compare {
 		var ds []*report.Data
-		for _, dir := range opts.Compare {
+		for _, dir := range opts.Dirs {
 			d, err := report.Gather(dir)
 			if err != nil {
 				return err

@@ -7,6 +7,7 @@ import (
 	"strings"
 	"testing"
 
+	"weft/checkpoint/runs"
 	"weft/checkpoint/runs/report"
 	"weft/rnn"
 )
@@ -65,6 +66,31 @@ func TestReportDuringTraining(t *testing.T) {
 	}
 	if st.State != report.StateEnded || len(st.Events) != 1 || !st.Events[0].Recovery {
 		t.Errorf("status %+v; want ended with one recovery", st)
+	}
+
+	// While another process holds the run directory, weft report draws
+	// what the files hold and says where the rest comes from.
+	lock, err := runs.Lock(runDir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	code, _, stderr = weftIn(t, nil, "report", "--run", runDir)
+	lock.Unlock()
+	if code != exitOK {
+		t.Fatalf("report on a held run: exit %d: %s", code, stderr)
+	}
+	held, _ := os.ReadFile(page)
+	if !strings.Contains(string(held), "while no other process holds the run directory") || strings.Contains(string(held), `id="shade-0"`) {
+		t.Error("the page of a held run should leave out the surprisal view and say why")
+	}
+
+	// A restart is a new run: the old recovery is not its.
+	trainStepHook = nil
+	if code, _, stderr := weftIn(t, nil, "train", cfg, "--run", runDir, "--restart", "--steps", "10"); code != exitOK {
+		t.Fatalf("restart: exit %d: %s", code, stderr)
+	}
+	if st, err := report.ReadStatus(runDir); err != nil || st == nil || len(st.Events) != 0 {
+		t.Errorf("status after --restart: %+v, %v; want no events", st, err)
 	}
 }
 
@@ -141,7 +167,7 @@ bootstrap_block_chars = 200
 		t.Fatalf("train: exit %d: %s", code, stderr)
 	}
 	both := filepath.Join(dir, "both.html")
-	if code, _, stderr := weftIn(t, nil, "report", "--compare", runDir, "--compare", charDir, "--out", both); code != exitOK {
+	if code, _, stderr := weftIn(t, nil, "report", "--compare", runDir, charDir, "--out", both); code != exitOK {
 		t.Fatalf("report --compare: exit %d: %s", code, stderr)
 	}
 	cmp, err := os.ReadFile(both)
@@ -157,7 +183,9 @@ bootstrap_block_chars = 200
 		t.Error("the comparison page lacks its curves")
 	}
 
-	if code, _, _ := weftIn(t, nil, "report"); code != exitUsage {
-		t.Errorf("report without --run: exit %d, want %d", code, exitUsage)
+	for _, args := range [][]string{{"report"}, {"report", "--compare"}, {"report", "--run", runDir, charDir}, {"report", "--run", runDir, "--compare", charDir}} {
+		if code, _, _ := weftIn(t, nil, args...); code != exitUsage {
+			t.Errorf("%q: exit %d, want %d", args, code, exitUsage)
+		}
 	}
 }

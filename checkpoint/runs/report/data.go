@@ -49,7 +49,7 @@ type Data struct {
 	Surprisal  *Surprisal  `json:"surprisal,omitempty"`
 	Samples    []Sample    `json:"samples,omitempty"`
 	// Missing says, per section, why it is absent.
-	Missing map[string]string `json:"missing,omitempty"`
+	Missing map[string]string `json:"-"`
 	Facts   Facts             `json:"facts"`
 }
 
@@ -165,7 +165,9 @@ func Gather(dir string) (*Data, error) {
 	if err != nil {
 		return nil, err
 	}
-	if st != nil {
+	if st == nil {
+		d.Ended = "how the run ended is not recorded (it was trained before weft kept a report, or its report folder was removed)"
+	} else {
 		d.State, d.Ended = st.State, st.Ended
 		d.Updated = st.Updated
 		for _, e := range st.Events {
@@ -208,12 +210,14 @@ func Gather(dir string) (*Data, error) {
 		}
 	}
 
+	d.Missing[SectionSurprisal] = "the surprisal view is drawn by 'weft report --run " + dir + "' while no other process holds the run directory"
+	d.Missing[SectionSamples] = "samples are drawn by 'weft report --run " + dir + "' while no other process holds the run directory"
 	cmp, err := readComparison(l.Report())
 	if err != nil {
 		return nil, err
 	}
 	if cmp == nil {
-		d.Missing[SectionComparison] = "no comparison yet: run 'weft eval --run " + dir + "' once the run has a checkpoint"
+		d.Missing[SectionComparison] = "no comparison yet: once the run has a checkpoint, run 'weft eval --run " + dir + "' and then 'weft report --run " + dir + "'"
 	} else {
 		d.Comparison = cmp
 		cmp.Bars = familyBars(cmp.Rows)

@@ -67,7 +67,8 @@ var pageTmpl = template.Must(template.New("page").Funcs(funcs).Parse(`<!DOCTYPE 
 <main>
 <header class="run">
 <p>weft · morning report</p>
-<h1>Run {{.Title}}</h1>
+<h1>Morning report: {{.Title}}</h1>
+<p>Run directory <code>{{.Run}}</code></p>
 {{if .Live}}<p><span class="state live" id="state">training</span> This page reloads itself every minute while the run trains. Data as of {{.AsOf}}.</p>
 {{else}}<p><span class="state" id="state">ended</span> {{.Ended}}. This page no longer reloads. Data as of {{.AsOf}}.</p>{{end}}
 </header>

@@ -105,6 +105,9 @@ func (w *Watcher) Started(s runs.Start) {
 	}
 	w.step, w.started = s.Step, true
 	w.st.State, w.st.Ended = StateLive, ""
+	if s.ResumedFrom == "" && s.Step == 0 {
+		w.st.Events = []Event{} // a fresh start (or --restart): the old warnings are not this run's
+	}
 	w.write()
 }
 
