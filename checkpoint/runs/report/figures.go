@@ -55,8 +55,18 @@ type series struct {
 	xy   plotter.XYs
 }
 
+// maxMarked is the most points a line draws with markers.
+const maxMarked = 60
+
+// curveHeadroom sets the top of a learning curve's axis: this many times
+// the highest of the first validation score and the reference, so that
+// the first steps of training (often several times higher) do not squash
+// the part a reader compares.
+const curveHeadroom = 1.5
+
 func newPlot(title, x, y string) *plot.Plot {
 	p := plot.New()
+	p.Legend.TextStyle.Font.Size = vg.Points(10)
 	p.Title.Text = title
 	p.X.Label.Text = x
 	p.Y.Label.Text = y
@@ -80,6 +90,9 @@ func addLines(p *plot.Plot, ss []series) error {
 		l.Dashes = dashes[i%len(dashes)]
 		pts.Shape = glyphs[i%len(glyphs)]
 		pts.Radius = vg.Points(2)
+		if len(s.xy) > maxMarked {
+			pts.Radius = 0 // a dense line reads better bare; its dash tells it apart
+		}
 		l.Width = vg.Points(1.5)
 		p.Add(l, pts)
 		p.Legend.Add(s.name, l, pts)
@@ -155,6 +168,10 @@ func CurveFigures(d *Data) ([]Figure, error) {
 		}
 		x0, x1 := x(d.Curve[0]), x(d.Curve[len(d.Curve)-1])
 		alt := fmt.Sprintf("%s: %d logged points from %s to %s.", title, len(d.Curve), fmtX(x0), fmtX(x1))
+		if top, ok := curveTop(d, train); ok {
+			p.Y.Max = top
+			alt += fmt.Sprintf(" The axis stops at %.2f bits per character; the earlier training points above it are in the table.", top)
+		}
 		if d.Reference != nil {
 			if err := hline(p, fmt.Sprintf("best baseline: %s (%s split)", d.Reference.Model, d.Reference.Split), d.Reference.BitsPerChar, x0, x1); err != nil {
 				return nil, err
@@ -238,6 +255,31 @@ func CurveFigures(d *Data) ([]Figure, error) {
 		figs = append(figs, Figure{ID: f.id, Title: f.title, Alt: alt, Table: tab, plot: p, w: 7 * vg.Inch, h: 3.5 * vg.Inch})
 	}
 	return figs, nil
+}
+
+// curveTop is the top of a learning curve's axis when some training
+// points lie far above the validation scores (see curveHeadroom).
+func curveTop(d *Data, train plotter.XYs) (float64, bool) {
+	ref := math.NaN()
+	for _, c := range d.Curve {
+		if v := float64(c.ValBPC); finite(v) {
+			ref = v
+			break
+		}
+	}
+	if math.IsNaN(ref) {
+		return 0, false
+	}
+	if d.Reference != nil {
+		ref = max(ref, d.Reference.BitsPerChar)
+	}
+	top := curveHeadroom * ref
+	for _, p := range train {
+		if p.Y > top {
+			return top, true
+		}
+	}
+	return 0, false
 }
 
 func yRange(xy plotter.XYs, also float64) (lo, hi float64) {

@@ -117,9 +117,9 @@ func glance(d *Data) [][2]string {
 			}
 		}
 	}
-	g = append(g, [2]string{"trained", fmt.Sprintf("%d steps, %d tokens, %s", d.Facts.Steps, d.Facts.Tokens, (time.Duration(d.Facts.WallSeconds) * time.Second).String())})
+	g = append(g, [2]string{"trained", fmt.Sprintf("%s steps, %s tokens, %s", thousands(d.Facts.Steps), thousands(d.Facts.Tokens), (time.Duration(d.Facts.WallSeconds) * time.Second).String())})
 	if v := float64(d.Facts.TokensPerSec); finite(v) {
-		g = append(g, [2]string{"speed", fmt.Sprintf("%.0f tokens/s", v)})
+		g = append(g, [2]string{"speed", thousands(int64(math.Round(v))) + " tokens/s"})
 	}
 	if n := len(d.Facts.Warnings); n > 0 {
 		g = append(g, [2]string{"warnings", fmt.Sprintf("%d (see the run's facts)", n)})
@@ -251,4 +251,18 @@ func colorAt(m palette.ColorMap, v float64) string {
 	}
 	r, g, b, _ := color.RGBAModel.Convert(c).(color.RGBA).RGBA()
 	return fmt.Sprintf("#%02x%02x%02x", r>>8, g>>8, b>>8)
+}
+
+// thousands writes n with commas between groups of three digits.
+func thousands(n int64) string {
+	s := fmt.Sprint(n)
+	neg := strings.HasPrefix(s, "-")
+	s = strings.TrimPrefix(s, "-")
+	for i := len(s) - 3; i > 0; i -= 3 {
+		s = s[:i] + "," + s[i:]
+	}
+	if neg {
+		s = "-" + s
+	}
+	return s
 }

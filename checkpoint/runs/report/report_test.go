@@ -12,6 +12,8 @@ import (
 	"strings"
 	"testing"
 
+	"gonum.org/v1/plot/plotter"
+
 	"weft/checkpoint/modeltest"
 	"weft/checkpoint/runs"
 	"weft/eval"
@@ -420,5 +422,34 @@ func TestStandings(t *testing.T) {
 		if s.Run != want[i] {
 			t.Errorf("place %d: got %s, want %s", i+1, s.Run, want[i])
 		}
+	}
+}
+
+func TestCurveTop(t *testing.T) {
+	nan := Number(math.NaN())
+	d := &Data{Curve: []CurvePoint{{ValBPC: nan}, {ValBPC: 2}, {ValBPC: 1.5}}}
+	for _, c := range []struct {
+		name  string
+		ref   *Reference
+		train plotter.XYs
+		want  float64 // 0: no cap
+	}{
+		// The first validation is 2: the axis stops at 1.5 × 2 = 3 when a
+		// training point lies above it.
+		{"capped", nil, plotter.XYs{{Y: 5.5}, {Y: 2.1}}, 3},
+		{"nothing above", nil, plotter.XYs{{Y: 2.9}}, 0},
+		// A reference above the first validation raises the cap: 1.5 × 2.4.
+		{"reference", &Reference{BitsPerChar: 2.4}, plotter.XYs{{Y: 5.5}}, 3.6},
+	} {
+		t.Run(c.name, func(t *testing.T) {
+			d.Reference = c.ref
+			got, ok := curveTop(d, c.train)
+			if !ok {
+				got = 0
+			}
+			if !near(got, c.want) {
+				t.Errorf("got %v, want %v", got, c.want)
+			}
+		})
 	}
 }

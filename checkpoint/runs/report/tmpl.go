@@ -17,8 +17,9 @@ var funcs = template.FuncMap{
 		}
 		return fmt.Sprint(v)
 	},
-	"dur": func(s float64) string { return (time.Duration(s) * time.Second).String() },
-	"pct": func(v float64) string { return fmt.Sprintf("%.2f%%", 100*v) },
+	"dur":   func(s float64) string { return (time.Duration(s) * time.Second).String() },
+	"pct":   func(v float64) string { return fmt.Sprintf("%.2f%%", 100*v) },
+	"count": func(n int64) string { return thousands(n) },
 	"signed": func(v float64) string {
 		if math.IsNaN(v) {
 			return "–"
@@ -114,12 +115,12 @@ Each token is shaded by the bits it cost; hover over a token for its bits under 
 
 <section id="facts"><h2>The run's facts</h2>
 <dl class="ledger"><dt>model</dt><dd>{{.Facts.Model}}</dd><dt>tokenizer</dt><dd>{{.Facts.Tokenizer}}</dd>
-<dt>steps</dt><dd>{{.Facts.Steps}}</dd><dt>tokens trained</dt><dd>{{.Facts.Tokens}}</dd><dt>training time</dt><dd>{{dur .Facts.WallSeconds}}</dd>
+<dt>steps</dt><dd>{{count .Facts.Steps}}</dd><dt>tokens trained</dt><dd>{{count .Facts.Tokens}}</dd><dt>training time</dt><dd>{{dur .Facts.WallSeconds}}</dd>
 <dt>tokens per second</dt><dd>{{num .Facts.TokensPerSec 0}}</dd></dl>
 {{with .Facts.Split}}<h3>Data</h3><table><thead><tr><th>split</th><th>characters</th><th>tokens</th><th>lines</th><th>out of vocabulary</th></tr></thead><tbody>
-<tr><td>train</td><td class="n">{{.Train.Characters}}</td><td class="n">{{.Train.Tokens}}</td><td class="n">{{.Train.Lines}}</td><td class="n">{{pct .Train.OOVRate}}</td></tr>
-<tr><td>validation</td><td class="n">{{.Validation.Characters}}</td><td class="n">{{.Validation.Tokens}}</td><td class="n">{{.Validation.Lines}}</td><td class="n">{{pct .Validation.OOVRate}}</td></tr>
-<tr><td>test</td><td class="n">{{.Test.Characters}}</td><td class="n">{{.Test.Tokens}}</td><td class="n">{{.Test.Lines}}</td><td class="n">{{pct .Test.OOVRate}}</td></tr>
+<tr><td>train</td><td class="n">{{count .Train.Characters}}</td><td class="n">{{count .Train.Tokens}}</td><td class="n">{{count .Train.Lines}}</td><td class="n">{{pct .Train.OOVRate}}</td></tr>
+<tr><td>validation</td><td class="n">{{count .Validation.Characters}}</td><td class="n">{{count .Validation.Tokens}}</td><td class="n">{{count .Validation.Lines}}</td><td class="n">{{pct .Validation.OOVRate}}</td></tr>
+<tr><td>test</td><td class="n">{{count .Test.Characters}}</td><td class="n">{{count .Test.Tokens}}</td><td class="n">{{count .Test.Lines}}</td><td class="n">{{pct .Test.OOVRate}}</td></tr>
 </tbody></table><p>Vocabulary: {{.VocabularySize}} entries. Leakage: {{.LeakedTestLines}} test line(s) also occur in the training split.</p>{{end}}
 <h3>Checkpoints</h3>{{if .Facts.Checkpoints}}<ul>{{range .Facts.Checkpoints}}<li>{{.}}</li>{{end}}</ul>{{else}}<p class="missing">none yet</p>{{end}}
 <h3>Warnings</h3>{{if .Facts.Warnings}}<ul>{{range .Facts.Warnings}}<li>{{.}}</li>{{end}}</ul>{{else}}<p>none</p>{{end}}
