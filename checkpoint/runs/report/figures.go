@@ -6,6 +6,7 @@ import (
 	"image/color"
 	"math"
 	"regexp"
+	"strconv"
 	"strings"
 
 	"gonum.org/v1/plot"
@@ -64,8 +65,29 @@ const maxMarked = 60
 // the part a reader compares.
 const curveHeadroom = 1.5
 
+// plainTicks are gonum's default ticks labelled as plain numbers: whole
+// ones with thousands separators, others as short as they can be.
+type plainTicks struct{}
+
+func (plainTicks) Ticks(lo, hi float64) []plot.Tick {
+	ts := plot.DefaultTicks{}.Ticks(lo, hi)
+	for i := range ts {
+		if ts[i].Label == "" {
+			continue
+		}
+		if v := ts[i].Value; v == math.Trunc(v) && math.Abs(v) < 1e15 {
+			ts[i].Label = thousands(int64(v))
+		} else {
+			ts[i].Label = strconv.FormatFloat(v, 'g', -1, 64)
+		}
+	}
+	return ts
+}
+
 func newPlot(title, x, y string) *plot.Plot {
 	p := plot.New()
+	p.X.Tick.Marker = plainTicks{}
+	p.Y.Tick.Marker = plainTicks{}
 	p.Legend.TextStyle.Font.Size = vg.Points(10)
 	p.Title.Text = title
 	p.X.Label.Text = x
@@ -214,6 +236,7 @@ func CurveFigures(d *Data) ([]Figure, error) {
 		p.Y.Scale = plot.LogScale{}
 		p.Y.Tick.Marker = plot.LogTicks{Prec: -1}
 		lo, hi := yRange(f.xy, 0)
+		dataLo, dataHi := lo, hi
 		if f.id == "grad-norm" && d.ClipNorm > 0 {
 			lo, hi = min(lo, d.ClipNorm), max(hi, d.ClipNorm)
 		}
@@ -223,7 +246,7 @@ func CurveFigures(d *Data) ([]Figure, error) {
 		if err := addLines(p, []series{{f.title, f.xy}}); err != nil {
 			return nil, err
 		}
-		alt := fmt.Sprintf("%s against the training step, %d points, log scale.", f.title, len(f.xy))
+		alt := fmt.Sprintf("%s against the training step, %d points, log scale, from %.3g to %.3g.", f.title, len(f.xy), dataLo, dataHi)
 		if f.id == "grad-norm" {
 			if d.ClipNorm > 0 {
 				if err := hline(p, fmt.Sprintf("clipping threshold %g", d.ClipNorm), d.ClipNorm, x0, x1); err != nil {

@@ -20,6 +20,12 @@ var funcs = template.FuncMap{
 	"dur":   func(s float64) string { return (time.Duration(s) * time.Second).String() },
 	"pct":   func(v float64) string { return fmt.Sprintf("%.2f%%", 100*v) },
 	"count": func(n int64) string { return thousands(n) },
+	"rate": func(v Number) string {
+		if !finite(float64(v)) {
+			return "–"
+		}
+		return thousands(int64(math.Round(float64(v))))
+	},
 	"signed": func(v float64) string {
 		if math.IsNaN(v) {
 			return "–"
@@ -116,7 +122,7 @@ Each token is shaded by the bits it cost; hover over a token for its bits under 
 <section id="facts"><h2>The run's facts</h2>
 <dl class="ledger"><dt>model</dt><dd>{{.Facts.Model}}</dd><dt>tokenizer</dt><dd>{{.Facts.Tokenizer}}</dd>
 <dt>steps</dt><dd>{{count .Facts.Steps}}</dd><dt>tokens trained</dt><dd>{{count .Facts.Tokens}}</dd><dt>training time</dt><dd>{{dur .Facts.WallSeconds}}</dd>
-<dt>tokens per second</dt><dd>{{num .Facts.TokensPerSec 0}}</dd></dl>
+<dt>tokens per second</dt><dd>{{rate .Facts.TokensPerSec}}</dd></dl>
 {{with .Facts.Split}}<h3>Data</h3><table><thead><tr><th>split</th><th>characters</th><th>tokens</th><th>lines</th><th>out of vocabulary</th></tr></thead><tbody>
 <tr><td>train</td><td class="n">{{count .Train.Characters}}</td><td class="n">{{count .Train.Tokens}}</td><td class="n">{{count .Train.Lines}}</td><td class="n">{{pct .Train.OOVRate}}</td></tr>
 <tr><td>validation</td><td class="n">{{count .Validation.Characters}}</td><td class="n">{{count .Validation.Tokens}}</td><td class="n">{{count .Validation.Lines}}</td><td class="n">{{pct .Validation.OOVRate}}</td></tr>
