@@ -122,7 +122,7 @@ func WriteCompare(path string, ds []*Data, now time.Time) error {
 		Standings []Standing
 	}{AsOf: now.UTC().Format("2006-01-02 15:04:05 UTC"), Standings: Standings(ds)}
 	for _, f := range figs {
-		svg, _, err := f.Render()
+		svg, err := f.Render("svg")
 		if err != nil {
 			return err
 		}

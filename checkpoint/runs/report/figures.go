@@ -466,19 +466,17 @@ func Figures(d *Data) ([]Figure, error) {
 	return figs, nil
 }
 
-// Render returns the figure as SVG and as PNG.
-func (f *Figure) Render() (svg, png []byte, err error) {
-	var out [2]bytes.Buffer
-	for i, format := range []string{"svg", "png"} {
-		wt, err := f.plot.WriterTo(f.w, f.h, format)
-		if err != nil {
-			return nil, nil, fmt.Errorf("figure %s: %w", f.ID, err)
-		}
-		if _, err := wt.WriteTo(&out[i]); err != nil {
-			return nil, nil, fmt.Errorf("figure %s: %w", f.ID, err)
-		}
+// Render returns the figure in format "svg" or "png".
+func (f *Figure) Render(format string) ([]byte, error) {
+	var out bytes.Buffer
+	wt, err := f.plot.WriterTo(f.w, f.h, format)
+	if err != nil {
+		return nil, fmt.Errorf("figure %s: %w", f.ID, err)
 	}
-	return out[0].Bytes(), out[1].Bytes(), nil
+	if _, err := wt.WriteTo(&out); err != nil {
+		return nil, fmt.Errorf("figure %s: %w", f.ID, err)
+	}
+	return out.Bytes(), nil
 }
 
 var (

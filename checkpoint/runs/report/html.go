@@ -26,9 +26,13 @@ const PageFile = "index.html"
 const ReloadSeconds = 60
 
 // Write writes the page of d and its figures (ID.svg and ID.png) into the
-// report folder of the run directory dir, each file atomically, and
-// returns the page's path.
-func Write(dir string, d *Data) error {
+// report folder of the run directory dir, each file atomically.
+func Write(dir string, d *Data) error { return write(dir, d, true) }
+
+// write is Write, with the PNG files left out when pngs is false (the
+// live page rewritten at every validation: rasterizing is most of the
+// cost; the PNG files follow when the run ends).
+func write(dir string, d *Data, pngs bool) error {
 	rep := runs.Layout(dir).Report()
 	if err := os.MkdirAll(rep, 0o755); err != nil {
 		return fmt.Errorf("report folder: %w", err)
@@ -37,11 +41,18 @@ func Write(dir string, d *Data) error {
 	if err != nil {
 		return err
 	}
-	page, err := Page(d, figs, func(id string, svg, png []byte) error {
-		if err := atomicfile.WriteBytes(filepath.Join(rep, id+".svg"), svg); err != nil {
+	page, err := Page(d, figs, func(f *Figure, svg []byte) error {
+		if err := atomicfile.WriteBytes(filepath.Join(rep, f.ID+".svg"), svg); err != nil {
 			return err
 		}
-		return atomicfile.WriteBytes(filepath.Join(rep, id+".png"), png)
+		if !pngs {
+			return nil
+		}
+		png, err := f.Render("png")
+		if err != nil {
+			return err
+		}
+		return atomicfile.WriteBytes(filepath.Join(rep, f.ID+".png"), png)
 	})
 	if err != nil {
 		return err
@@ -70,16 +81,16 @@ type pageView struct {
 }
 
 // Page renders the page of d with the figures figs; save, when not nil,
-// is given each figure's SVG and PNG.
-func Page(d *Data, figs []Figure, save func(id string, svg, png []byte) error) ([]byte, error) {
+// is given each figure with its SVG.
+func Page(d *Data, figs []Figure, save func(f *Figure, svg []byte) error) ([]byte, error) {
 	v := pageView{Data: d, Live: d.State == StateLive, Reload: ReloadSeconds, AsOf: d.Updated.UTC().Format("2006-01-02 15:04:05 UTC")}
 	for _, f := range figs {
-		svg, png, err := f.Render()
+		svg, err := f.Render("svg")
 		if err != nil {
 			return nil, err
 		}
 		if save != nil {
-			if err := save(f.ID, svg, png); err != nil {
+			if err := save(&f, svg); err != nil {
 				return nil, err
 			}
 		}

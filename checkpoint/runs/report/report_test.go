@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"flag"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -31,7 +32,7 @@ func near(a, b float64) bool {
 
 // fixture copies the fixed run of testdata/run into a temporary folder (the
 // tests write its report folder) and returns its path.
-func fixture(t *testing.T) string {
+func fixture(t testing.TB) string {
 	t.Helper()
 	dst := filepath.Join(t.TempDir(), "run")
 	err := filepath.Walk(filepath.Join("testdata", "run"), func(p string, fi os.FileInfo, err error) error {
@@ -449,6 +450,27 @@ func TestCurveTop(t *testing.T) {
 			}
 			if !near(got, c.want) {
 				t.Errorf("got %v, want %v", got, c.want)
+			}
+		})
+	}
+}
+
+// BenchmarkWrite is the cost of gathering the fixed run's files and
+// writing its page and figures: live (what weft train pays at every
+// validation, the PNG files left out) and ended.
+func BenchmarkWrite(b *testing.B) {
+	for _, pngs := range []bool{false, true} {
+		b.Run(fmt.Sprintf("png=%v", pngs), func(b *testing.B) {
+			dir := fixture(b)
+			b.ReportAllocs()
+			for b.Loop() {
+				d, err := Gather(dir)
+				if err != nil {
+					b.Fatal(err)
+				}
+				if err := write(dir, d, pngs); err != nil {
+					b.Fatal(err)
+				}
 			}
 		})
 	}

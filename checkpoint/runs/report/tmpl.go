@@ -76,7 +76,7 @@ var pageTmpl = template.Must(template.New("page").Funcs(funcs).Parse(`<!DOCTYPE 
 <p>weft · morning report</p>
 <h1>Morning report: {{.Title}}</h1>
 <p>Run directory <code>{{.Run}}</code></p>
-{{if .Live}}<p><span class="state live" id="state">training</span> This page reloads itself every minute while the run trains. Data as of {{.AsOf}}.</p>
+{{if .Live}}<p><span class="state live" id="state">training</span> This page reloads itself every minute while the run trains. Data as of {{.AsOf}}, the latest validation; if that time stops moving long after the next validation was due, the training process has stopped, and <code>weft report --run</code> on the run directory says so.</p>
 {{else}}<p><span class="state" id="state">ended</span> {{.Ended}}. This page no longer reloads. Data as of {{.AsOf}}.</p>{{end}}
 </header>
 <dl class="ledger">{{range .Glance}}<dt>{{index . 0}}</dt><dd>{{index . 1}}</dd>{{end}}</dl>

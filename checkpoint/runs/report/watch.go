@@ -187,7 +187,7 @@ func (w *Watcher) write() {
 			}
 			d.Missing[SectionSurprisal] = "the surprisal view is drawn " + when + " weft report --run " + w.dir
 			d.Missing[SectionSamples] = "samples are drawn " + when + " weft report --run " + w.dir
-			err = Write(w.dir, d)
+			err = write(w.dir, d, d.State != StateLive)
 		}
 	}
 	if err != nil && !w.failed {
