@@ -1,7 +1,8 @@
 # weft's build, test and demo targets. `make demo` and `make test` are the two
 # set-up commands of the README: each installs what it needs (Go modules; the
 # real test corpora into .cache/corpora, ONNX Runtime for Node.js into
-# .cache/onnxruntime) or says exactly what is missing.
+# .cache/onnxruntime; Debian's chromium for the report's browser test, when
+# run as root) or says exactly what is missing.
 
 GO        ?= go
 BIN       := bin/weft
@@ -11,7 +12,7 @@ LDFLAGS   := -X main.version=$(VERSION)
 RACE_PKGS := ./rnn/linalg/... ./checkpoint/... ./cmd/...
 FUZZTIME  ?= 10s
 
-.PHONY: all build test demo bench bench-peer fuzz lint docs references corpora onnxruntime slurm onnx-proto onnx-references clean check-go
+.PHONY: all build test demo bench bench-peer fuzz lint docs references corpora onnxruntime slurm chromium onnx-proto onnx-references clean check-go
 
 all: build
 
@@ -34,7 +35,12 @@ onnxruntime:
 slurm:
 	@./testdata/sweep/install-slurm.sh
 
-test: check-go corpora onnxruntime slurm
+# Debian's chromium loads the morning report headless in the tests of
+# checkpoint/runs/report.
+chromium:
+	@./testdata/fetch-chromium.sh
+
+test: check-go corpora onnxruntime slurm chromium
 	$(GO) mod download
 	$(GO) vet ./...
 	$(GO) test -count=1 ./...

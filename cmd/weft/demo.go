@@ -9,7 +9,6 @@ import (
 
 	"github.com/spf13/cobra"
 
-	"weft/checkpoint/runs"
 	"weft/configs"
 	"weft/data"
 	"weft/data/demo"
@@ -149,8 +148,12 @@ func runDemo(opts *demoOptions) error {
 	printComparison(opts.Out, cmp, shownRows(cmp, false, 0))
 	fmt.Fprintln(opts.Out)
 	printDemoVerdict(opts, cmp)
-	fmt.Fprintf(opts.Out, "\nrun directory: %s\nreport: %s (comparison-test.png, learning-curve.png, eval-test.json)\n",
-		runPath, runs.Layout(runPath).Report())
+	rd.Close() // the report opens the run directory itself
+	page, err := writeRunReport(opts.cmdContext, runPath, 0)
+	if err != nil {
+		return err
+	}
+	fmt.Fprintf(opts.Out, "\nrun directory: %s\nreport: %s\n", runPath, page)
 	fmt.Fprintf(opts.Out, "next: weft sample --run %s --prompt \"06:12 \"   or   weft eval --run %s\n", runPath, runPath)
 	return nil
 }

@@ -222,6 +222,7 @@ and lives in a run directory (--run DIR).`,
 		newBenchCmd(d, nil),
 		newRunsCmd(d, nil),
 		newSweepCmd(d, nil),
+		newReportCmd(d, nil),
 	)
 	addCompletions(root)
 	return root

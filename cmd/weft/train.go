@@ -14,6 +14,7 @@ import (
 
 	"weft/checkpoint"
 	"weft/checkpoint/runs"
+	"weft/checkpoint/runs/report"
 	"weft/configs"
 	"weft/rnn"
 )
@@ -194,10 +195,13 @@ func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (
 		defer cc.claimSignals()()
 		go watchSignals(cc.Signals, done, stop, &sig, rep, filepath.Join(runDir, runs.CheckpointsDir))
 	}
+	page := report.Watch(runDir, &trainObserver{rep: rep}, cc.Now, func(s string) { rep.warnf("%s", s) })
 	res, err := runs.Train(ctx, r, runDir, runs.TrainOptions{
 		Duration: o.Duration, Deadline: o.Deadline, Restart: o.Restart,
-		Observer: &trainObserver{rep: rep}, Now: cc.Now, Save: saveCheckpoint, AfterStep: trainStepHook, Stdin: cc.In,
+		Observer: page, Now: cc.Now, Save: saveCheckpoint, AfterStep: trainStepHook, Stdin: cc.In,
 	})
+	signal, _ := sig.Load().(string)
+	page.Finish(res, err, signal)
 	if err != nil {
 		return nil, err
 	}
