@@ -235,18 +235,11 @@ func runSweepRun(opts *sweepOptions) error {
 	}
 	rep := newReporter(opts.deps, 30*time.Second, opts.Quiet)
 	defer rep.finish()
-	ctx, stop := context.WithCancel(opts.ctx)
-	defer stop()
-	var sig atomic.Value
-	if opts.Signals != nil {
-		done := make(chan struct{})
-		defer close(done)
-		defer opts.claimSignals()()
-		go watchSignals(opts.Signals, done, stop, &sig, rep, sw.Dir)
-	}
+	ctx, sig, release := stopOnSignals(opts.cmdContext, rep, sw.Dir)
+	defer release()
 	out, err := sw.Run(ctx, p, index, sweepRunOptions(opts, rep, &trainObserver{rep: rep}, 0))
 	rep.finish()
-	return sweepRunEnd(opts, index, out, err, &sig)
+	return sweepRunEnd(opts, index, out, err, sig)
 }
 
 // sweepRunOptions are the options of one index's run.
@@ -304,15 +297,8 @@ func sweepRunEnd(opts *sweepOptions, index int, out *sweep.Outcome, err error, s
 // every run save and stop.
 func runSweepAll(opts *sweepOptions, sw *sweep.Sweep, p *sweep.Plan) error {
 	rep := newReporter(opts.deps, time.Hour, true)
-	ctx, stop := context.WithCancel(opts.ctx)
-	defer stop()
-	var sig atomic.Value
-	if opts.Signals != nil {
-		done := make(chan struct{})
-		defer close(done)
-		defer opts.claimSignals()()
-		go watchSignals(opts.Signals, done, stop, &sig, rep, sw.Dir)
-	}
+	ctx, sig, release := stopOnSignals(opts.cmdContext, rep, sw.Dir)
+	defer release()
 	var errs []error
 	var mu sync.Mutex // keeps each run's final line whole
 	sw.RunAll(ctx, p, opts.Parallel, func(e sweep.Entry) sweep.RunOptions {
@@ -320,7 +306,7 @@ func runSweepAll(opts *sweepOptions, sw *sweep.Sweep, p *sweep.Plan) error {
 	}, func(e sweep.Entry, out *sweep.Outcome, err error) {
 		mu.Lock()
 		defer mu.Unlock()
-		err = sweepRunEnd(opts, e.Index, out, err, &sig)
+		err = sweepRunEnd(opts, e.Index, out, err, sig)
 		if err != nil {
 			fmt.Fprintf(opts.Err, "weft: %s\n", oneLine(err.Error()))
 		}

@@ -186,15 +186,8 @@ type trainResult struct {
 func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (*trainResult, error) {
 	rep := newReporter(cc.deps, time.Duration(r.Output.LogEverySeconds*float64(time.Second)), o.Quiet)
 	defer rep.finish()
-	ctx, stop := context.WithCancel(cc.ctx)
-	defer stop()
-	var sig atomic.Value // the name of the signal that stopped the run
-	if cc.Signals != nil {
-		done := make(chan struct{})
-		defer close(done)
-		defer cc.claimSignals()()
-		go watchSignals(cc.Signals, done, stop, &sig, rep, filepath.Join(runDir, runs.CheckpointsDir))
-	}
+	ctx, sig, release := stopOnSignals(cc, rep, filepath.Join(runDir, runs.CheckpointsDir))
+	defer release()
 	page := report.Watch(runDir, &trainObserver{rep: rep}, cc.Now, func(s string) { rep.warnf("%s", s) })
 	res, err := runs.Train(ctx, r, runDir, runs.TrainOptions{
 		Duration: o.Duration, Deadline: o.Deadline, Restart: o.Restart,
@@ -220,6 +213,22 @@ func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (
 		fmt.Fprintf(cc.Out, " Newest checkpoint: %s\n", res.LatestPath)
 	}
 	return out, nil
+}
+
+// stopOnSignals gives a context that the first stopping signal cancels
+// (the work then saves and stops), with the signal's name kept in sig; a
+// second signal exits at once, saying the checkpoints in where are intact.
+// release ends the watch.
+func stopOnSignals(cc cmdContext, rep *reporter, where string) (ctx context.Context, sig *atomic.Value, release func()) {
+	ctx, stop := context.WithCancel(cc.ctx)
+	sig = new(atomic.Value)
+	if cc.Signals == nil {
+		return ctx, sig, stop
+	}
+	done := make(chan struct{})
+	unclaim := cc.claimSignals()
+	go watchSignals(cc.Signals, done, stop, sig, rep, where)
+	return ctx, sig, func() { close(done); unclaim(); stop() }
 }
 
 // watchSignals turns the first stopping signal into a graceful stop and a
