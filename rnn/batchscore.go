@@ -1,0 +1,325 @@
+package rnn
+
+import (
+	"context"
+	"fmt"
+	"slices"
+)
+
+// Batched scoring: many sequences at once as the parallel streams of one
+// forward pass.
+//
+// LogProbs scores one sequence as a batch of one, so every step's
+// recurrent product is a matrix-vector product (1×H by H×G), bound by
+// reading the weights from memory. A BatchScorer runs up to its number of
+// streams of sequences side by side, each from its own state and for its
+// own length, so that each step reads the weights once for all of them
+// (B×H by H×G): the products of training again, forward only.
+//
+// The sequences are sorted by length, longest first, so that the streams
+// still running are always the first rows of the batch; a pass ends where
+// the shortest running stream ends (but runs at least minPass steps) and
+// the next pass runs the remaining prefix with fewer rows. A stream that
+// ends inside a pass reads padding to its end, which is neither scored
+// nor carried; no stream reads another's rows. Every number is the one LogProbs gives for the same sequence,
+// bit for bit: each row of a product and each row's gate and softmax
+// arithmetic is computed by the same code whatever the number of rows
+// (linalg.Gemm reduces every element over k in the same blocks and order;
+// the cells and the output layer work row by row).
+
+// BatchStreams is the number of streams Model.LogProbsBatch scores side by
+// side: enough rows for the matrix kernels' register tiles (8 rows on
+// AVX-512) to be full several times over, few enough that the state of a
+// pass stays in the caches.
+const BatchStreams = 64
+
+// minPass is the fewest steps a batched pass runs while any of its
+// streams has that many left: each pass packs the recurrent weights once
+// (see packRec), which a pass of one or two steps does not repay.
+const minPass = 16
+
+// Carry is the carried state of one scored stream: the recurrent state
+// after every token it has been given but the last, and that last token,
+// which is read when the next tokens are scored. Scoring a text in
+// consecutive parts through one Carry gives the numbers LogProbs gives for
+// the whole text, bit for bit. A new Carry is at the start of a document.
+// A Carry belongs to the model that made it.
+type Carry[T Float] struct {
+	h, c []T // layers·H each; c nil without a cell state
+	last int // the token given last, still to be read; -1 at the start of a document
+}
+
+// NewCarry returns a carried state at the start of a document.
+func (m *Model[T]) NewCarry() *Carry[T] {
+	n := len(m.layers) * m.cfg.HiddenSize
+	c := &Carry[T]{h: make([]T, n), last: -1}
+	if m.cell.hasCellState() {
+		c.c = make([]T, n)
+	}
+	return c
+}
+
+// Reset puts c back at the start of a document.
+func (c *Carry[T]) Reset() {
+	clear(c.h)
+	clear(c.c)
+	c.last = -1
+}
+
+// Started reports whether c has been given any token since the start of
+// the document.
+func (c *Carry[T]) Started() bool { return c.last >= 0 }
+
+// Clone returns an independent copy of c.
+func (c *Carry[T]) Clone() *Carry[T] {
+	return &Carry[T]{h: slices.Clone(c.h), c: slices.Clone(c.c), last: c.last}
+}
+
+// A BatchScorer scores many sequences side by side with one model (see
+// Model.NewBatchScorer). It reuses its buffers between calls. It is not
+// safe for concurrent use; several BatchScorers of one model are.
+type BatchScorer[T Float] struct {
+	m       *Model[T]
+	w       *work[T]
+	streams int
+
+	order []int // indices of the current group, longest first
+	steps []int // steps[i]: forward steps of sequence i of the group
+	in    []int
+	tg    []int
+	lp    []float64
+}
+
+// NewBatchScorer returns a scorer of up to streams sequences per pass,
+// running on the pool set by SetPool.
+func (m *Model[T]) NewBatchScorer(streams int) *BatchScorer[T] {
+	if streams < 1 {
+		panic("rnn: NewBatchScorer needs at least one stream")
+	}
+	s := &BatchScorer[T]{m: m, streams: streams, w: newWork(m, streams, scoreChunk, false)}
+	s.in = make([]int, scoreChunk*streams)
+	if s.w.cls != nil {
+		s.tg, s.lp = make([]int, scoreChunk*streams), make([]float64, scoreChunk*streams)
+	}
+	return s
+}
+
+// LogProbsBatch writes to dst[i][j] ln P(seqs[i][j] | seqs[i][:j]) for
+// every sequence i, each from the start of a document: exactly what
+// LogProbs writes for each sequence alone (with the default exact
+// scoring), computed up to BatchStreams sequences at a time as the
+// parallel streams of one forward pass. len(dst[i]) must equal
+// len(seqs[i]).
+func (m *Model[T]) LogProbsBatch(ctx context.Context, dst [][]float64, seqs [][]int) error {
+	if len(seqs) == 0 {
+		return nil
+	}
+	return m.NewBatchScorer(min(len(seqs), BatchStreams)).LogProbs(ctx, dst, seqs, nil)
+}
+
+// LogProbs writes to dst[i][j] the natural logarithm of
+// P(seqs[i][j] | h_i, seqs[i][:j]), where h_i is the history carry[i] has
+// been given (the start of a document when carry is nil or carry[i] is
+// nil), and moves carry[i] on past seqs[i]. The sequences are scored
+// s.streams at a time. A sequence's numbers are those LogProbs gives for
+// its history and itself as one sequence. len(dst[i]) must equal
+// len(seqs[i]). It checks ctx between passes; on an error the carries may
+// be partly advanced.
+func (s *BatchScorer[T]) LogProbs(ctx context.Context, dst [][]float64, seqs [][]int, carry []*Carry[T]) error {
+	m := s.m
+	if len(dst) != len(seqs) || (carry != nil && len(carry) != len(seqs)) {
+		return fmt.Errorf("LogProbs: %d destinations and %d carries for %d sequences", len(dst), len(carry), len(seqs))
+	}
+	for i, seq := range seqs {
+		if len(dst[i]) != len(seq) {
+			return fmt.Errorf("LogProbs: %d destinations for %d tokens of sequence %d", len(dst[i]), len(seq), i)
+		}
+		for j, tok := range seq {
+			if tok < 0 || tok >= m.vocab {
+				return fmt.Errorf("LogProbs: token %d at position %d of sequence %d outside the vocabulary 0..%d", tok, j, i, m.vocab-1)
+			}
+		}
+		if carry != nil && carry[i] != nil && len(carry[i].h) != len(m.layers)*m.cfg.HiddenSize {
+			return fmt.Errorf("LogProbs: carried state %d is not of this model", i)
+		}
+	}
+	var group []int
+	for i := range seqs {
+		group = append(group, i)
+		if len(group) == s.streams {
+			if err := s.group(ctx, dst, seqs, carry, group); err != nil {
+				return err
+			}
+			group = group[:0]
+		}
+	}
+	if len(group) > 0 {
+		return s.group(ctx, dst, seqs, carry, group)
+	}
+	return nil
+}
+
+// group scores the sequences of one group (at most s.streams).
+func (s *BatchScorer[T]) group(ctx context.Context, dst [][]float64, seqs [][]int, carry []*Carry[T], group []int) error {
+	m, w := s.m, s.w
+	H := m.cfg.HiddenSize
+	V := m.vocab
+	cr := func(i int) *Carry[T] {
+		if carry == nil {
+			return nil
+		}
+		return carry[i]
+	}
+	// A started stream reads its carried last token first, and predicts
+	// every token of its sequence; a fresh one predicts its first token
+	// from the zero state without a step.
+	started := func(i int) bool { c := cr(i); return c != nil && c.Started() }
+	if cap(s.steps) < len(seqs) {
+		s.steps = make([]int, len(seqs))
+	}
+	steps := s.steps[:len(seqs)]
+	s.order = s.order[:0]
+	for _, i := range group {
+		n := len(seqs[i])
+		switch {
+		case n == 0:
+			steps[i] = 0
+		case started(i):
+			steps[i] = n
+		default:
+			dst[i][0] = m.startLogProb(seqs[i][0])
+			steps[i] = n - 1
+		}
+		s.order = append(s.order, i)
+	}
+	slices.SortStableFunc(s.order, func(a, b int) int { return steps[b] - steps[a] })
+	// read is the token stream i reads at step t.
+	read := func(i, t int) int {
+		if started(i) {
+			if t == 0 {
+				return cr(i).last
+			}
+			return seqs[i][t-1]
+		}
+		return seqs[i][t]
+	}
+	// target is the position of seqs[i] predicted at step t.
+	target := func(i, t int) int {
+		if started(i) {
+			return t
+		}
+		return t + 1
+	}
+	active := 0
+	for _, i := range s.order {
+		if steps[i] > 0 {
+			active++
+		}
+	}
+	// The carried states of the running streams, rows of block 0.
+	w.B = active
+	defer func() { w.B = s.streams }()
+	for b, i := range s.order[:active] {
+		for l := range w.layers {
+			lw := &w.layers[l]
+			hb := lw.h[b*H : (b+1)*H]
+			if c := cr(i); c != nil && c.Started() {
+				copy(hb, c.h[l*H:(l+1)*H])
+				if lw.c != nil {
+					copy(lw.c[b*H:(b+1)*H], c.c[l*H:(l+1)*H])
+				}
+				continue
+			}
+			clear(hb)
+			if lw.c != nil {
+				clear(lw.c[b*H : (b+1)*H])
+			}
+		}
+	}
+	for t0 := 0; active > 0; {
+		B := active
+		w.B = B
+		// The pass runs to where its shortest stream ends, but at least
+		// minPass steps (or to the end of its longest): a stream that ends
+		// inside the pass reads padding after its end, which is neither
+		// scored nor carried, rather than every end cutting a pass short.
+		c := min(w.max, max(steps[s.order[B-1]]-t0, min(minPass, steps[s.order[0]]-t0)))
+		for t := 0; t < c; t++ {
+			for b, i := range s.order[:B] {
+				tok := 0
+				if t0+t < steps[i] {
+					tok = read(i, t0+t)
+				}
+				s.in[t*B+b] = tok
+			}
+		}
+		w.forward(m.pool, s.in, c, false)
+		if w.cls != nil {
+			for t := 0; t < c; t++ {
+				for b, i := range s.order[:B] {
+					s.tg[t*B+b] = -1
+					if t0+t < steps[i] {
+						s.tg[t*B+b] = seqs[i][target(i, t0+t)]
+					}
+				}
+			}
+			w.classLogProbs(m.pool, s.lp, s.tg, c*B)
+		}
+		for t := 0; t < c; t++ {
+			for b, i := range s.order[:B] {
+				if t0+t >= steps[i] {
+					continue
+				}
+				r := t*B + b
+				pos := target(i, t0+t)
+				if w.cls != nil {
+					dst[i][pos] = s.lp[r]
+				} else {
+					dst[i][pos] = logSoftmaxAt(w.logits[r*V:(r+1)*V], seqs[i][pos])
+				}
+			}
+		}
+		// Streams that end in this pass leave the batch, from its last row
+		// up, with the state after their last step (row block
+		// steps−t0 of the pass).
+		for active > 0 && steps[s.order[active-1]] <= t0+c {
+			active--
+			i := s.order[active]
+			s.save(cr(i), steps[i]-t0, active, seqs[i])
+		}
+		w.carry(c)
+		t0 += c
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+	}
+	// Streams that took no step: a fresh one-token sequence starts its
+	// carry with the zero state.
+	for _, i := range s.order {
+		if steps[i] == 0 && len(seqs[i]) == 1 {
+			if c := cr(i); c != nil {
+				c.Reset()
+				c.last = seqs[i][0]
+			}
+		}
+	}
+	return nil
+}
+
+// save copies row b of row block k of the last pass's states into c,
+// whose last token becomes the last of seq.
+func (s *BatchScorer[T]) save(c *Carry[T], k, b int, seq []int) {
+	if c == nil {
+		return
+	}
+	H := s.m.cfg.HiddenSize
+	o := (k*s.w.B + b) * H
+	for l := range s.w.layers {
+		lw := &s.w.layers[l]
+		copy(c.h[l*H:(l+1)*H], lw.h[o:o+H])
+		if lw.c != nil {
+			copy(c.c[l*H:(l+1)*H], lw.c[o:o+H])
+		}
+	}
+	c.last = seq[len(seq)-1]
+}
