@@ -207,6 +207,7 @@ and lives in a run directory (--run DIR).`,
 		newInspectCmd(d, nil),
 		newSampleCmd(d, nil),
 		newScoreCmd(d, nil),
+		newServeCmd(d, nil),
 		newExportCmd(d, nil),
 		newBenchCmd(d, nil),
 	)
