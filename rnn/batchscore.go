@@ -3,6 +3,7 @@ package rnn
 import (
 	"context"
 	"fmt"
+	"math"
 	"slices"
 )
 
@@ -275,7 +276,8 @@ func (s *BatchScorer[T]) group(ctx context.Context, dst [][]float64, seqs [][]in
 				if w.cls != nil {
 					dst[i][pos] = s.lp[r]
 				} else {
-					dst[i][pos] = logSoftmaxAt(w.logits[r*V:(r+1)*V], seqs[i][pos])
+					row := w.logits[r*V : (r+1)*V]
+					dst[i][pos] = float64(row[seqs[i][pos]]) - logSumExpCmp(row)
 				}
 			}
 		}
@@ -322,4 +324,23 @@ func (s *BatchScorer[T]) save(c *Carry[T], k, b int, seq []int) {
 		}
 	}
 	c.last = seq[len(seq)-1]
+}
+
+// logSumExpCmp is logSumExp with the maximum found by comparisons rather
+// than math.Max: the same bits for every input (a maximum of ±0 differs at
+// most in its sign, which changes neither v − max, nor exp of it, nor
+// max + ln Σ with the sum at least 1; a NaN makes both NaN), at a fraction
+// of the cost, which matters when every scored token pays it.
+func logSumExpCmp[T Float](row []T) float64 {
+	mx := math.Inf(-1)
+	for _, v := range row {
+		if f := float64(v); f > mx {
+			mx = f
+		}
+	}
+	var s float64
+	for _, v := range row {
+		s += math.Exp(float64(v) - mx)
+	}
+	return mx + math.Log(s)
 }
