@@ -17,16 +17,18 @@ import (
 // own length, so that each step reads the weights once for all of them
 // (B×H by H×G): the products of training again, forward only.
 //
-// The sequences are sorted by length, longest first, so that the streams
-// still running are always the first rows of the batch; a pass ends where
-// the shortest running stream ends (but runs at least minPass steps) and
-// the next pass runs the remaining prefix with fewer rows. A stream that
-// ends inside a pass reads padding to its end, which is neither scored
-// nor carried; no stream reads another's rows. Every number is the one LogProbs gives for the same sequence,
-// bit for bit: each row of a product and each row's gate and softmax
-// arithmetic is computed by the same code whatever the number of rows
-// (linalg.Gemm reduces every element over k in the same blocks and order;
-// the cells and the output layer work row by row).
+// The sequences wait in a queue, longest first; each row of the batch
+// takes the next one as soon as its own ends, so the batch stays full
+// until the queue is empty, and then the rows still running close up to
+// the front. A pass ends where the shortest running row ends, but runs at
+// least minPass steps (or to the end of the longest row): a row that ends
+// inside a pass reads padding to its end, which is neither scored nor
+// carried; no row reads another's. Every number is the one LogProbs gives
+// for the same sequence, bit for bit: each row of a product and each
+// row's gate and softmax arithmetic is computed by the same code whatever
+// the number of rows and whichever row it is (linalg.Gemm reduces every
+// element over k in the same blocks and order; the cells and the output
+// layer work row by row).
 
 // BatchStreams is the number of streams Model.LogProbsBatch scores side by
 // side: enough rows for the matrix kernels' register tiles (8 rows on
@@ -84,11 +86,14 @@ type BatchScorer[T Float] struct {
 	w       *work[T]
 	streams int
 
-	order []int // indices of the current group, longest first
-	steps []int // steps[i]: forward steps of sequence i of the group
-	in    []int
-	tg    []int
-	lp    []float64
+	order   []int  // the sequences with steps to run, longest first
+	steps   []int  // steps[i]: forward steps of sequence i
+	started []bool // started[i]: sequence i continues a carried state
+	rows    []int  // rows[b]: the sequence in row b of the batch
+	done    []int  // done[b]: the steps row b's sequence has run
+	in      []int
+	tg      []int
+	lp      []float64
 }
 
 // NewBatchScorer returns a scorer of up to streams sequences per pass,
@@ -121,8 +126,8 @@ func (m *Model[T]) LogProbsBatch(ctx context.Context, dst [][]float64, seqs [][]
 // LogProbs writes to dst[i][j] the natural logarithm of
 // P(seqs[i][j] | h_i, seqs[i][:j]), where h_i is the history carry[i] has
 // been given (the start of a document when carry is nil or carry[i] is
-// nil), and moves carry[i] on past seqs[i]. The sequences are scored
-// s.streams at a time. A sequence's numbers are those LogProbs gives for
+// nil), and moves carry[i] on past seqs[i] (a carry may appear once per
+// call). The sequences are scored s.streams at a time. A sequence's numbers are those LogProbs gives for
 // its history and itself as one sequence. len(dst[i]) must equal
 // len(seqs[i]). It checks ctx between passes; on an error the carries may
 // be partly advanced.
@@ -144,26 +149,15 @@ func (s *BatchScorer[T]) LogProbs(ctx context.Context, dst [][]float64, seqs [][
 			return fmt.Errorf("LogProbs: carried state %d is not of this model", i)
 		}
 	}
-	var group []int
-	for i := range seqs {
-		group = append(group, i)
-		if len(group) == s.streams {
-			if err := s.group(ctx, dst, seqs, carry, group); err != nil {
-				return err
-			}
-			group = group[:0]
-		}
-	}
-	if len(group) > 0 {
-		return s.group(ctx, dst, seqs, carry, group)
-	}
-	return nil
+	return s.score(ctx, dst, seqs, carry)
 }
 
-// group scores the sequences of one group (at most s.streams).
-func (s *BatchScorer[T]) group(ctx context.Context, dst [][]float64, seqs [][]int, carry []*Carry[T], group []int) error {
+// score runs the sequences through the batch's rows: each row takes the
+// next waiting sequence (longest first) as soon as its own ends, so that
+// the batch stays full until the queue is empty; then the rows still
+// running close up to the front.
+func (s *BatchScorer[T]) score(ctx context.Context, dst [][]float64, seqs [][]int, carry []*Carry[T]) error {
 	m, w := s.m, s.w
-	H := m.cfg.HiddenSize
 	V := m.vocab
 	cr := func(i int) *Carry[T] {
 		if carry == nil {
@@ -173,30 +167,41 @@ func (s *BatchScorer[T]) group(ctx context.Context, dst [][]float64, seqs [][]in
 	}
 	// A started stream reads its carried last token first, and predicts
 	// every token of its sequence; a fresh one predicts its first token
-	// from the zero state without a step.
-	started := func(i int) bool { c := cr(i); return c != nil && c.Started() }
+	// from the zero state without a step. started is fixed before any
+	// carry moves.
 	if cap(s.steps) < len(seqs) {
 		s.steps = make([]int, len(seqs))
+		s.started = make([]bool, len(seqs))
 	}
-	steps := s.steps[:len(seqs)]
+	steps, started := s.steps[:len(seqs)], s.started[:len(seqs)]
 	s.order = s.order[:0]
-	for _, i := range group {
-		n := len(seqs[i])
+	for i, seq := range seqs {
+		c := cr(i)
+		started[i] = c != nil && c.Started()
+		n := len(seq)
 		switch {
 		case n == 0:
 			steps[i] = 0
-		case started(i):
+		case started[i]:
 			steps[i] = n
 		default:
-			dst[i][0] = m.startLogProb(seqs[i][0])
+			dst[i][0] = m.startLogProb(seq[0])
 			steps[i] = n - 1
+			if n == 1 && c != nil {
+				// No step: the carry starts with the zero state.
+				c.Reset()
+				c.last = seq[0]
+			}
 		}
-		s.order = append(s.order, i)
+		if steps[i] > 0 {
+			s.order = append(s.order, i)
+		}
 	}
 	slices.SortStableFunc(s.order, func(a, b int) int { return steps[b] - steps[a] })
-	// read is the token stream i reads at step t.
+	// read is the token stream i reads at step t; target the position of
+	// seqs[i] predicted at step t.
 	read := func(i, t int) int {
-		if started(i) {
+		if started[i] {
 			if t == 0 {
 				return cr(i).last
 			}
@@ -204,52 +209,48 @@ func (s *BatchScorer[T]) group(ctx context.Context, dst [][]float64, seqs [][]in
 		}
 		return seqs[i][t]
 	}
-	// target is the position of seqs[i] predicted at step t.
 	target := func(i, t int) int {
-		if started(i) {
+		if started[i] {
 			return t
 		}
 		return t + 1
 	}
-	active := 0
-	for _, i := range s.order {
-		if steps[i] > 0 {
-			active++
-		}
-	}
-	// The carried states of the running streams, rows of block 0.
-	w.B = active
+	queue := s.order
+	s.rows, s.done = s.rows[:0], s.done[:0]
 	defer func() { w.B = s.streams }()
-	for b, i := range s.order[:active] {
-		for l := range w.layers {
-			lw := &w.layers[l]
-			hb := lw.h[b*H : (b+1)*H]
-			if c := cr(i); c != nil && c.Started() {
-				copy(hb, c.h[l*H:(l+1)*H])
-				if lw.c != nil {
-					copy(lw.c[b*H:(b+1)*H], c.c[l*H:(l+1)*H])
-				}
-				continue
-			}
-			clear(hb)
-			if lw.c != nil {
-				clear(lw.c[b*H : (b+1)*H])
-			}
+	// take puts the next waiting sequence in row b (appending a row when b
+	// is len(s.rows)), loading its state into row block 0.
+	take := func(b int) {
+		i := queue[0]
+		queue = queue[1:]
+		if b == len(s.rows) {
+			s.rows, s.done = append(s.rows, i), append(s.done, 0)
+		} else {
+			s.rows[b], s.done[b] = i, 0
 		}
+		s.load(cr(i), started[i], b)
 	}
-	for t0 := 0; active > 0; {
-		B := active
+	for len(queue) > 0 && len(s.rows) < s.streams {
+		take(len(s.rows))
+	}
+	for len(s.rows) > 0 {
+		B := len(s.rows)
 		w.B = B
-		// The pass runs to where its shortest stream ends, but at least
-		// minPass steps (or to the end of its longest): a stream that ends
-		// inside the pass reads padding after its end, which is neither
-		// scored nor carried, rather than every end cutting a pass short.
-		c := min(w.max, max(steps[s.order[B-1]]-t0, min(minPass, steps[s.order[0]]-t0)))
+		// The pass runs to where its shortest row ends, but at least
+		// minPass steps (or to the end of its longest): a row that ends
+		// inside the pass reads padding after its end, neither scored
+		// nor carried, rather than every end cutting a pass short.
+		lo, hi := math.MaxInt, 0
+		for b, i := range s.rows {
+			r := steps[i] - s.done[b]
+			lo, hi = min(lo, r), max(hi, r)
+		}
+		c := min(w.max, max(lo, min(minPass, hi)))
 		for t := 0; t < c; t++ {
-			for b, i := range s.order[:B] {
+			for b, i := range s.rows {
 				tok := 0
-				if t0+t < steps[i] {
-					tok = read(i, t0+t)
+				if s.done[b]+t < steps[i] {
+					tok = read(i, s.done[b]+t)
 				}
 				s.in[t*B+b] = tok
 			}
@@ -257,22 +258,22 @@ func (s *BatchScorer[T]) group(ctx context.Context, dst [][]float64, seqs [][]in
 		w.forward(m.pool, s.in, c, false)
 		if w.cls != nil {
 			for t := 0; t < c; t++ {
-				for b, i := range s.order[:B] {
+				for b, i := range s.rows {
 					s.tg[t*B+b] = -1
-					if t0+t < steps[i] {
-						s.tg[t*B+b] = seqs[i][target(i, t0+t)]
+					if s.done[b]+t < steps[i] {
+						s.tg[t*B+b] = seqs[i][target(i, s.done[b]+t)]
 					}
 				}
 			}
 			w.classLogProbs(m.pool, s.lp, s.tg, c*B)
 		}
 		for t := 0; t < c; t++ {
-			for b, i := range s.order[:B] {
-				if t0+t >= steps[i] {
+			for b, i := range s.rows {
+				if s.done[b]+t >= steps[i] {
 					continue
 				}
 				r := t*B + b
-				pos := target(i, t0+t)
+				pos := target(i, s.done[b]+t)
 				if w.cls != nil {
 					dst[i][pos] = s.lp[r]
 				} else {
@@ -281,31 +282,79 @@ func (s *BatchScorer[T]) group(ctx context.Context, dst [][]float64, seqs [][]in
 				}
 			}
 		}
-		// Streams that end in this pass leave the batch, from its last row
-		// up, with the state after their last step (row block
-		// steps−t0 of the pass).
-		for active > 0 && steps[s.order[active-1]] <= t0+c {
-			active--
-			i := s.order[active]
-			s.save(cr(i), steps[i]-t0, active, seqs[i])
+		// Rows that end in this pass save the state after their last step
+		// (row block steps−done of the pass) before the pass's last state
+		// becomes block 0.
+		for b, i := range s.rows {
+			if k := steps[i] - s.done[b]; k <= c {
+				s.save(cr(i), k, b, seqs[i])
+			}
 		}
 		w.carry(c)
-		t0 += c
+		// Ended rows take waiting sequences; with none left, the rows
+		// still running close up.
+		for b := 0; b < len(s.rows); {
+			i := s.rows[b]
+			s.done[b] += c
+			if s.done[b] < steps[i] {
+				b++
+				continue
+			}
+			if len(queue) > 0 {
+				take(b)
+				b++
+				continue
+			}
+			last := len(s.rows) - 1
+			if b != last {
+				// The last row has not been advanced yet: it is, when
+				// the loop visits row b again.
+				s.move(last, b)
+				s.rows[b], s.done[b] = s.rows[last], s.done[last]
+			}
+			s.rows, s.done = s.rows[:last], s.done[:last]
+		}
 		if err := ctx.Err(); err != nil {
 			return err
 		}
 	}
-	// Streams that took no step: a fresh one-token sequence starts its
-	// carry with the zero state.
-	for _, i := range s.order {
-		if steps[i] == 0 && len(seqs[i]) == 1 {
-			if c := cr(i); c != nil {
-				c.Reset()
-				c.last = seqs[i][0]
+	return nil
+}
+
+// load sets row b of row block 0 (with the batch at its current size) to
+// c's state, or to the zero state for a fresh stream.
+func (s *BatchScorer[T]) load(c *Carry[T], started bool, b int) {
+	H := s.m.cfg.HiddenSize
+	for l := range s.w.layers {
+		lw := &s.w.layers[l]
+		hb := lw.h[b*H : (b+1)*H]
+		if started {
+			copy(hb, c.h[l*H:(l+1)*H])
+		} else {
+			clear(hb)
+		}
+		if lw.c != nil {
+			cb := lw.c[b*H : (b+1)*H]
+			if started {
+				copy(cb, c.c[l*H:(l+1)*H])
+			} else {
+				clear(cb)
 			}
 		}
 	}
-	return nil
+}
+
+// move copies row from of row block 0 to row to (block 0 starts at
+// offset 0 whatever the batch size).
+func (s *BatchScorer[T]) move(from, to int) {
+	H := s.m.cfg.HiddenSize
+	for l := range s.w.layers {
+		lw := &s.w.layers[l]
+		copy(lw.h[to*H:(to+1)*H], lw.h[from*H:(from+1)*H])
+		if lw.c != nil {
+			copy(lw.c[to*H:(to+1)*H], lw.c[from*H:(from+1)*H])
+		}
+	}
 }
 
 // save copies row b of row block k of the last pass's states into c,

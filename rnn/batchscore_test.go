@@ -28,6 +28,11 @@ var batchCases = []batchCase{
 // one token (no step), equal lengths, lengths past one scoring chunk.
 func batchSeqs(V int) [][]int {
 	lengths := []int{0, 1, 2, 5, 5, 17, 64, 65, 130, 3, 1, 40}
+	// And lengths in no order, so that rows end out of order once the
+	// queue is empty and the running rows must close up.
+	for _, n := range randomTokens(24, 90, 77) {
+		lengths = append(lengths, n)
+	}
 	seqs := make([][]int, len(lengths))
 	for i, n := range lengths {
 		seqs[i] = randomTokens(n, V, uint64(100+i))
@@ -114,7 +119,7 @@ func checkBatchIdentical[T Float](t *testing.T, m *Model[T], V, streams int) {
 
 func TestLogProbsBatchIdentical(t *testing.T) {
 	for _, bc := range batchCases {
-		for _, streams := range []int{1, 4, BatchStreams} {
+		for _, streams := range []int{1, 4, 7, BatchStreams} {
 			t.Run(fmt.Sprintf("%s/float64/streams=%d", bc.name, streams), func(t *testing.T) {
 				checkBatchIdentical(t, newBatchModel[float64](t, bc, 6), bc.V, streams)
 			})
