@@ -100,6 +100,8 @@ type Scorer struct {
 
 	batch   BatchModel // lm when it scores many sequences at once, else nil
 	pending []*piece   // pieces waiting for a full batch
+	// tokens of the pending pieces, their contexts included
+	pendingTokens int
 }
 
 // piece is one piece of a unit: its tokens, their characters and, once
@@ -276,7 +278,8 @@ func (s *Scorer) end() error {
 func (s *Scorer) submit(p *piece) error {
 	if s.batch != nil {
 		s.pending = append(s.pending, p)
-		if len(s.pending) < BatchPieces {
+		s.pendingTokens += len(p.warm) + len(p.tokens)
+		if len(s.pending) < BatchPieces && s.pendingTokens < BatchTokens {
 			return nil
 		}
 		return s.dispatch()
@@ -309,7 +312,7 @@ func (s *Scorer) submit(p *piece) error {
 // batches at a time), consumed in order.
 func (s *Scorer) dispatch() error {
 	ps := s.pending
-	s.pending = nil
+	s.pending, s.pendingTokens = nil, 0
 	if len(ps) == 0 {
 		return nil
 	}

@@ -108,10 +108,16 @@ type BatchModel interface {
 	LogProbsBatch(ctx context.Context, dst [][]float64, seqs [][]int) error
 }
 
-// BatchPieces is the number of pieces a Scorer scores together with a
-// BatchModel: the rows of the first piece of a batch are emitted once the
-// whole batch is scored (or at Flush).
-const BatchPieces = 64
+// BatchPieces is the most pieces a Scorer scores together with a
+// BatchModel, and BatchTokens the most tokens (contexts included) past
+// which it hands the pieces over sooner: enough pieces to keep the
+// model's batch rows (rnn.BatchStreams) full as lines of different
+// lengths end, and a bound on the memory of long pieces. The rows of a
+// batch are emitted once the whole batch is scored (or at Flush).
+const (
+	BatchPieces = 256
+	BatchTokens = 1 << 18
+)
 
 // computeBatch scores the pieces ps (all with the same context) as one
 // batch: each from the start of a document, or after its context tokens.
