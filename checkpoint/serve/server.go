@@ -581,24 +581,31 @@ func (s *Server) scoreLines1(ctx context.Context, sv *served, lines []string, so
 			rows[i].StreamStart = true
 		}
 	} else {
-		// The stream's lines in order, each after the one before: one
-		// request at a time per stream, each line a batch row of its own
-		// carry, scored one line per step of the request.
+		// The stream's lines in order, each after the one before, are one
+		// sequence continuing the stream's carried state: scored as one
+		// row, then cut back into lines. One request at a time per stream.
 		st := s.streams.get(so.Name)
 		defer st.mu.Unlock()
 		if so.Reset || st.gen != sv.facts.Generation || st.carry == nil {
 			st.carry, st.gen, st.lines = sv.m.Net.NewCarry(), sv.facts.Generation, 0
 		}
 		source, first = so.Name, st.lines+1
-		for i := range lines {
-			rows[i].StreamStart = !st.carry.Started()
-			if err := s.run(ctx, sv, dst[i:i+1], seqs[i:i+1], []*rnn.Carry[float32]{st.carry}); err != nil {
-				// The carry may be part-way: start the stream afresh.
-				st.carry = nil
-				return nil, err
-			}
-			st.lines++
+		rows[0].StreamStart = !st.carry.Started()
+		var all []int
+		for _, seq := range seqs {
+			all = append(all, seq...)
 		}
+		lp := make([]float64, len(all))
+		if err := s.run(ctx, sv, [][]float64{lp}, [][]int{all}, []*rnn.Carry[float32]{st.carry}); err != nil {
+			// The carry may be part-way: start the stream afresh.
+			st.carry = nil
+			return nil, err
+		}
+		for i, k := 0, 0; i < len(seqs); i++ {
+			copy(dst[i], lp[k:k+len(seqs[i])])
+			k += len(seqs[i])
+		}
+		st.lines += len(lines)
 	}
 	for i := range rows {
 		rows[i].Row = surprise.LineRow(sv.m.Net.Name(), "rnn", v, seqs[i], chars[i], dst[i], source, first+i)
