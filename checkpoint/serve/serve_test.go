@@ -4,7 +4,10 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"fmt"
+	"io"
 	"math"
+	"net"
 	"net/http"
 	"net/http/httptest"
 	"os"
@@ -42,17 +45,21 @@ func testModel(t testing.TB, shift float32) *checkpoint.Model {
 // records a best validation of bpc bits per character at step 40.
 func saveModel(t testing.TB, m *checkpoint.Model, path string, bpc float64) {
 	t.Helper()
+	if err := writeModel(m, path, bpc); err != nil {
+		t.Fatal(err)
+	}
+}
+
+func writeModel(m *checkpoint.Model, path string, bpc float64) error {
 	tr, err := rnn.NewTrainer(m.Net, rnn.DefaultTrainConfig(), nil)
 	if err != nil {
-		t.Fatal(err)
+		return err
 	}
 	f, err := checkpoint.NewTrainingFile(tr, m.Vocab, nil, checkpoint.Progress{HaveBest: true, BestBitsPerChar: bpc, BestStep: 40})
 	if err != nil {
-		t.Fatal(err)
+		return err
 	}
-	if err := checkpoint.Save(path, f); err != nil {
-		t.Fatal(err)
-	}
+	return checkpoint.Save(path, f)
 }
 
 // start serves the checkpoint at path on a loopback test server.
@@ -438,5 +445,33 @@ func TestDrain(t *testing.T) {
 	}
 	if _, err := c.Health(t.Context()); err == nil {
 		t.Error("a request after the drain was answered")
+	}
+}
+
+// TestSlowClient: a client that stops sending its body holds up neither
+// the other requests nor, past the read deadline, its own connection.
+func TestSlowClient(t *testing.T) {
+	path, _ := fixture(t)
+	_, c := start(t, path, Limits{ReadTimeout: 300 * time.Millisecond})
+	addr := strings.TrimPrefix(c.Base, "http://")
+	conn, err := net.Dial("tcp", addr) // loopback: the test server's address
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer conn.Close()
+	fmt.Fprintf(conn, "POST /v1/score HTTP/1.1\r\nHost: %s\r\nContent-Type: application/json\r\nContent-Length: 100\r\n\r\n{\"lines\": [", addr)
+	if _, err := c.ScoreLine(t.Context(), "the gate.", ""); err != nil {
+		t.Fatalf("another request while one stalls: %v", err)
+	}
+	// The stalled request is answered (or its connection closed) once
+	// the read deadline passes, not left open.
+	conn.SetReadDeadline(time.Now().Add(20 * time.Second))
+	b, err := io.ReadAll(conn)
+	var ne net.Error
+	if errors.As(err, &ne) && ne.Timeout() {
+		t.Fatalf("the stalled request's connection is still open after 20 s (read deadline %v)", 300*time.Millisecond)
+	}
+	if len(b) > 0 && !strings.Contains(string(b), " 400 ") {
+		t.Errorf("stalled request: got %q, want a 400 answer or a closed connection", b)
 	}
 }
