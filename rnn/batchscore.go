@@ -127,10 +127,10 @@ func (m *Model[T]) LogProbsBatch(ctx context.Context, dst [][]float64, seqs [][]
 // P(seqs[i][j] | h_i, seqs[i][:j]), where h_i is the history carry[i] has
 // been given (the start of a document when carry is nil or carry[i] is
 // nil), and moves carry[i] on past seqs[i] (a carry may appear once per
-// call). The sequences are scored s.streams at a time. A sequence's numbers are those LogProbs gives for
-// its history and itself as one sequence. len(dst[i]) must equal
-// len(seqs[i]). It checks ctx between passes; on an error the carries may
-// be partly advanced.
+// call). The sequences are scored s.streams at a time. A sequence's
+// numbers are those LogProbs gives for its history and itself as one
+// sequence. len(dst[i]) must equal len(seqs[i]). It checks ctx between
+// passes; on an error the carries may be partly advanced.
 func (s *BatchScorer[T]) LogProbs(ctx context.Context, dst [][]float64, seqs [][]int, carry []*Carry[T]) error {
 	m := s.m
 	if len(dst) != len(seqs) || (carry != nil && len(carry) != len(seqs)) {
