@@ -11,7 +11,11 @@
 // from the start of a document (a fresh model state) unless Options.Context
 // warms the model up on the tokens of the same input just before it. Up to
 // Options.Workers pieces are scored at once; the rows, and every number in
-// them, are the same for any number of workers.
+// them, are the same for any number of workers. A model that scores many
+// sequences at once (a BatchModel, such as rnn.Model) gets BatchPieces
+// pieces per call, each worker scoring one such batch at a time, with the
+// same numbers as one piece at a time; the rows of a batch are then
+// emitted when the whole batch is scored.
 package surprise
 
 import (
@@ -19,7 +23,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"math"
 	"slices"
 	"unicode/utf8"
 
@@ -103,12 +106,12 @@ type Scorer struct {
 	sem   chan struct{}
 
 	// The unit being assembled.
-	row   Row
-	nats  float64
-	worst float64 // surprise of the most surprising token so far, in nats
-	text  []byte
-	runes int
-	prev  int
+	acc unit
+
+	batch   BatchModel // lm when it scores many sequences at once, else nil
+	pending []*piece   // pieces waiting for a full batch
+	// tokens of the pending pieces, their contexts included
+	pendingTokens int
 }
 
 // piece is one piece of a unit: its tokens, their characters and, once
@@ -151,6 +154,7 @@ func New(lm eval.LanguageModel, kind string, v *data.Vocab, o Options, emit func
 		return nil, fmt.Errorf("the context must be 0 or more tokens, got %d", o.Context)
 	}
 	s := &Scorer{lm: lm, kind: kind, vocab: v, o: o, newline: -1, skipText: -1, emit: emit}
+	s.batch, _ = lm.(BatchModel)
 	if id, ok := v.ID("\n"); ok {
 		s.newline = id
 	}
@@ -247,6 +251,9 @@ func (s *Scorer) readLines(p []byte) {
 
 // Flush waits for every piece handed over and emits the rows they finish.
 func (s *Scorer) Flush() error {
+	if err := s.dispatch(); err != nil {
+		return err
+	}
 	for len(s.queue) > 0 {
 		if err := s.consumeOldest(); err != nil {
 			return err
@@ -316,6 +323,14 @@ func (s *Scorer) end() error {
 }
 
 func (s *Scorer) submit(p *piece) error {
+	if s.batch != nil {
+		s.pending = append(s.pending, p)
+		s.pendingTokens += len(p.warm) + len(p.tokens)
+		if len(s.pending) < BatchPieces && s.pendingTokens < BatchTokens {
+			return nil
+		}
+		return s.dispatch()
+	}
 	if s.o.Workers <= 1 {
 		s.compute(p)
 		return s.consume(p)
@@ -332,6 +347,46 @@ func (s *Scorer) submit(p *piece) error {
 		close(p.done)
 	}()
 	for len(s.queue) > 2*s.o.Workers {
+		if err := s.consumeOldest(); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// dispatch hands the pending pieces to the model as one batch: scored at
+// once with one worker, else on a goroutine of their own (up to Workers
+// batches at a time), consumed in order.
+func (s *Scorer) dispatch() error {
+	ps := s.pending
+	s.pending, s.pendingTokens = nil, 0
+	if len(ps) == 0 {
+		return nil
+	}
+	if s.o.Workers <= 1 {
+		s.computeBatch(ps)
+		for _, p := range ps {
+			if err := s.consume(p); err != nil {
+				return err
+			}
+		}
+		return nil
+	}
+	if s.sem == nil {
+		s.sem = make(chan struct{}, s.o.Workers)
+	}
+	done := make(chan struct{})
+	for _, p := range ps {
+		p.done = done
+	}
+	s.queue = append(s.queue, ps...)
+	s.sem <- struct{}{}
+	go func() {
+		s.computeBatch(ps)
+		<-s.sem
+		close(done)
+	}()
+	for len(s.queue) > 2*s.o.Workers*BatchPieces {
 		if err := s.consumeOldest(); err != nil {
 			return err
 		}
@@ -376,56 +431,15 @@ func (s *Scorer) consume(p *piece) error {
 		return p.err
 	}
 	if p.first {
-		s.row = Row{Source: p.source, Line: p.line}
-		s.nats, s.worst = 0, math.Inf(-1)
-		s.text, s.runes, s.prev = s.text[:0], 0, -1
+		s.acc.begin(p.source, p.line)
 	}
-	v := s.vocab
-	keepText := s.o.Unit != Document
-	if len(p.tokens) > 0 {
-		res := eval.NewResult(s.lm.Name(), s.kind, "", p.logp, p.nchars)
-		res.SetUnknown(p.tokens, v.Unknown(), true)
-		offset := s.row.Characters
-		for i, lp := range p.logp {
-			id := p.tokens[i]
-			if -lp > s.worst {
-				s.worst = -lp
-				s.row.SurpriseBits = -lp / math.Ln2
-				s.row.SurpriseOffset = offset
-				s.row.SurpriseToken = v.Decode(p.tokens[i : i+1])
-				if id == v.Boundary() || id == v.Unknown() {
-					s.row.SurpriseToken = v.Piece(id)
-				}
-			}
-			offset += p.chars[i]
-			if keepText && s.runes <= TextLimit && id != s.skipText {
-				t := v.TokenText(s.prev, id)
-				s.text = append(s.text, t...)
-				s.runes += utf8.RuneCountInString(t)
-				s.prev = id
-			}
-		}
-		s.nats += res.CrossEntropyNats
-		s.row.Characters += p.nchars
-		s.row.Tokens += res.Tokens
-		s.row.UnknownTokens += res.UnknownTokens
-		s.row.Pieces++
-	}
-	if !p.last || s.row.Tokens == 0 {
+	s.acc.add(s.lm.Name(), s.kind, s.vocab, s.o.Unit != Document, s.skipText, p.tokens, p.chars, p.nchars, p.logp)
+	if !p.last || s.acc.row.Tokens == 0 {
 		return nil
 	}
-	r := s.row
-	r.Bits = s.nats / math.Ln2
-	r.BitsPerChar = r.Bits / float64(r.Characters)
-	if keepText {
-		n := s.runes
-		r.Text = string(s.text)
-		if s.o.Unit == Line {
-			r.Text, n = p.text, utf8.RuneCountInString(p.text)
-		}
-		if n > TextLimit {
-			r.Text = string(append([]rune(r.Text)[:TextLimit], '…'))
-		}
+	r := s.acc.finish(s.o.Unit != Document)
+	if s.o.Unit == Line {
+		r.Text = lineText(p.text) // the line as it was read
 	}
 	r.Seq = s.seq
 	s.seq++
