@@ -2,6 +2,11 @@ package rnn
 
 import "weft/rnn/linalg"
 
+// Gates is the number of H-wide blocks in the gate vector of one layer of
+// the cell c names (its Cell's Gates): 1 for "rnn", 3 for "gru", 4 for
+// "lstm" (and for an unknown name, as NewModel would reject it).
+func (c Config) Gates() int { return newCell[float32](c).Gates() }
+
 // MatMulTerm is one kind of weight matrix that every position of a window
 // goes through: Count matrices of In×Out weights, each one multiply-add per
 // weight in the forward pass.
@@ -36,7 +41,7 @@ type MatMulTerm struct {
 // the embedding gather are not counted. An invalid c is counted as
 // written, with the LSTM's 4 gates for an unknown cell.
 func (c Config) MatMulCost(vocab int, classStart []int) (flop float64, terms []MatMulTerm) {
-	gates := newCell[float32](c).Gates()
+	gates := c.Gates()
 	E, H, P, L := c.EmbeddingSize, c.HiddenSize, c.ProjectionSize, c.Layers
 	G := gates * H
 	K, k := H, "H"
@@ -91,7 +96,7 @@ func (c Config) MatMulCost(vocab int, classStart []int) (flop float64, terms []M
 // setting on a given one. cores < 1 counts as 1.
 func ChooseThreads(c Config, batchSize, cores int) int {
 	cores = max(cores, 1)
-	G := newCell[float32](c).Gates() * c.HiddenSize
+	G := c.Gates() * c.HiddenSize
 	parts := linalg.ProductParts(cores, max(batchSize, 1), G, c.HiddenSize)
 	return min(cores, max(min(8, cores), parts))
 }

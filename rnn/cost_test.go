@@ -99,3 +99,19 @@ func TestChooseThreads(t *testing.T) {
 		}
 	}
 }
+
+// TestConfigGates checks Config.Gates against the cells' gate counts (the
+// tensor table of doc.go: G = 1·H, 3·H, 4·H).
+func TestConfigGates(t *testing.T) {
+	for cell, want := range map[string]int{"rnn": 1, "gru": 3, "lstm": 4} {
+		c := DefaultConfig()
+		c.Cell = cell
+		m, err := NewModel[float32](c, 5, 1)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := c.Gates(); got != want || got != m.Cell().Gates() {
+			t.Errorf("%s: got %d gates, want %d (model's cell: %d)", cell, got, want, m.Cell().Gates())
+		}
+	}
+}
