@@ -142,8 +142,8 @@ def summarize(a):
     same thread count and against the peer's best count, and each engine's
     scaling over its smallest thread count. Engines: "weft", "torch" and,
     when the script was given a second weft binary, "weft-old"; "weft" over
-    "weft-old" is also given per round (the two ran back to back), as a
-    range."""
+    "weft-old" is taken per round (the two ran back to back) and given as
+    the median and range of those ratios."""
     runs = [json.loads(line) for line in open(a.runs) if line.strip()]
     runs = [r for r in runs if "tokens_per_second" in r]
     configs, threads, engines = [], [], []
@@ -185,6 +185,7 @@ def summarize(a):
                 row["ratio_vs_weft_old"] = (w / row["weft-old_tokens_per_second"]
                                             if w and row["weft-old_tokens_per_second"] else None)
                 row["ratio_vs_weft_old_per_round"] = [min(pairs), max(pairs)] if pairs else None
+                row["ratio_vs_weft_old_per_round_median"] = statistics.median(pairs) if pairs else None
             rows.append(row)
     info = {}
     for r in runs:
@@ -207,7 +208,7 @@ def summarize(a):
     if "torch" in engines and "weft" in engines:
         head += ["weft / torch same threads", "weft / torch best"]
     if "weft-old" in engines:
-        head += ["weft / weft-old (per-round range)"]
+        head += ["weft / weft-old: median of rounds (range)"]
     print("| " + " | ".join(head) + " |")
     print("|" + "---|" * len(head))
     for r in rows:
@@ -218,7 +219,7 @@ def summarize(a):
             cells += [r2(r["ratio_vs_torch_same_threads"]), r2(r["ratio_vs_torch_best"])]
         if "weft-old" in engines:
             pr = r["ratio_vs_weft_old_per_round"]
-            cells.append(f"{r2(r['ratio_vs_weft_old'])} ({r2(pr[0])}-{r2(pr[1])})" if pr else "n/a")
+            cells.append(f"{r2(r['ratio_vs_weft_old_per_round_median'])} ({r2(pr[0])}-{r2(pr[1])})" if pr else "n/a")
         print("| " + " | ".join(cells) + " |")
     print()
     n = max((r.get("weft_runs", 0) for r in rows), default=0)

@@ -40,6 +40,7 @@ type kernel[T Float] struct {
 type cache[E any] struct {
 	mu   sync.Mutex
 	free []*E
+	made int // objects made for this cache (see kernel.reserve)
 }
 
 // get returns a cached object or nil.
@@ -80,6 +81,27 @@ func (kern *kernel[T]) workspace() *workspace[T] {
 	if w := kern.spaces.get(); w != nil {
 		return w
 	}
+	kern.spaces.mu.Lock()
+	kern.spaces.made++
+	kern.spaces.mu.Unlock()
+	return kern.newWorkspace()
+}
+
+// reserve makes sure that at least n workspaces exist, so that a product
+// of n parts finds one for each part in the cache even when all of them
+// run at once (on a machine with fewer cores than threads that happens
+// only by chance, and would make a later product allocate).
+func (kern *kernel[T]) reserve(n int) {
+	c := &kern.spaces
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	for c.made < n {
+		c.free = append(c.free, kern.newWorkspace())
+		c.made++
+	}
+}
+
+func (kern *kernel[T]) newWorkspace() *workspace[T] {
 	return &workspace[T]{
 		a:    alignedSlice[T](kern.mc * kern.kc),
 		b:    alignedSlice[T](kern.kc * kern.nc),
@@ -158,6 +180,9 @@ func gemmRun[T Float](p *Pool, kern *kernel[T], tA, tB bool, m, n, k int, alpha 
 	j := kern.job()
 	*j = gemmJob[T]{kern: kern, tA: tA, tB: tB, m: m, n: n, k: k, alpha: alpha, a: a, lda: lda, b: b, ldb: ldb, beta: beta, c: c, ldc: ldc, parts: 1}
 	j.plan(p.Threads())
+	if j.parts > 1 {
+		kern.reserve(j.parts)
+	}
 	p.run(j, j.parts)
 	*j = gemmJob[T]{}
 	kern.jobs.put(j)

@@ -120,7 +120,8 @@ func (wb *workspaceBarrier) wait(parts int) {
 // which on a 16-core server made training slower above 8 threads. With all
 // parts forced to hold their workspace at once, a steady-state product
 // must allocate nothing at 16, 32 and 64 threads, plain and packed, and the
-// cache must not grow after the first product.
+// kernel must have made exactly one workspace per thread of the largest
+// pool: memory grows by the per-thread scratch and no more.
 func TestGemmManyPackersNoAllocs(t *testing.T) {
 	wb := &workspaceBarrier{}
 	testHookWorkspace = wb.wait
@@ -135,9 +136,13 @@ func TestGemmManyPackersNoAllocs(t *testing.T) {
 	for i := range b {
 		b[i] = float32(i%5) - 2
 	}
+	// A kernel of its own, so that the workspaces counted are this test's.
+	k32 := kernel32()
+	kern := &kernel[float32]{name: k32.name, mr: k32.mr, nr: k32.nr, mc: k32.mc, kc: k32.kc, nc: k32.nc,
+		micro: k32.micro, packA: k32.packA, packB: k32.packB}
 	var pb PackedB
 	PackB(&pb, true, k, n, b, k)
-	kern := kernel32()
+	pb.kern = kern
 	var total int64
 	for _, threads := range []int{16, 32, 64} {
 		p := NewPool(threads)
@@ -151,21 +156,20 @@ func TestGemmManyPackersNoAllocs(t *testing.T) {
 		for _, packed := range []bool{false, true} {
 			prod := func() {
 				if packed {
-					GemmPacked(p, false, m, 1, a, k, &pb, 0, c, n)
+					gemmPackedRun(p, &pb, false, m, 1, a, k, 0, c, n)
 				} else {
-					Gemm(p, false, true, m, n, k, 1, a, k, b, k, 0, c, n)
+					gemmRun(p, kern, false, true, m, n, k, 1, a, k, b, k, 0, c, n)
 				}
 			}
-			prod() // the first product may fill the cache
-			size := kern.spaces.size()
-			if size < threads {
-				t.Errorf("threads=%d packed=%v: %d workspaces cached after a product that held %d at once", threads, packed, size, threads)
-			}
+			prod() // the first product at this thread count makes the workspaces
 			if allocs := testing.AllocsPerRun(3, prod); allocs != 0 {
 				t.Errorf("threads=%d packed=%v: got %v allocations per product, want 0", threads, packed, allocs)
 			}
-			if got := kern.spaces.size(); got != size {
-				t.Errorf("threads=%d packed=%v: workspace cache grew from %d to %d in steady state", threads, packed, size, got)
+			kern.spaces.mu.Lock()
+			made, cached := kern.spaces.made, len(kern.spaces.free)
+			kern.spaces.mu.Unlock()
+			if made != threads || cached != threads {
+				t.Errorf("threads=%d packed=%v: %d workspaces made, %d cached, want %d and %d (one per thread)", threads, packed, made, cached, threads, threads)
 			}
 		}
 		p.Close()
