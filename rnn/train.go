@@ -79,7 +79,9 @@ type Trainer[T Float] struct {
 // Dropout masks come from a PCG generator seeded with cfg.Seed (on its own
 // stream, distinct from initialisation). pool may be nil; cfg.Threads is
 // not read here: the caller sizes the pool from it
-// (linalg.NewPool(threads), one per core when zero) and closes it.
+// (linalg.NewPool(threads); for zero, ChooseThreads gives the count) and
+// closes it. The trainer runs the products, the gate loops, the optimizer
+// update and the gradient clipping on the pool's threads.
 func NewTrainer[T Float](m *Model[T], cfg TrainConfig, pool *linalg.Pool) (*Trainer[T], error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, err
