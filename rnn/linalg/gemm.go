@@ -65,13 +65,6 @@ func (c *cache[E]) put(e *E) {
 	c.mu.Unlock()
 }
 
-// size reports the number of objects cached now.
-func (c *cache[E]) size() int {
-	c.mu.Lock()
-	defer c.mu.Unlock()
-	return len(c.free)
-}
-
 // workspace holds one thread's packing buffers, aligned to 64 bytes.
 type workspace[T Float] struct {
 	a, b, tile []T
