@@ -52,8 +52,10 @@ demo: build
 bench: check-go corpora
 	$(GO) test -run '^$$' -bench . -benchmem -benchtime 3x ./...
 
+# THREADS: the thread counts to sweep, e.g. make bench-peer THREADS="1 2 4 8 16"
+# (default 1 2 up to 2 cores, else 1 2 4 ... up to the core count).
 bench-peer: build
-	./testdata/bench-peer.sh
+	THREADS="$(THREADS)" ./testdata/bench-peer.sh
 
 fuzz: check-go
 	@set -e; for pkg in $$($(GO) list ./...); do \

@@ -8,9 +8,10 @@ import (
 )
 
 // TestCellThreadsBitIdentical trains every cell form for a few windows on
-// 1, 2 and 3 threads at a shape where the cells' row loops (Pool.For over
+// 1, 2, 3, 16 and 64 threads at a shape where the cells' row loops (Pool.For over
 // the B streams), the column sums and the packed recurrent products are
-// all split between threads, and checks that the parameters come out with
+// all split between threads (as are the optimizer update and the gradient
+// norm and clipping, issue 17), and checks that the parameters come out with
 // the same bits (the determinism rule of DEVELOPERS.md: work is split over
 // outputs, never over a reduction).
 func TestCellThreadsBitIdentical(t *testing.T) {
@@ -25,7 +26,7 @@ func TestCellThreadsBitIdentical(t *testing.T) {
 	if B <= rowGrainElems/H {
 		t.Fatalf("B=%d rows of %d elements form one range (grain %d rows): the test would not split", B, H, rowGrainElems/H)
 	}
-	pools := []*linalg.Pool{linalg.NewPool(2), linalg.NewPool(3)}
+	pools := []*linalg.Pool{linalg.NewPool(2), linalg.NewPool(3), linalg.NewPool(16), linalg.NewPool(64)}
 	defer func() {
 		for _, p := range pools {
 			p.Close()

@@ -175,10 +175,51 @@
 // # Determinism
 //
 // For a fixed config, seed and window sequence, training is bit-identical
-// run to run and whatever the number of threads: elementwise work runs on
-// one goroutine in a fixed order, and linalg.Gemm splits its work over
-// output elements only. Randomness comes only from explicitly seeded PCG
-// generators (initialisation and dropout use distinct streams).
+// run to run and whatever the number of threads: linalg.Gemm splits its
+// work over output elements only; elementwise work is split over outputs
+// too, each element computed as a loop on one goroutine would; and the one
+// reduction split over threads, the squares of the clipping norm, is summed
+// in fixed runs of 4096 elements whose partial sums are added in order
+// (GlobalNorm), so the split never moves a rounding. Randomness comes only
+// from explicitly seeded PCG generators (initialisation and dropout use
+// distinct streams). TestCellThreadsBitIdentical and
+// TestOptimizerThreadsBitIdentical check this on 1 to 64 threads.
+//
+// # Threads
+//
+// A Trainer runs on the threads of its linalg.Pool. What is split, and how
+// far:
+//
+//   - Every matrix product, into one part per 2^19 multiply-adds (about ten
+//     microseconds of one core), at most one per thread
+//     (linalg.ProductParts). The per-step recurrent product of a small
+//     model is small: 32×1024×256 for a 256-wide LSTM at B = 32 pays for 16
+//     threads, 32×768×256 (GRU) for 12, so extra threads sit out the
+//     recurrence instead of costing it synchronisation. The input, output
+//     and weight-gradient products cover all B·T positions of the window
+//     and split over any number of threads.
+//   - The gate arithmetic of each step, over the B streams, in runs of rows
+//     of at least 4096 gate values.
+//   - The optimizer update, the clipping norm and the clipping, over the
+//     parameters taken as one vector, in runs of 8192 (update) and 32768
+//     (scaling, clamping) elements. Serial, the update phase was about a
+//     fifth of an 8-thread window of the 256-wide LSTM on a 16-core server
+//     (issue 17), capping its speed-up near 5×.
+//
+// Each thread that packs a product's operands holds a workspace of its
+// own, reused across products: training allocates nothing per window on
+// any number of threads (TestSteadyStateAllocs at 1, 2, 16, 32 and 64;
+// rnn/linalg forces all of a product's parts to hold their buffers at once
+// on any machine), and memory grows by one packing workspace per thread
+// (MC·KC + KC·NC floats: 2.3 MB with the AVX-512 kernel, 1.2 MB portable).
+//
+// ChooseThreads is the rule training.threads = 0 stands for: one thread
+// per core, but no more than the recurrent step pays for, and never fewer
+// than 8 where the machine has 8 cores or more. It is derived from the
+// cost of the products, not measured on a many-core machine; `weft bench
+// --threads-sweep` measures every setting on the machine at hand. Not done
+// yet: running slices of the batch, or the layers of a stack, side by side
+// on groups of threads.
 //
 // # Inference
 //

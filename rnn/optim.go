@@ -3,11 +3,16 @@ package rnn
 import (
 	"fmt"
 	"math"
+
+	"weft/rnn/linalg"
 )
 
 // Optimizer updates a model's parameters from their gradients. Each
 // implementation follows its published update rule, stated on its type;
-// updates are computed in float64 per element and stored back as T.
+// updates are computed in float64 per element and stored back as T. Each
+// element's update reads only that element's parameter, gradient and state,
+// so a Trainer splits Step over its pool's threads with the same bits on
+// any number of threads.
 //
 // The full state is exposed for checkpoints: StateTensors lists live views
 // of every per-parameter slot, named "optim.<slot>.<parameter name>" with the
@@ -41,29 +46,37 @@ func NewOptimizer[T Float](cfg TrainConfig, params []Param[T]) (Optimizer[T], er
 	if err := cfg.Validate(); err != nil {
 		return nil, err
 	}
-	b := optBase[T]{params: params, name: cfg.Optimizer, wd: cfg.WeightDecay, eps: cfg.Epsilon}
+	b := optBase[T]{params: params, name: cfg.Optimizer, wd: cfg.WeightDecay, eps: cfg.Epsilon, loop: newParamLoop(params)}
 	switch cfg.Optimizer {
 	case "sgd":
 		o := &sgd[T]{optBase: b, mu: cfg.Momentum, nesterov: cfg.Nesterov}
 		if o.mu > 0 {
 			o.v = o.slot("velocity")
 		}
+		o.loop.upd = o
 		return o, nil
 	case "adagrad":
 		o := &adagrad[T]{optBase: b}
 		o.g2 = o.slot("sum_sq")
+		o.loop.upd = o
 		return o, nil
 	case "rmsprop":
 		o := &rmsprop[T]{optBase: b, rho: cfg.RMSDecay}
 		o.s = o.slot("mean_sq")
+		o.loop.upd = o
 		return o, nil
 	default: // adam, adamw
 		o := &adam[T]{optBase: b, b1: cfg.Beta1, b2: cfg.Beta2, decoupled: cfg.Optimizer == "adamw"}
 		o.m = o.slot("m")
 		o.v = o.slot("v")
+		o.loop.upd = o
 		return o, nil
 	}
 }
+
+// pooled is implemented by every optimizer of this package: setPool makes
+// Step split its elements over p's threads (nil: the caller alone).
+type pooled interface{ setPool(p *linalg.Pool) }
 
 type optBase[T Float] struct {
 	params  []Param[T]
@@ -71,6 +84,17 @@ type optBase[T Float] struct {
 	wd, eps float64
 	steps   int64
 	tensors []Tensor[T]
+	loop    *paramLoop[T] // the elements, split over pool's threads
+	pool    *linalg.Pool
+	lr      float64 // the rate of the running Step
+}
+
+func (o *optBase[T]) setPool(p *linalg.Pool) { o.pool = p }
+
+// run applies the optimizer's update to every element.
+func (o *optBase[T]) run(lr float64) {
+	o.lr = lr
+	o.loop.run(o.pool, paramUpdate)
 }
 
 // slot allocates one state slot shaped like the parameters, in one block,
@@ -123,21 +147,25 @@ type sgd[T Float] struct {
 
 func (o *sgd[T]) Step(lr float64) {
 	o.steps++
-	for pi, p := range o.params {
-		for i, gv := range p.Grad {
-			th := float64(p.Value[i])
-			g := float64(gv) + o.wd*th
-			if o.mu > 0 {
-				v := o.mu*float64(o.v[pi][i]) + g
-				o.v[pi][i] = T(v)
-				if o.nesterov {
-					g += o.mu * v
-				} else {
-					g = v
-				}
+	o.run(lr)
+}
+
+func (o *sgd[T]) update(pi, i0, i1 int) {
+	p, lr := o.params[pi], o.lr
+	for i := i0; i < i1; i++ {
+		gv := p.Grad[i]
+		th := float64(p.Value[i])
+		g := float64(gv) + o.wd*th
+		if o.mu > 0 {
+			v := o.mu*float64(o.v[pi][i]) + g
+			o.v[pi][i] = T(v)
+			if o.nesterov {
+				g += o.mu * v
+			} else {
+				g = v
 			}
-			p.Value[i] = T(th - lr*g)
 		}
+		p.Value[i] = T(th - lr*g)
 	}
 }
 
@@ -153,14 +181,18 @@ type adagrad[T Float] struct {
 
 func (o *adagrad[T]) Step(lr float64) {
 	o.steps++
-	for pi, p := range o.params {
-		for i, gv := range p.Grad {
-			th := float64(p.Value[i])
-			g := float64(gv) + o.wd*th
-			s := float64(o.g2[pi][i]) + g*g
-			o.g2[pi][i] = T(s)
-			p.Value[i] = T(th - lr*g/(math.Sqrt(s)+o.eps))
-		}
+	o.run(lr)
+}
+
+func (o *adagrad[T]) update(pi, i0, i1 int) {
+	p, lr := o.params[pi], o.lr
+	for i := i0; i < i1; i++ {
+		gv := p.Grad[i]
+		th := float64(p.Value[i])
+		g := float64(gv) + o.wd*th
+		s := float64(o.g2[pi][i]) + g*g
+		o.g2[pi][i] = T(s)
+		p.Value[i] = T(th - lr*g/(math.Sqrt(s)+o.eps))
 	}
 }
 
@@ -177,14 +209,18 @@ type rmsprop[T Float] struct {
 
 func (o *rmsprop[T]) Step(lr float64) {
 	o.steps++
-	for pi, p := range o.params {
-		for i, gv := range p.Grad {
-			th := float64(p.Value[i])
-			g := float64(gv) + o.wd*th
-			s := o.rho*float64(o.s[pi][i]) + (1-o.rho)*g*g
-			o.s[pi][i] = T(s)
-			p.Value[i] = T(th - lr*g/(math.Sqrt(s)+o.eps))
-		}
+	o.run(lr)
+}
+
+func (o *rmsprop[T]) update(pi, i0, i1 int) {
+	p, lr := o.params[pi], o.lr
+	for i := i0; i < i1; i++ {
+		gv := p.Grad[i]
+		th := float64(p.Value[i])
+		g := float64(gv) + o.wd*th
+		s := o.rho*float64(o.s[pi][i]) + (1-o.rho)*g*g
+		o.s[pi][i] = T(s)
+		p.Value[i] = T(th - lr*g/(math.Sqrt(s)+o.eps))
 	}
 }
 
@@ -206,70 +242,56 @@ type adam[T Float] struct {
 	b1, b2    float64
 	decoupled bool
 	m, v      [][]T
+	c1, c2    float64 // bias corrections of the running Step
 }
 
 func (o *adam[T]) Step(lr float64) {
 	o.steps++
-	c1 := 1 - math.Pow(o.b1, float64(o.steps))
-	c2 := 1 - math.Pow(o.b2, float64(o.steps))
-	for pi, p := range o.params {
-		mm, vv := o.m[pi], o.v[pi]
-		for i, gv := range p.Grad {
-			th := float64(p.Value[i])
-			g := float64(gv)
-			if !o.decoupled {
-				g += o.wd * th
-			}
-			m := o.b1*float64(mm[i]) + (1-o.b1)*g
-			v := o.b2*float64(vv[i]) + (1-o.b2)*g*g
-			mm[i], vv[i] = T(m), T(v)
-			u := (m / c1) / (math.Sqrt(v/c2) + o.eps)
-			if o.decoupled {
-				u += o.wd * th
-			}
-			p.Value[i] = T(th - lr*u)
+	o.c1 = 1 - math.Pow(o.b1, float64(o.steps))
+	o.c2 = 1 - math.Pow(o.b2, float64(o.steps))
+	o.run(lr)
+}
+
+func (o *adam[T]) update(pi, i0, i1 int) {
+	p, lr, c1, c2 := o.params[pi], o.lr, o.c1, o.c2
+	mm, vv := o.m[pi], o.v[pi]
+	for i := i0; i < i1; i++ {
+		gv := p.Grad[i]
+		th := float64(p.Value[i])
+		g := float64(gv)
+		if !o.decoupled {
+			g += o.wd * th
 		}
+		m := o.b1*float64(mm[i]) + (1-o.b1)*g
+		v := o.b2*float64(vv[i]) + (1-o.b2)*g*g
+		mm[i], vv[i] = T(m), T(v)
+		u := (m / c1) / (math.Sqrt(v/c2) + o.eps)
+		if o.decoupled {
+			u += o.wd * th
+		}
+		p.Value[i] = T(th - lr*u)
 	}
 }
 
 // GlobalNorm returns the L2 norm of all the gradients taken as one vector,
-// ‖g‖₂ = √(Σ g²), summed in float64 in Params order.
+// ‖g‖₂ = √(Σ g²), summed in float64: the squares of each run of 4096
+// elements of that vector (the parameters in Params order) in order, then
+// those partial sums in order. A Trainer computes the partial sums on its
+// pool's threads and gets the same bits.
 func GlobalNorm[T Float](params []Param[T]) float64 {
-	var ss float64
-	for _, p := range params {
-		for _, g := range p.Grad {
-			ss += float64(g) * float64(g)
-		}
-	}
-	return math.Sqrt(ss)
+	return newParamLoop(params).norm(nil)
 }
 
 // ClipGlobalNorm rescales all gradients by maxNorm/‖g‖₂ when their global
-// norm ‖g‖₂ exceeds maxNorm (Pascanu, Mikolov & Bengio 2013, Algorithm 1),
-// and returns the norm before clipping. maxNorm ≤ 0 only measures.
+// norm ‖g‖₂ (GlobalNorm) exceeds maxNorm (Pascanu, Mikolov & Bengio 2013,
+// Algorithm 1), and returns the norm before clipping. maxNorm ≤ 0 only
+// measures.
 func ClipGlobalNorm[T Float](params []Param[T], maxNorm float64) float64 {
-	norm := GlobalNorm(params)
-	if maxNorm > 0 && norm > maxNorm {
-		s := T(maxNorm / norm)
-		for _, p := range params {
-			for i := range p.Grad {
-				p.Grad[i] *= s
-			}
-		}
-	}
-	return norm
+	return newParamLoop(params).clipNorm(nil, maxNorm)
 }
 
 // ClipValue clamps every gradient element to [−limit, limit]; limit ≤ 0
 // does nothing.
 func ClipValue[T Float](params []Param[T], limit float64) {
-	if limit <= 0 {
-		return
-	}
-	hi := T(limit)
-	for _, p := range params {
-		for i, g := range p.Grad {
-			p.Grad[i] = min(max(g, -hi), hi)
-		}
-	}
+	newParamLoop(params).clipValue(nil, limit)
 }

@@ -1,8 +1,12 @@
 package rnn
 
 import (
+	"fmt"
 	"math"
+	"math/rand/v2"
 	"testing"
+
+	"weft/rnn/linalg"
 )
 
 // optTol is the tolerance on hand-computed optimizer steps: the hand
@@ -266,5 +270,110 @@ func TestConfigValidate(t *testing.T) {
 	tc.Schedule = "cosine"
 	if err := tc.Validate(); err == nil || err.Error() != `training.schedule "cosine" needs training.cosine_steps or training.max_steps` {
 		t.Errorf("cosine without length: got %v", err)
+	}
+}
+
+// TestOptimizerThreadsBitIdentical checks that the parallel update, norm
+// and clipping of issue 17 give the same bits on 1, 2, 16 and 64 threads,
+// for every optimizer, with both clipping rules active, on parameters of
+// ragged sizes (some empty, some a fraction of a chunk) large enough that
+// every pass is split into many ranges.
+func TestOptimizerThreadsBitIdentical(t *testing.T) {
+	sizes := []int{7, 0, 20000, 3, 4099, 150000, 1, 0, 77777}
+	total := 0
+	for _, n := range sizes {
+		total += n
+	}
+	if total/updateGrain < 16 || total/normChunk < 16 {
+		t.Fatalf("%d elements form fewer than 16 ranges: the test would not split", total)
+	}
+	pools := []*linalg.Pool{nil, linalg.NewPool(2), linalg.NewPool(16), linalg.NewPool(64)}
+	defer func() {
+		for _, p := range pools {
+			p.Close()
+		}
+	}()
+	for _, name := range []string{"sgd", "adagrad", "rmsprop", "adam", "adamw"} {
+		t.Run(name, func(t *testing.T) {
+			cfg := DefaultTrainConfig()
+			cfg.Optimizer, cfg.WeightDecay, cfg.ClipNorm, cfg.ClipValue = name, 0.01, 1, 0.004
+			if name == "sgd" {
+				cfg.Momentum = 0.9
+			}
+			run := func(p *linalg.Pool) ([]float32, []float64) {
+				rng := rand.New(rand.NewPCG(3, 4))
+				var ps []Param[float32]
+				for i, n := range sizes {
+					v, g := make([]float32, n), make([]float32, n)
+					for j := range v {
+						v[j] = float32(rng.NormFloat64())
+					}
+					ps = append(ps, Param[float32]{Name: fmt.Sprint("p", i), Shape: []int{n}, Value: v, Grad: g})
+				}
+				opt, err := NewOptimizer(cfg, ps)
+				if err != nil {
+					t.Fatal(err)
+				}
+				opt.(pooled).setPool(p)
+				loop := newParamLoop(ps)
+				var norms []float64
+				for step := 0; step < 3; step++ {
+					for _, q := range ps {
+						for j := range q.Grad {
+							q.Grad[j] = float32(rng.NormFloat64() * 0.01)
+						}
+					}
+					norms = append(norms, loop.clipNorm(p, cfg.ClipNorm))
+					loop.clipValue(p, cfg.ClipValue)
+					opt.Step(0.01)
+				}
+				var out []float32
+				for _, q := range ps {
+					out = append(out, q.Value...)
+				}
+				for _, st := range opt.StateTensors() {
+					out = append(out, st.Value...)
+				}
+				return out, norms
+			}
+			want, wantNorms := run(nil)
+			for _, p := range pools[1:] {
+				got, norms := run(p)
+				if k := sameBits(want, got); k >= 0 {
+					t.Errorf("threads=%d: value or state %d got %v want %v (1 thread)", p.Threads(), k, got[k], want[k])
+				}
+				for s := range norms {
+					if math.Float64bits(norms[s]) != math.Float64bits(wantNorms[s]) {
+						t.Errorf("threads=%d: step %d norm got %v want %v (1 thread)", p.Threads(), s, norms[s], wantNorms[s])
+					}
+				}
+			}
+			// The norms clipped (σ = 0.01 over ~250k elements: about 5 > 1).
+			if wantNorms[0] <= cfg.ClipNorm {
+				t.Errorf("norm %v does not exceed clip_norm %v: clipping was not exercised", wantNorms[0], cfg.ClipNorm)
+			}
+		})
+	}
+}
+
+// TestGlobalNormChunks checks the chunked sum of GlobalNorm against the
+// plain definition √(Σ g²) summed in one float64 loop (tolerance: float64
+// rounding over 10^5 terms, common practice), across parameter
+// boundaries that fall inside chunks.
+func TestGlobalNormChunks(t *testing.T) {
+	const tol = 1e-12
+	rng := rand.New(rand.NewPCG(5, 6))
+	var ps []Param[float32]
+	var ss float64
+	for _, n := range []int{5000, 1, 0, 100000, 4095} {
+		g := make([]float32, n)
+		for j := range g {
+			g[j] = float32(rng.NormFloat64())
+			ss += float64(g[j]) * float64(g[j])
+		}
+		ps = append(ps, Param[float32]{Name: "p", Shape: []int{n}, Value: make([]float32, n), Grad: g})
+	}
+	if got, want := GlobalNorm(ps), math.Sqrt(ss); !closeTo(got, want, tol) {
+		t.Errorf("got %v want %v", got, want)
 	}
 }

@@ -59,6 +59,7 @@ type Trainer[T Float] struct {
 	pcg   *rand.PCG
 	rng   *rand.Rand
 	w     *work[T]
+	clip  *paramLoop[T] // the gradients, for clipping on pool's threads
 
 	step   int64
 	tokens int64
@@ -78,7 +79,9 @@ type Trainer[T Float] struct {
 // Dropout masks come from a PCG generator seeded with cfg.Seed (on its own
 // stream, distinct from initialisation). pool may be nil; cfg.Threads is
 // not read here: the caller sizes the pool from it
-// (linalg.NewPool(threads), one per core when zero) and closes it.
+// (linalg.NewPool(threads); for zero, ChooseThreads gives the count) and
+// closes it. The trainer runs the products, the gate loops, the optimizer
+// update and the gradient clipping on the pool's threads.
 func NewTrainer[T Float](m *Model[T], cfg TrainConfig, pool *linalg.Pool) (*Trainer[T], error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, err
@@ -96,7 +99,10 @@ func NewTrainer[T Float](m *Model[T], cfg TrainConfig, pool *linalg.Pool) (*Trai
 	if n := R * float64(max(4*mc.HiddenSize, m.vocab, mc.EmbeddingSize, mc.ProjectionSize)); n > maxElements {
 		return nil, fmt.Errorf("a window of training.batch_size %d × training.unroll_steps %d needs buffers of %.3g elements, more than the limit of %.3g", cfg.BatchSize, cfg.UnrollSteps, n, float64(maxElements))
 	}
-	tr := &Trainer[T]{m: m, cfg: cfg, pool: pool, opt: opt, sched: sched}
+	if po, ok := opt.(pooled); ok {
+		po.setPool(pool)
+	}
+	tr := &Trainer[T]{m: m, cfg: cfg, pool: pool, opt: opt, sched: sched, clip: newParamLoop(m.params)}
 	tr.pcg = rand.NewPCG(cfg.Seed, trainStream)
 	tr.rng = rand.New(tr.pcg)
 	B, U := cfg.BatchSize, cfg.UnrollSteps
@@ -242,11 +248,11 @@ func (tr *Trainer[T]) Step(ctx context.Context, win Window) (StepInfo, error) {
 		tr.m.ZeroGrad()
 		w.backward(tr.pool)
 		t0 = tr.times.lap(PhaseBackward, t0)
-		info.GradNorm = ClipGlobalNorm(tr.m.params, tr.cfg.ClipNorm)
+		info.GradNorm = tr.clip.clipNorm(tr.pool, tr.cfg.ClipNorm)
 		if !finite(info.Loss) || !finite(info.GradNorm) {
 			return info, fmt.Errorf("step %d: %w (loss %v, gradient norm %v)", tr.step+1, ErrNonFinite, info.Loss, info.GradNorm)
 		}
-		ClipValue(tr.m.params, tr.cfg.ClipValue)
+		tr.clip.clipValue(tr.pool, tr.cfg.ClipValue)
 		tr.opt.Step(info.LearningRate)
 		tr.step++
 		tr.tokens += int64(count)

@@ -10,8 +10,9 @@ one JSON object: tokens_per_second, the shape, the threads and, when it can
 see them, the BLAS library and the OpenBLAS kernel ("core") it runs.
 
 summarize: reads the JSON lines the shell script collected (one object per
-run, with "engine", "config" and "threads" added) and prints the Markdown
-table of medians and ratios, and writes the JSON summary.
+run, with "engine", "config" and "requested_threads" added) and prints the
+Markdown table of medians, scaling and ratios at every thread count, and
+writes the JSON summary.
 """
 
 import argparse
@@ -115,53 +116,83 @@ def train(a):
         "openblas_env": {k: os.environ.get(k) for k in ("OPENBLAS_CORETYPE", "OPENBLAS_L2_SIZE", "OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS")},
     }
     rep.update(blas_info())
+    rep["torch_build"] = torch_build(torch)
     print(json.dumps(rep))
 
 
-def summarize(a):
-    runs = [json.loads(line) for line in open(a.runs) if line.strip()]
-    configs = []
-    for r in runs:
-        if r["config"] not in configs:
-            configs.append(r["config"])
+def torch_build(torch):
+    """A short description of the PyTorch build: MKL, oneDNN (mkldnn) and
+    the BLAS it was compiled against (BLAS_INFO of torch.__config__.show)."""
+    parts = []
+    try:
+        cfg = torch.__config__.show()
+        for item in cfg.replace("\n", ",").split(","):
+            item = item.strip()
+            if item.startswith("BLAS_INFO=") or item.startswith("LAPACK_INFO="):
+                parts.append(item)
+    except Exception:  # older builds: keep what the backends say
+        pass
+    parts.append("mkl %s" % ("yes" if torch.backends.mkl.is_available() else "no"))
+    parts.append("onednn %s" % ("yes" if torch.backends.mkldnn.is_available() else "no"))
+    return ", ".join(parts)
 
-    def med(config, engine, threads):
-        v = [r["tokens_per_second"] for r in runs
-             if r["config"] == config and r["engine"] == engine and r["requested_threads"] == threads]
-        return (statistics.median(v), len(v)) if v else (None, 0)
+
+def summarize(a):
+    """Medians per (config, engine, threads), ratios between engines at the
+    same thread count and against the peer's best count, and each engine's
+    scaling over its smallest thread count. Engines: "weft", "torch" and,
+    when the script was given a second weft binary, "weft-old"; "weft" over
+    "weft-old" is taken per round (the two ran back to back) and given as
+    the median and range of those ratios."""
+    runs = [json.loads(line) for line in open(a.runs) if line.strip()]
+    runs = [r for r in runs if "tokens_per_second" in r]
+    configs, threads, engines = [], [], []
+    for r in runs:
+        for lst, v in ((configs, r["config"]), (threads, r["requested_threads"]), (engines, r["engine"])):
+            if v not in lst:
+                lst.append(v)
+    threads.sort()
+
+    def vals(config, engine, th):
+        return [r["tokens_per_second"] for r in runs
+                if r["config"] == config and r["engine"] == engine and r["requested_threads"] == th]
+
+    def med(config, engine, th):
+        v = vals(config, engine, th)
+        return statistics.median(v) if v else None
 
     rows = []
     for c in configs:
-        t1, n1 = med(c, "torch", 1)
-        t2, n2 = med(c, "torch", 2)
-        best = max(x for x in (t1, t2) if x is not None)
-        for th in (1, 2):
-            w, nw = med(c, "weft", th)
-            if w is None:
-                continue
-            same = t1 if th == 1 else t2
-            rows.append({
-                "config": c, "threads": th, "weft_tokens_per_second": w, "weft_runs": nw,
-                "torch_1_thread_tokens_per_second": t1, "torch_2_threads_tokens_per_second": t2,
-                "torch_runs": min(n1, n2),
-                "torch_best_tokens_per_second": best,
-                "ratio_vs_torch_best": w / best,
-                "ratio_vs_torch_same_threads": w / same if same else None,
-            })
+        torch_meds = [m for m in (med(c, "torch", th) for th in threads) if m is not None]
+        best = max(torch_meds) if torch_meds else None
+        base = {e: next((med(c, e, th) for th in threads if med(c, e, th) is not None), None) for e in engines}
+        for th in threads:
+            row = {"config": c, "threads": th}
+            for e in engines:
+                m = med(c, e, th)
+                row[e + "_tokens_per_second"] = m
+                row[e + "_runs"] = len(vals(c, e, th))
+                row[e + "_range"] = [min(vals(c, e, th)), max(vals(c, e, th))] if m is not None else None
+                row[e + "_scaling"] = m / base[e] if m is not None and base[e] else None
+            w, t = row.get("weft_tokens_per_second"), row.get("torch_tokens_per_second")
+            row["torch_best_tokens_per_second"] = best
+            row["ratio_vs_torch_same_threads"] = w / t if w and t else None
+            row["ratio_vs_torch_best"] = w / best if w and best else None
+            if "weft-old" in engines:
+                new = [r for r in runs if r["config"] == c and r["engine"] == "weft" and r["requested_threads"] == th]
+                old = [r for r in runs if r["config"] == c and r["engine"] == "weft-old" and r["requested_threads"] == th]
+                pairs = [n["tokens_per_second"] / o["tokens_per_second"] for n, o in zip(new, old)]
+                row["ratio_vs_weft_old"] = (w / row["weft-old_tokens_per_second"]
+                                            if w and row["weft-old_tokens_per_second"] else None)
+                row["ratio_vs_weft_old_per_round"] = [min(pairs), max(pairs)] if pairs else None
+                row["ratio_vs_weft_old_per_round_median"] = statistics.median(pairs) if pairs else None
+            rows.append(row)
     info = {}
     for r in runs:
         if r["engine"] == "torch":
-            info = {k: r.get(k) for k in ("torch_version", "blas_libraries", "openblas_core")}
+            info = {k: r.get(k) for k in ("torch_version", "torch_build", "blas_libraries", "openblas_core")}
             break
-    info["openblas_threads_by_setting"] = {str(r["requested_threads"]): r.get("openblas_threads")
-                                           for r in runs if r["engine"] == "torch"}
-    speedup = {}
-    for c in configs:
-        w1, _ = med(c, "weft", 1)
-        w2, _ = med(c, "weft", 2)
-        if w1 and w2:
-            speedup[c] = w2 / w1
-    out = {"rows": rows, "weft_2_thread_speedup": speedup, "torch": info, "runs": runs}
+    out = {"rows": rows, "torch": info, "runs": runs}
     with open(a.json, "w") as f:
         json.dump(out, f, indent=2)
         f.write("\n")
@@ -169,18 +200,33 @@ def summarize(a):
     def k(x):
         return "n/a" if x is None else f"{x:,.0f}"
 
-    print("| config | threads | weft tok/s | torch tok/s (1 thread / 2 threads) | weft / torch best | weft / torch same threads |")
-    print("|---|---|---|---|---|---|")
+    def r2(x):
+        return "n/a" if x is None else f"{x:.2f}"
+
+    cols = [e for e in ("weft", "weft-old", "torch") if e in engines]
+    head = ["config", "threads"] + [f"{e} tok/s (scaling)" for e in cols]
+    if "torch" in engines and "weft" in engines:
+        head += ["weft / torch same threads", "weft / torch best"]
+    if "weft-old" in engines:
+        head += ["weft / weft-old: median of rounds (range)"]
+    print("| " + " | ".join(head) + " |")
+    print("|" + "---|" * len(head))
     for r in rows:
-        same = r["ratio_vs_torch_same_threads"]
-        print(f"| {r['config']} | {r['threads']} | {k(r['weft_tokens_per_second'])} | "
-              f"{k(r['torch_1_thread_tokens_per_second'])} / {k(r['torch_2_threads_tokens_per_second'])} | "
-              f"{r['ratio_vs_torch_best']:.2f} | {'n/a' if same is None else f'{same:.2f}'} |")
+        cells = [r["config"], str(r["threads"])]
+        for e in cols:
+            cells.append(f"{k(r[e + '_tokens_per_second'])} ({r2(r[e + '_scaling'])}x)")
+        if "torch" in engines and "weft" in engines:
+            cells += [r2(r["ratio_vs_torch_same_threads"]), r2(r["ratio_vs_torch_best"])]
+        if "weft-old" in engines:
+            pr = r["ratio_vs_weft_old_per_round"]
+            cells.append(f"{r2(r['ratio_vs_weft_old_per_round_median'])} ({r2(pr[0])}-{r2(pr[1])})" if pr else "n/a")
+        print("| " + " | ".join(cells) + " |")
     print()
-    for c, s in speedup.items():
-        print(f"weft 2-thread speedup over 1 thread, {c}: {s:.2f}x")
-    print(f"medians of {rows[0]['weft_runs'] if rows else 0} runs per cell; PyTorch {info.get('torch_version')}, "
-          f"BLAS {', '.join(info.get('blas_libraries') or ['unknown'])}, OpenBLAS kernel {info.get('openblas_core', 'unknown')}")
+    n = max((r.get("weft_runs", 0) for r in rows), default=0)
+    print(f"medians of {n} runs per cell; scaling is over each engine's smallest thread count")
+    if info:
+        print(f"peer: PyTorch {info.get('torch_version')} ({info.get('torch_build')}), "
+              f"BLAS {', '.join(info.get('blas_libraries') or ['unknown'])}, OpenBLAS kernel {info.get('openblas_core', 'n/a')}")
 
 
 def main():

@@ -27,12 +27,15 @@ type benchOptions struct {
 	Warmup  int
 	Threads int // -1: training.threads of the run file
 	JSON    bool
+
+	Sweep        bool  // --threads-sweep (bench_sweep.go)
+	SweepThreads []int // --sweep-threads; implies Sweep
 }
 
 func newBenchCmd(d *deps, runF func(*benchOptions) error) *cobra.Command {
 	opts := &benchOptions{}
 	cmd := &cobra.Command{
-		Use:   "bench [CONFIG] [--set key=value]... [--vocab N] [--windows N] [--threads N] [--json]",
+		Use:   "bench [CONFIG] [--set key=value]... [--vocab N] [--windows N] [--threads N | --threads-sweep] [--json]",
 		Short: "Measure training speed on synthetic tokens: tokens/s, GFLOP/s, time per phase, peak memory",
 		Long: `Build the model a run file describes (without CONFIG, the defaults: a
 1-layer LSTM with hidden_size 256, embedding_size 64, batch_size 32 and
@@ -45,7 +48,12 @@ It prints tokens per second, GFLOP/s of the matrix products with the
 formula used, the time split by phase (input projection, recurrence, gate
 arithmetic, output layer with softmax, backward pass, update), the peak
 resident memory of the process and the Go heap. --json prints the same as
-one JSON object.`,
+one JSON object.
+
+--threads-sweep runs the same measurement at 1, 2, 4, ... threads up to the
+number of cores (or at the counts --sweep-threads lists) and prints tokens
+per second at each with the speed-up over the first count, the fastest
+setting, and the count training.threads = 0 would pick.`,
 		Args: rangeArgs(0, 1, "at most one run file"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
@@ -68,6 +76,8 @@ one JSON object.`,
 	f.IntVar(&opts.Warmup, "warmup", 2, "untimed windows before them")
 	f.IntVar(&opts.Threads, "threads", 0, "threads for the matrix kernels (default training.threads; 0 means one per core)")
 	f.BoolVar(&opts.JSON, "json", false, "print the measurements as JSON")
+	f.BoolVar(&opts.Sweep, "threads-sweep", false, "measure at 1, 2, 4, ... threads up to the core count")
+	f.IntSliceVar(&opts.SweepThreads, "sweep-threads", nil, "thread counts for --threads-sweep, comma-separated (implies it)")
 	return cmd
 }
 
@@ -124,6 +134,9 @@ func runBench(opts *benchOptions) error {
 	r, err := benchRun(opts.Config, opts.Set)
 	if err != nil {
 		return err
+	}
+	if opts.Sweep || len(opts.SweepThreads) > 0 {
+		return runBenchSweep(opts, r)
 	}
 	if opts.Threads >= 0 {
 		r.Training.Threads = opts.Threads
@@ -270,65 +283,34 @@ func synthWindows(V, B, T, n int, seed uint64) []rnn.Window {
 }
 
 // benchFLOPs is the floating-point operations of the matrix products per
-// position of a window, and the formula with the numbers put in. Every
-// product of the forward pass (m·n·k multiply-adds) has two of the same
-// size in the backward pass (the gradient with respect to its input and
-// with respect to its weights), and a multiply-add is 2 operations: 6
-// operations per weight per position. The weights a position goes through
-// are those of the input projection (E·G, none for one-hot input, which is
-// a gather), the recurrence (H·G per layer) and the input of layers 2..L
-// (H·G each), together (2L−1)·H·G, the projection (H·P) and the output
-// layer, with G = gates·H and K = P or H its input width: K·V for the full
-// softmax; for the class layer with class boundaries start (see
-// rnn.FrequencyClasses), K·C for the class scores plus K·n̄ for the scores
-// within the target's class, n̄ = Σ_k n_k²/V being the mean size of the
-// class of a uniformly drawn target (the synthetic tokens are uniform).
-// Gate arithmetic, the softmax and the embedding gather are not counted.
+// position of a window (rnn.Config.MatMulCost, which states the count),
+// and the formula with the numbers put in. For the class layer, with class
+// boundaries start, n̄ is the mean class size of a uniformly drawn target:
+// the synthetic tokens are uniform.
 func benchFLOPs(r *configs.Run, V int, start []int) (float64, string) {
-	c := r.Model
-	gates := map[string]int{"rnn": 1, "gru": 3, "lstm": 4}[c.Cell]
-	E, H, P, L := c.EmbeddingSize, c.HiddenSize, c.ProjectionSize, c.Layers
-	G := gates * H
-	K, k := H, "H"
-	if P > 0 {
-		K, k = P, "P"
-	}
-	var terms, nums []string
-	macs := 0.0
-	add := func(term string, count, a int, b float64, bs string) {
-		if count == 0 || a == 0 || b == 0 {
-			return
+	flop, terms := r.Model.MatMulCost(V, start)
+	var names, nums []string
+	for _, t := range terms {
+		out := fmt.Sprint(int64(t.Out))
+		if strings.Contains(t.Name, "n̄") {
+			C := len(start) - 1
+			out = fmt.Sprintf("(%d+%.4g)", C, t.Out-float64(C))
 		}
-		macs += float64(count*a) * b
-		if count > 1 {
-			terms = append(terms, fmt.Sprintf("%d·%s", count, term))
-			nums = append(nums, fmt.Sprintf("%d·%d·%s", count, a, bs))
+		if t.Count > 1 {
+			names = append(names, fmt.Sprintf("%d·%s", t.Count, t.Name))
+			nums = append(nums, fmt.Sprintf("%d·%d·%s", t.Count, t.In, out))
 		} else {
-			terms = append(terms, term)
-			nums = append(nums, fmt.Sprintf("%d·%s", a, bs))
+			names = append(names, t.Name)
+			nums = append(nums, fmt.Sprintf("%d·%s", t.In, out))
 		}
 	}
-	add("E·G", 1, E, float64(G), fmt.Sprint(G))
-	add("H·G", 2*L-1, H, float64(G), fmt.Sprint(G)) // the recurrence of every layer, the input of layers 2..L
-	add("H·P", 1, H, float64(P), fmt.Sprint(P))
 	note := ""
-	if start == nil {
-		add(k+"·V", 1, K, float64(V), fmt.Sprint(V))
-	} else {
-		C := len(start) - 1
-		var sq float64
-		for i := 0; i < C; i++ {
-			n := float64(start[i+1] - start[i])
-			sq += n * n
-		}
-		nbar := sq / float64(V)
-		add(k+"·(C+n̄)", 1, K, float64(C)+nbar, fmt.Sprintf("(%d+%.4g)", C, nbar))
+	if start != nil {
 		note = ", C classes, n̄ the mean size of a uniform target's class"
 	}
-	flop := 6 * macs
-	formula := fmt.Sprintf("6 × (%s) = 6 × (%s) = %s FLOP per token, G = %d·H%s",
-		strings.Join(terms, " + "), strings.Join(nums, " + "), thousands(int64(flop+0.5)), gates, note)
-	return flop, formula
+	gates := r.Model.Gates()
+	return flop, fmt.Sprintf("6 × (%s) = 6 × (%s) = %s FLOP per token, G = %d·H%s",
+		strings.Join(names, " + "), strings.Join(nums, " + "), thousands(int64(flop+0.5)), gates, note)
 }
 
 // benchPositions is the number of positions the timed windows run through

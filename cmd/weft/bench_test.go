@@ -2,6 +2,7 @@ package main
 
 import (
 	"encoding/json"
+	"math"
 	"os"
 	"path/filepath"
 	"runtime"
@@ -233,3 +234,105 @@ func TestPeakRSSUnits(t *testing.T) {
 	}
 	runtime.KeepAlive(buf)
 }
+
+func TestSweepCounts(t *testing.T) {
+	for _, tt := range []struct {
+		cores int
+		want  []int
+	}{
+		{1, []int{1}},
+		{2, []int{1, 2}},
+		{6, []int{1, 2, 4, 6}},
+		{16, []int{1, 2, 4, 8, 16}},
+		{24, []int{1, 2, 4, 8, 16, 24}},
+	} {
+		if got := sweepCounts(tt.cores); !slices.Equal(got, tt.want) {
+			t.Errorf("%d cores: got %v, want %v", tt.cores, got, tt.want)
+		}
+	}
+}
+
+// TestBenchSweep runs a tiny --sweep-threads sweep (16 threads exercise
+// every per-thread path even on 2 cores) and checks its JSON: one point per
+// count in order, speed-ups relative to the first, the fastest count, the
+// default count of rnn.ChooseThreads, and the usage errors.
+func TestBenchSweep(t *testing.T) {
+	var got *benchOptions
+	cmd := newBenchCmd(&deps{}, func(o *benchOptions) error { got = o; return nil })
+	cmd.SetArgs([]string{"--sweep-threads", "1,4", "--threads-sweep"})
+	if err := cmd.Execute(); err != nil {
+		t.Fatal(err)
+	}
+	if !got.Sweep || !slices.Equal(got.SweepThreads, []int{1, 4}) {
+		t.Errorf("parsed %+v", got)
+	}
+
+	code, out, stderr := runCmd(t, "", "bench", "--set", "model.hidden_size=8", "--set", "model.embedding_size=4",
+		"--set", "training.batch_size=2", "--set", "training.unroll_steps=4", "--windows", "2", "--warmup", "1",
+		"--sweep-threads", "1,2,16", "--json")
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var sw benchSweep
+	if err := json.Unmarshal([]byte(out), &sw); err != nil {
+		t.Fatalf("output is not JSON: %v\n%s", err, out)
+	}
+	if len(sw.Points) != 3 {
+		t.Fatalf("got %d points, want 3", len(sw.Points))
+	}
+	best := sw.Points[0]
+	for i, want := range []int{1, 2, 16} {
+		p := sw.Points[i]
+		if p.Threads != want || p.Report == nil || p.Report.Model.Threads != want {
+			t.Errorf("point %d: got threads %d (report %v), want %d", i, p.Threads, p.Report != nil, want)
+			continue
+		}
+		if !(p.TokensPerSecond > 0) || p.TokensPerSecond != p.Report.TokensPerSecond {
+			t.Errorf("point %d: tokens/s %v, report %v", i, p.TokensPerSecond, p.Report.TokensPerSecond)
+		}
+		if want := p.TokensPerSecond / sw.Points[0].TokensPerSecond; !closeEnough(p.SpeedUp, want) {
+			t.Errorf("point %d: speed-up %v, want %v", i, p.SpeedUp, want)
+		}
+		if p.TokensPerSecond > best.TokensPerSecond {
+			best = p
+		}
+		// The same seed and windows at every count: the same loss, bit for
+		// bit (results do not depend on the thread count).
+		if p.Report.FinalLoss != sw.Points[0].Report.FinalLoss {
+			t.Errorf("point %d: final loss %v, want %v (1 thread)", i, p.Report.FinalLoss, sw.Points[0].Report.FinalLoss)
+		}
+	}
+	if sw.FastestThreads != best.Threads || sw.BaseThreads != 1 || sw.Cores != runtime.NumCPU() {
+		t.Errorf("got fastest %d base %d cores %d, want %d 1 %d", sw.FastestThreads, sw.BaseThreads, sw.Cores, best.Threads, runtime.NumCPU())
+	}
+	r, err := benchRun("", []string{"model.hidden_size=8", "model.embedding_size=4", "training.batch_size=2"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := rnn.ChooseThreads(r.Model, 2, runtime.NumCPU()); sw.DefaultThreads != want {
+		t.Errorf("default threads %d, want %d (rnn.ChooseThreads)", sw.DefaultThreads, want)
+	}
+
+	code, text, stderr := runCmd(t, "", "bench", "--set", "model.hidden_size=8", "--set", "model.embedding_size=4",
+		"--set", "training.batch_size=2", "--set", "training.unroll_steps=4", "--windows", "1", "--warmup", "0",
+		"--sweep-threads", "1,2")
+	if code != exitOK {
+		t.Fatalf("text: exit %d: %s", code, stderr)
+	}
+	for _, want := range []string{"threads", "tokens/s", "speed-up", "1.00×", "fastest", "training.threads = 0 takes"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("text output lacks %q:\n%s", want, text)
+		}
+	}
+	for _, args := range [][]string{
+		{"bench", "--threads-sweep", "--threads", "2"},
+		{"bench", "--sweep-threads", "1,0"},
+	} {
+		code, _, stderr := runCmd(t, "", args...)
+		if code != exitUsage || !strings.HasPrefix(stderr, "weft: ") {
+			t.Errorf("%v: got exit %d stderr %q, want exit %d and a weft: message", args, code, stderr, exitUsage)
+		}
+	}
+}
+
+func closeEnough(a, b float64) bool { return math.Abs(a-b) <= 1e-12*math.Abs(b) }

@@ -2,7 +2,7 @@ package linalg
 
 import (
 	"fmt"
-	"sync/atomic"
+	"sync"
 	"unsafe"
 )
 
@@ -30,30 +30,39 @@ type kernel[T Float] struct {
 	jobs   cache[gemmJob[T]]
 }
 
-// cache keeps a few reusable objects in atomic slots. Unlike a sync.Pool it
-// is not emptied by the garbage collector, so a collection does not make
-// the next products reallocate their megabytes of packing buffers.
+// cache keeps reusable objects on a free list that grows to the largest
+// number ever in use at once: one workspace per packer running at the same
+// time, whatever the number of threads and pools. Unlike a sync.Pool it is
+// not emptied by the garbage collector, so a collection does not make the
+// next products reallocate their megabytes of packing buffers; unlike a
+// fixed set of slots it never drops an object, so a product split over
+// more threads than slots does not allocate afresh at every call.
 type cache[E any] struct {
-	slots [8]atomic.Pointer[E]
+	mu   sync.Mutex
+	free []*E
+	made int // objects made for this cache (see kernel.reserve)
 }
 
 // get returns a cached object or nil.
 func (c *cache[E]) get() *E {
-	for i := range c.slots {
-		if e := c.slots[i].Swap(nil); e != nil {
-			return e
-		}
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	n := len(c.free)
+	if n == 0 {
+		return nil
 	}
-	return nil
+	e := c.free[n-1]
+	c.free[n-1] = nil
+	c.free = c.free[:n-1]
+	return e
 }
 
-// put caches e, or drops it when every slot is taken.
+// put caches e. The free list grows (allocating) only when more objects
+// are in use at once than ever before.
 func (c *cache[E]) put(e *E) {
-	for i := range c.slots {
-		if c.slots[i].CompareAndSwap(nil, e) {
-			return
-		}
-	}
+	c.mu.Lock()
+	c.free = append(c.free, e)
+	c.mu.Unlock()
 }
 
 // workspace holds one thread's packing buffers, aligned to 64 bytes.
@@ -65,6 +74,27 @@ func (kern *kernel[T]) workspace() *workspace[T] {
 	if w := kern.spaces.get(); w != nil {
 		return w
 	}
+	kern.spaces.mu.Lock()
+	kern.spaces.made++
+	kern.spaces.mu.Unlock()
+	return kern.newWorkspace()
+}
+
+// reserve makes sure that at least n workspaces exist, so that a product
+// of n parts finds one for each part in the cache even when all of them
+// run at once (on a machine with fewer cores than threads that happens
+// only by chance, and would make a later product allocate).
+func (kern *kernel[T]) reserve(n int) {
+	c := &kern.spaces
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	for c.made < n {
+		c.free = append(c.free, kern.newWorkspace())
+		c.made++
+	}
+}
+
+func (kern *kernel[T]) newWorkspace() *workspace[T] {
 	return &workspace[T]{
 		a:    alignedSlice[T](kern.mc * kern.kc),
 		b:    alignedSlice[T](kern.kc * kern.nc),
@@ -86,10 +116,19 @@ func alignedSlice[T Float](n int) []T {
 	return s[off : off+n : off+n+per]
 }
 
-// parallelMinWork is the number of multiply-adds (m·n·k) below which a
-// product runs on the caller alone: waking a worker costs a few
-// microseconds, about what 2^20 multiply-adds take on one core.
-const parallelMinWork = 1 << 20
+// minPartWork is the least work, in multiply-adds (m·n·k), worth handing
+// to one thread: waking a spinning worker, and the packing it repeats (each
+// part packs all of the operand it shares), cost a few microseconds, about
+// what 2^18 multiply-adds take on one core, so a part of 2^19 keeps that
+// overhead near a third or less. A product is split into at most
+// m·n·k / minPartWork parts, never more than the pool's threads nor the
+// tiles along the split dimension: a 32×1024×256 recurrent step (2^23) into
+// at most 16, a 32×96×64 one not at all.
+const minPartWork = 1 << 19
+
+// parallelMinWork is the least work a product needs to be split at all:
+// two parts' worth.
+const parallelMinWork = 2 * minPartWork
 
 // checkGemm panics when the shapes do not fit the slices.
 func checkGemm(tA, tB bool, m, n, k, la, lda, lb, ldb, lc, ldc int) {
@@ -134,29 +173,59 @@ func gemmRun[T Float](p *Pool, kern *kernel[T], tA, tB bool, m, n, k int, alpha 
 	j := kern.job()
 	*j = gemmJob[T]{kern: kern, tA: tA, tB: tB, m: m, n: n, k: k, alpha: alpha, a: a, lda: lda, b: b, ldb: ldb, beta: beta, c: c, ldc: ldc, parts: 1}
 	j.plan(p.Threads())
+	if j.parts > 1 {
+		kern.reserve(j.parts)
+	}
 	p.run(j, j.parts)
 	*j = gemmJob[T]{}
 	kern.jobs.put(j)
 }
 
-// plan splits the job over up to threads parts, in whole tiles.
+// plan splits the job into parts, one per thread, in whole tiles: as many
+// as pay for themselves (work / minPartWork), at most threads, and at most
+// the number of tiles along the split dimension.
 func (j *gemmJob[T]) plan(threads int) {
 	j.parts = 1
 	mt := (j.m + j.kern.mr - 1) / j.kern.mr
 	nt := (j.n + j.kern.nr - 1) / j.kern.nr
-	if threads < 2 || j.m*j.n*j.k < parallelMinWork {
+	want := planParts(threads, j.m, j.n, j.k)
+	if want < 2 {
 		return
 	}
 	// Each thread packs the whole of the operand it shares, so split the
-	// other one: rows of C when op(A) is the larger, else columns.
+	// other one: rows of C when op(A) is the larger, else columns. When
+	// neither dimension has a tile per part, split the one with more.
 	switch {
-	case j.m > j.n && mt >= threads:
-		j.parts, j.splitRows, j.tiles = threads, true, mt
-	case nt >= threads:
-		j.parts, j.tiles = threads, nt
-	case mt >= threads:
-		j.parts, j.splitRows, j.tiles = threads, true, mt
+	case j.m > j.n && mt >= want:
+		j.parts, j.splitRows, j.tiles = want, true, mt
+	case nt >= want:
+		j.parts, j.tiles = want, nt
+	case mt >= want:
+		j.parts, j.splitRows, j.tiles = want, true, mt
+	case mt > nt:
+		j.parts, j.splitRows, j.tiles = mt, true, mt
+	case nt > 1:
+		j.parts, j.tiles = nt, nt
 	}
+}
+
+// ProductParts is the number of threads an m×n×k product is worth
+// splitting over on a pool of threads threads: m·n·k / 2^19 (the least work
+// that pays for handing a part to a thread), at least 1, at most threads.
+// Gemm splits a product into that many parts, or fewer when the split
+// dimension of C has fewer tiles.
+func ProductParts(threads, m, n, k int) int { return planParts(threads, m, n, k) }
+
+// planParts is ProductParts: 1 below parallelMinWork.
+func planParts(threads, m, n, k int) int {
+	if threads < 2 {
+		return 1
+	}
+	w := float64(m) * float64(n) * float64(k) / minPartWork
+	if w >= float64(threads) {
+		return threads
+	}
+	return max(1, int(w))
 }
 
 func (kern *kernel[T]) job() *gemmJob[T] {
@@ -216,6 +285,9 @@ func (j *gemmJob[T]) runPart(t int) {
 		return
 	}
 	w := kern.workspace()
+	if testHookWorkspace != nil {
+		testHookWorkspace(j.parts)
+	}
 	if j.packed != nil {
 		kern.blockPacked(w, j.tA, i0, i1, j0, j1, j.n, j.k, j.alpha, j.a, j.lda, j.packed, j.beta, j.c, j.ldc)
 		kern.spaces.put(w)
@@ -224,6 +296,12 @@ func (j *gemmJob[T]) runPart(t int) {
 	kern.block(w, j.tA, j.tB, i0, i1, j0, j1, j.k, j.alpha, j.a, j.lda, j.b, j.ldb, j.beta, j.c, j.ldc)
 	kern.spaces.put(w)
 }
+
+// testHookWorkspace, when set by a test, runs in every part of a product
+// (parts of them) after the part has taken its workspace and before it
+// uses it: a barrier there makes all parts hold a workspace at once, as
+// they do on a machine with a core per thread.
+var testHookWorkspace func(parts int)
 
 // block computes rows [i0, i1) and columns [j0, j1) of C with the loop
 // nest of Goto and van de Geijn: NC columns, KC depth, MC rows, then NR and

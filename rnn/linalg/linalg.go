@@ -38,10 +38,15 @@
 //
 // # Threads and determinism
 //
-// A [Pool] is a fixed set of worker goroutines; a product of at least 2^20
-// multiply-adds is split into one part per thread, over whole tiles of C
-// (rows when op(A) is the larger operand, else columns), never over k.
-// Workers spin briefly between parts, then park. Every function returns
+// A [Pool] is a fixed set of worker goroutines. A product is split into as
+// many parts as pay for themselves, one per 2^19 multiply-adds
+// ([ProductParts]; none below 2^20), at most one per thread and one per
+// tile along the split dimension, over whole tiles of C (rows when op(A) is
+// the larger operand, else columns), never over k. Each part packs into a
+// workspace of its own, taken from a cache that grows to the largest number
+// of parts ever running at once, so a steady-state product allocates
+// nothing on any number of threads. Workers spin briefly between parts,
+// then park. Every function returns
 // the same bits for the same inputs whatever the number of threads: split
 // points are multiples of MR or NR, so each element of C is computed by the
 // same tile code, reduced over k in the same KC blocks in increasing order.

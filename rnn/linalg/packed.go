@@ -92,6 +92,9 @@ func gemmPackedRun(p *Pool, pb *PackedB, tA bool, m int, alpha float32, a []floa
 	j := kern.job()
 	*j = gemmJob[float32]{kern: kern, tA: tA, m: m, n: n, k: k, alpha: alpha, a: a, lda: lda, beta: beta, c: c, ldc: ldc, packed: pb.data}
 	j.plan(p.Threads())
+	if j.parts > 1 {
+		kern.reserve(j.parts)
+	}
 	p.run(j, j.parts)
 	*j = gemmJob[float32]{}
 	kern.jobs.put(j)

@@ -11,12 +11,16 @@ import (
 )
 
 // TestGemmThreadsBitIdentical checks the determinism guarantee: the same
-// product gives the same bits with 1, 2, 3 and 4 threads, for every kernel
-// and transpose, on shapes large enough to be split (m·n·k ≥
-// parallelMinWork) and split both ways (tall: rows, wide: columns).
+// product gives the same bits with 1, 2, 3, 4, 16 and 64 threads, for every
+// kernel and transpose, on shapes large enough to be split (m·n·k ≥
+// parallelMinWork), split both ways (tall: rows, wide: columns), into many
+// parts (the last three shapes: up to 64 parts by rows, by columns, and
+// fewer tiles than threads), whatever the number of cores of the machine
+// running the test.
 func TestGemmThreadsBitIdentical(t *testing.T) {
-	shapes := [][3]int{{67, 300, 129}, {33, 1030, 40}, {300, 17, 257}, {8, 4096, 33}}
-	pools := []*Pool{NewPool(2), NewPool(3), NewPool(4)}
+	shapes := [][3]int{{67, 300, 129}, {33, 1030, 40}, {300, 17, 257}, {8, 4096, 33},
+		{520, 260, 250}, {40, 2100, 410}, {30, 300, 4000}}
+	pools := []*Pool{NewPool(2), NewPool(3), NewPool(4), NewPool(16), NewPool(64)}
 	defer func() {
 		for _, p := range pools {
 			p.Close()
@@ -53,6 +57,125 @@ func TestGemmThreadsBitIdentical(t *testing.T) {
 				}
 			}
 		}
+	}
+}
+
+// TestGemmPlan checks how a product is split: never more parts than
+// threads, than tiles along the split dimension, or than m·n·k/minPartWork
+// (so a small product is not spread over every thread), and rows or
+// columns as the plan documents. Tile counts are for the 8×32 tile.
+func TestGemmPlan(t *testing.T) {
+	kern := &kernel[float32]{name: "plan", mr: 8, nr: 32}
+	cases := []struct {
+		name      string
+		threads   int
+		m, n, k   int
+		parts     int
+		splitRows bool
+	}{
+		{"one thread", 1, 2048, 1024, 256, 1, false},
+		{"below parallelMinWork", 16, 32, 96, 64, 1, false},
+		// 32·1024·256 = 2^23 multiply-adds: 16 parts of 2^19.
+		{"recurrent step, 2 threads", 2, 32, 1024, 256, 2, false},
+		{"recurrent step, 16 threads", 16, 32, 1024, 256, 16, false},
+		{"recurrent step, 64 threads", 64, 32, 1024, 256, 16, false},
+		// 32·2048·512 = 2^25: worth 64 parts, but only 64 column tiles.
+		{"large recurrent step, 64 threads", 64, 32, 2048, 512, 64, false},
+		// 32·1024·64 = 2^21: 4 parts.
+		{"small input product, 16 threads", 16, 32, 1024, 64, 4, false},
+		{"tall output layer", 16, 2048, 96, 256, 16, true},
+		// 30×300 has 4 row tiles and 10 column tiles: 10 parts by columns.
+		{"fewer tiles than parts", 64, 30, 300, 4000, 10, false},
+		// One tile of C: nothing to split.
+		{"one tile", 64, 8, 32, 1 << 20, 1, false},
+	}
+	for _, c := range cases {
+		j := &gemmJob[float32]{kern: kern, m: c.m, n: c.n, k: c.k}
+		j.plan(c.threads)
+		if j.parts != c.parts || (j.parts > 1 && j.splitRows != c.splitRows) {
+			t.Errorf("%s: %d threads, %d×%d×%d: got %d parts (rows %v), want %d (rows %v)", c.name, c.threads, c.m, c.n, c.k, j.parts, j.splitRows, c.parts, c.splitRows)
+		}
+	}
+}
+
+// workspaceBarrier is a testHookWorkspace that holds every part of a
+// product, with its workspace taken, until all parts of the product have
+// taken theirs (arrivals count up from zero, parts per product, so reset
+// arrived between products of different part counts): on any machine, even one with fewer cores than threads,
+// the product then needs as many workspaces at once as it has parts, as on
+// a machine with a core per thread.
+type workspaceBarrier struct{ arrived atomic.Int64 }
+
+func (wb *workspaceBarrier) wait(parts int) {
+	n := wb.arrived.Add(1)
+	target := ((n-1)/int64(parts) + 1) * int64(parts)
+	for wb.arrived.Load() < target {
+		runtime.Gosched()
+	}
+}
+
+// TestGemmManyPackersNoAllocs is the regression test for issue 17: with
+// more packers holding buffers at once than a fixed cache had slots (8),
+// every product allocated the extra workspaces afresh (megabytes each),
+// which on a 16-core server made training slower above 8 threads. With all
+// parts forced to hold their workspace at once, a steady-state product
+// must allocate nothing at 16, 32 and 64 threads, plain and packed, and the
+// kernel must have made exactly one workspace per thread of the largest
+// pool: memory grows by the per-thread scratch and no more.
+func TestGemmManyPackersNoAllocs(t *testing.T) {
+	wb := &workspaceBarrier{}
+	testHookWorkspace = wb.wait
+	defer func() { testHookWorkspace = nil }()
+	// 2048·64·256 = 64·minPartWork multiply-adds, 2048 rows: 64 parts by
+	// rows on 64 threads with any kernel (MR ≤ 8).
+	const m, n, k = 2048, 64, 256
+	a, b, c := make([]float32, m*k), make([]float32, n*k), make([]float32, m*n)
+	for i := range a {
+		a[i] = float32(i%7) - 3
+	}
+	for i := range b {
+		b[i] = float32(i%5) - 2
+	}
+	// A kernel of its own, so that the workspaces counted are this test's.
+	k32 := kernel32()
+	kern := &kernel[float32]{name: k32.name, mr: k32.mr, nr: k32.nr, mc: k32.mc, kc: k32.kc, nc: k32.nc,
+		micro: k32.micro, packA: k32.packA, packB: k32.packB}
+	var pb PackedB
+	PackB(&pb, true, k, n, b, k)
+	pb.kern = kern
+	var total int64
+	for _, threads := range []int{16, 32, 64} {
+		p := NewPool(threads)
+		total += wb.arrived.Swap(0)
+		j := &gemmJob[float32]{kern: kern, m: m, n: n, k: k}
+		j.plan(threads)
+		if j.parts != threads {
+			p.Close()
+			t.Fatalf("threads=%d: the product splits into %d parts, want %d: the test would not hold %d workspaces", threads, j.parts, threads, threads)
+		}
+		for _, packed := range []bool{false, true} {
+			prod := func() {
+				if packed {
+					gemmPackedRun(p, &pb, false, m, 1, a, k, 0, c, n)
+				} else {
+					gemmRun(p, kern, false, true, m, n, k, 1, a, k, b, k, 0, c, n)
+				}
+			}
+			prod() // the first product at this thread count makes the workspaces
+			if allocs := testing.AllocsPerRun(3, prod); allocs != 0 {
+				t.Errorf("threads=%d packed=%v: got %v allocations per product, want 0", threads, packed, allocs)
+			}
+			kern.spaces.mu.Lock()
+			made, cached := kern.spaces.made, len(kern.spaces.free)
+			kern.spaces.mu.Unlock()
+			if made != threads || cached != threads {
+				t.Errorf("threads=%d packed=%v: %d workspaces made, %d cached, want %d and %d (one per thread)", threads, packed, made, cached, threads, threads)
+			}
+		}
+		p.Close()
+	}
+	if total+wb.arrived.Load() == 0 {
+		t.Fatal("the workspace hook never ran: the test checked nothing")
 	}
 }
 
@@ -163,11 +286,13 @@ func TestPoolParking(t *testing.T) {
 }
 
 // TestCacheSurvivesGC: the packing-buffer cache keeps its objects through
-// garbage collections (a sync.Pool would drop them), and drops objects only
-// when its slots are full.
+// garbage collections (a sync.Pool would drop them), and never drops one:
+// it holds as many as were ever put, more than the 8 slots of the fixed
+// cache it replaced (issue 17).
 func TestCacheSurvivesGC(t *testing.T) {
 	var c cache[workspace[float32]]
-	ws := make([]*workspace[float32], len(c.slots)+1)
+	const n = 70
+	ws := make([]*workspace[float32], n)
 	for i := range ws {
 		ws[i] = &workspace[float32]{}
 		c.put(ws[i])
@@ -175,18 +300,18 @@ func TestCacheSurvivesGC(t *testing.T) {
 	runtime.GC()
 	runtime.GC()
 	seen := map[*workspace[float32]]bool{}
-	for range c.slots {
+	for range n {
 		w := c.get()
 		if w == nil {
-			t.Fatalf("got nil from the cache after a collection, want one of the %d objects put", len(c.slots))
+			t.Fatalf("got nil from the cache after a collection and %d objects, want all %d objects put", len(seen), n)
 		}
 		seen[w] = true
 	}
 	if w := c.get(); w != nil {
-		t.Errorf("got a %d-th object from a cache of %d slots", len(c.slots)+1, len(c.slots))
+		t.Errorf("got a %d-th object from a cache given %d", n+1, n)
 	}
-	if len(seen) != len(c.slots) || seen[ws[len(ws)-1]] {
-		t.Errorf("got %d distinct objects (last one put included: %v), want the first %d", len(seen), seen[ws[len(ws)-1]], len(c.slots))
+	if len(seen) != n {
+		t.Errorf("got %d distinct objects, want %d", len(seen), n)
 	}
 }
 
