@@ -227,7 +227,9 @@ type TrainConfig struct {
 	MaxSteps int `toml:"max_steps"`
 
 	// Threads is the number of threads for the matrix kernels. Zero means
-	// one per core. Results do not depend on it. Default 0.
+	// as many as the model's products pay for on this machine's cores
+	// (ChooseThreads: never fewer than min(8, cores)). Results do not
+	// depend on it. Default 0.
 	Threads int `toml:"threads"`
 
 	// BPTTAdvanceSteps is h′ of the BPTT(h; h′) scheme of Williams & Peng

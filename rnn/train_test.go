@@ -270,6 +270,14 @@ func TestSteadyStateAllocs(t *testing.T) {
 				b := &streamBatches{tokens: randomTokens(100000, 12, 1), B: tc.BatchSize, T: tc.UnrollSteps}
 				w, _ := b.Next(context.Background())
 				ctx := context.Background()
+				// Steady state: a few windows first, so that every cache
+				// (the kernels' workspaces, the runtime's per-thread wait
+				// records of the pool's goroutines) has reached its size.
+				for range 3 {
+					if _, err := tr.Step(ctx, w); err != nil {
+						t.Fatal(err)
+					}
+				}
 				if allocs := testing.AllocsPerRun(5, func() {
 					if _, err := tr.Step(ctx, w); err != nil {
 						t.Fatal(err)

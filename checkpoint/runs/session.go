@@ -340,7 +340,7 @@ func (s *session) build(f *checkpoint.File, path string) error {
 	r := s.r
 	threads := r.Training.Threads
 	if threads == 0 {
-		threads = runtime.NumCPU()
+		threads = rnn.ChooseThreads(r.Model, r.Training.BatchSize, runtime.NumCPU())
 	}
 	s.pool = linalg.NewPool(threads)
 	s.prog = checkpoint.Progress{LearningRateScale: 1, LastValidationStep: -1}

@@ -4,9 +4,11 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"math"
 	"math/rand/v2"
 	"runtime"
 	"slices"
+	"strconv"
 	"strings"
 	"text/tabwriter"
 	"time"
@@ -35,8 +37,9 @@ type benchOptions struct {
 func newBenchCmd(d *deps, runF func(*benchOptions) error) *cobra.Command {
 	opts := &benchOptions{}
 	cmd := &cobra.Command{
-		Use:   "bench [CONFIG] [--set key=value]... [--vocab N] [--windows N] [--threads N | --threads-sweep] [--json]",
-		Short: "Measure training speed on synthetic tokens: tokens/s, GFLOP/s, time per phase, peak memory",
+		Use:     "bench [CONFIG] [--set key=value]... [--vocab N] [--windows N] [--threads N | --threads-sweep] [--json]",
+		Example: "  bin/weft bench --threads-sweep",
+		Short:   "Measure training speed on synthetic tokens: tokens/s, GFLOP/s, time per phase, peak memory",
 		Long: `Build the model a run file describes (without CONFIG, the defaults: a
 1-layer LSTM with hidden_size 256, embedding_size 64, batch_size 32 and
 unroll_steps 64), feed it synthetic tokens (uniform ids below --vocab, drawn
@@ -74,7 +77,7 @@ setting, and the count training.threads = 0 would pick.`,
 	f.IntVar(&opts.Vocab, "vocab", 96, "vocabulary size of the synthetic tokens")
 	f.IntVar(&opts.Windows, "windows", 20, "timed training windows")
 	f.IntVar(&opts.Warmup, "warmup", 2, "untimed windows before them")
-	f.IntVar(&opts.Threads, "threads", 0, "threads for the matrix kernels (default training.threads; 0 means one per core)")
+	f.IntVar(&opts.Threads, "threads", 0, "threads to compute with (default training.threads; 0: as many as the model's products pay for, as weft train chooses)")
 	f.BoolVar(&opts.JSON, "json", false, "print the measurements as JSON")
 	f.BoolVar(&opts.Sweep, "threads-sweep", false, "measure at 1, 2, 4, ... threads up to the core count")
 	f.IntSliceVar(&opts.SweepThreads, "sweep-threads", nil, "thread counts for --threads-sweep, comma-separated (implies it)")
@@ -141,8 +144,8 @@ func runBench(opts *benchOptions) error {
 	if opts.Threads >= 0 {
 		r.Training.Threads = opts.Threads
 	}
-	if r.Training.Threads == 0 {
-		r.Training.Threads = runtime.NumCPU()
+	if r.Training.Threads == 0 { // as weft train chooses
+		r.Training.Threads = rnn.ChooseThreads(r.Model, r.Training.BatchSize, runtime.NumCPU())
 	}
 	rep, err := bench(opts, r)
 	if err != nil {
@@ -382,7 +385,8 @@ func printBench(w io.Writer, r *benchReport) {
 	}
 	fmt.Fprintf(w, "memory    peak resident %s; Go heap %s in use of %s obtained\n",
 		rss, megabytes(r.HeapInUseBytes), megabytes(r.HeapSysBytes))
-	fmt.Fprintf(w, "          allocated per timed window: %.0f bytes in %.1f objects\n", r.AllocBytesPerWindow, r.AllocsPerWindow)
+	fmt.Fprintf(w, "          allocated per timed window: %s bytes in %s allocations (mean over the timed windows)\n",
+		thousands(int64(math.Round(r.AllocBytesPerWindow))), strconv.FormatFloat(r.AllocsPerWindow, 'f', -1, 64))
 }
 
 func megabytes(b uint64) string { return fmt.Sprintf("%.1f MB", float64(b)/1e6) }

@@ -165,9 +165,6 @@ func TestEveryVerbHasExamples(t *testing.T) {
 		if !c.Runnable() || c.Hidden || c == root || c.Name() == "help" || c.Parent().Name() == "completion" || c.Name() == "completion" {
 			return
 		}
-		if c.Name() == "bench" {
-			return // its examples follow the many-core work on bench
-		}
 		if strings.TrimSpace(c.Example) == "" {
 			t.Errorf("%s: no examples in its help", c.CommandPath())
 			return
@@ -290,7 +287,7 @@ func TestThreadsEverywhere(t *testing.T) {
 			t.Fatal(err)
 		}
 		f := c.Flags().Lookup("threads")
-		if f == nil || (verb != "bench" && !strings.HasPrefix(f.Usage, "threads to compute with")) {
+		if f == nil || !strings.HasPrefix(f.Usage, "threads to compute with") {
 			t.Errorf("%s: --threads %v", verb, f)
 		}
 	}
