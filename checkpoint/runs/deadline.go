@@ -62,7 +62,7 @@ func (s *session) measure() error {
 		}
 		return nil
 	}
-	if step-m.step0 < planTimedWindows {
+	if step-m.step0 < planTimedWindows || s.o.Now().Sub(m.t0) < min(planTimedMax, time.Duration(planTimedFraction*float64(s.deadline.Sub(m.t0)))) {
 		return nil
 	}
 	s.meas = nil

@@ -198,8 +198,9 @@ func TestAnnealingNeedsALength(t *testing.T) {
 func TestProportionWarning(t *testing.T) {
 	dir := t.TempDir()
 	r := tinyRun(t, dir)
-	r.Training.MaxSteps = 40
-	// 64 tokens a step at 1 step/s for 10 days: thousands of passes over
+	r.Training.MaxSteps = 80
+	// Timed for the first minute (planTimedMax), then 64 tokens a step at
+	// 1 step/s for 10 days: thousands of passes over
 	// the 11,000-odd training tokens.
 	_, rec := trainFor(t, context.Background(), r, filepath.Join(dir, "run"), newStepClock(), 240*time.Hour, TrainOptions{})
 	if w := rec.warnings(); !strings.Contains(w, "out of proportion") || !strings.Contains(w, "times in the") {

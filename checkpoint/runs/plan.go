@@ -21,7 +21,9 @@ func (l Layout) Plan() string { return l.File(PlanFile) }
 // How a deadline becomes a planned step count. The session times the
 // run's own first windows: it lets planSkipWindows windows pass untimed
 // (the first ones allocate buffers and warm the caches), then times the
-// next planTimedWindows. From the measured seconds per step it plans
+// next planTimedWindows, or more until planTimedFraction of the time left
+// has passed, up to planTimedMax (so that a long night is planned from a
+// minute of training, not from a moment the load may not last). From the measured seconds per step it plans
 //
 //	steps = ⌊((deadline − now)·(1 − PlanMargin) − v) / (s + o)⌋
 //
@@ -34,8 +36,10 @@ func (l Layout) Plan() string { return l.File(PlanFile) }
 // margin keeps the schedule's end before the deadline when the machine
 // slows down; the deadline still stops the run if it does not.
 const (
-	planSkipWindows  = 2
-	planTimedWindows = 12
+	planSkipWindows   = 2
+	planTimedWindows  = 12
+	planTimedFraction = 0.01
+	planTimedMax      = time.Minute
 	// PlanMargin is the fraction of the time left that the plan leaves
 	// unused (the sizing rule counts on the same margin).
 	PlanMargin = configs.PlanMargin

@@ -116,6 +116,7 @@ type session struct {
 	metrics *metricsLog
 
 	start       time.Time // of this invocation
+	loopStart   time.Time // of its training loop (the corpus prepared, the model built)
 	deadline    time.Time // zero: none
 	wallBase    float64   // WallSeconds of earlier invocations
 	startStep   int64
@@ -482,6 +483,7 @@ func (s *session) train() (*Result, error) {
 	if !s.deadline.IsZero() {
 		s.meas = &measurement{from: tr.Steps()}
 	}
+	s.loopStart = s.o.Now()
 	reason, err := s.loop()
 	if err != nil {
 		return nil, err
@@ -822,8 +824,11 @@ func (s *session) progress() {
 		st.TokensPerSec = float64(s.tokens-s.startTokens) / el
 		stepsPerSec := float64(s.tr.Steps()-s.startStep) / el
 		st.ETA = s.eta(now, stepsPerSec, st.TokensPerSec)
-		if st.PlannedSteps > 0 && !s.deadline.IsZero() && stepsPerSec > 0 {
-			end := now.Add(time.Duration(float64(st.PlannedSteps-s.tr.Steps()) / stepsPerSec * float64(time.Second)))
+		// The slack at the speed of the training loop, without the time
+		// spent preparing the corpus and building the model.
+		if lel := now.Sub(s.loopStart).Seconds(); st.PlannedSteps > 0 && !s.deadline.IsZero() && lel > 0 && s.tr.Steps() > s.startStep {
+			loopRate := float64(s.tr.Steps()-s.startStep) / lel
+			end := now.Add(time.Duration(float64(st.PlannedSteps-s.tr.Steps()) / loopRate * float64(time.Second)))
 			st.PlanSlack, st.PlanSlackKnown = s.deadline.Sub(end), true
 		}
 	}
