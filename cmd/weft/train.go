@@ -58,15 +58,16 @@ after moving the old checkpoints aside.
 
 The run stops at the first budget reached: training.max_steps, max_epochs,
 max_tokens, max_duration, --for, --until, --steps. It then validates, saves
-and exits 0.
+and exits 0. SIGINT, SIGTERM and SIGUSR1 make it finish the current window,
+save and exit 3; a second signal exits at once with status 130.
 
 With a time budget and no step budget, schedule = "cosine" or "linear"
 without its length anneals to the deadline: the run times its first windows
-(12 after 2 untimed, or up to a minute on a long night), plans the step at which the rate reaches min_learning_rate (keeping
-10% of the time left as margin), records the plan in plan.json and the
-checkpoints, and ends there. A resumed run keeps its plan; --replan measures
-again and plans from the time left. SIGINT, SIGTERM and SIGUSR1 make it finish the current window,
-save and exit 3; a second signal exits at once with status 130.`,
+(12 after 2 untimed, or up to a minute on a long night), plans the step at
+which the rate reaches min_learning_rate (keeping 10% of the time left as
+margin), records the plan in plan.json and the checkpoints, and ends there.
+A resumed run keeps its plan; --replan measures again and plans from the
+time left.`,
 		Args: exactArgs(1, "one run file"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
