@@ -207,3 +207,18 @@ func TestProportionWarning(t *testing.T) {
 		t.Errorf("warnings %q, want the many passes named", w)
 	}
 }
+
+// TestDeadlineTooShortToPlan: a budget that ends before the speed is
+// measured (5 s at 1 s a step, 14 windows needed) stops at the deadline
+// with a warning that the schedule did not anneal, and no plan.
+func TestDeadlineTooShortToPlan(t *testing.T) {
+	dir := t.TempDir()
+	r := deadlineRun(t, dir, "cosine")
+	res, rec := trainFor(t, context.Background(), r, filepath.Join(dir, "run"), newStepClock(), 5*time.Second, TrainOptions{})
+	if res.Reason != timeBudgetReached || res.PlannedSteps != 0 || res.Steps != 5 {
+		t.Errorf("got %q at step %d, planned %d; want the time budget at step 5, no plan", res.Reason, res.Steps, res.PlannedSteps)
+	}
+	if !strings.Contains(rec.warnings(), "did not anneal") {
+		t.Errorf("warnings %q, want the missing plan named", rec.warnings())
+	}
+}

@@ -488,6 +488,10 @@ func (s *session) train() (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
+	if (s.planning || s.replanning) && reason == timeBudgetReached {
+		s.warn("the time budget ran out before the speed was measured (%d windows at least): the %s schedule was not planned and did not anneal; give the run more time",
+			planSkipWindows+planTimedWindows, s.r.Training.Schedule)
+	}
 	if reason == "" { // cancelled
 		path, err := s.saveStep(true)
 		if err != nil {
