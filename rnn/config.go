@@ -430,8 +430,8 @@ func (c TrainConfig) Validate() error {
 			return fmt.Errorf("training.min_learning_rate must be from 0 to training.learning_rate (%v), got %v", c.LearningRate, c.MinLearningRate)
 		}
 		if c.DecaySteps() == 0 {
-			return fmt.Errorf("%w: training.schedule %q needs training.%s_steps, training.max_steps or a time budget (--for, --until, training.max_duration)",
-				ErrNoDecayLength, c.Schedule, c.Schedule)
+			return noLengthError(fmt.Sprintf("training.schedule %q needs training.%s_steps, training.max_steps or a time budget (--for, --until, training.max_duration)",
+				c.Schedule, c.Schedule))
 		}
 		if c.DecaySteps() <= c.WarmupSteps {
 			return fmt.Errorf("training.warmup_steps (%d) must be below the %s length (%d)", c.WarmupSteps, c.Schedule, c.DecaySteps())
@@ -457,6 +457,13 @@ func (c TrainConfig) Validate() error {
 // with a time budget supplies the length from its plan (see
 // WithDecaySteps), so the run-file check lets this one error pass.
 var ErrNoDecayLength = errors.New("schedule length unknown")
+
+// noLengthError is Validate's error for a missing schedule length; it is
+// ErrNoDecayLength for errors.Is.
+type noLengthError string
+
+func (e noLengthError) Error() string        { return string(e) }
+func (e noLengthError) Is(target error) bool { return target == ErrNoDecayLength }
 
 // Anneals reports whether the schedule decays to a floor over a length
 // (the "cosine" and "linear" schedules).
