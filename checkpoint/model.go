@@ -90,6 +90,12 @@ type Progress struct {
 	// reason; a finished run is not resumed unless a budget grows.
 	Finished     bool   `json:"finished,omitempty"`
 	FinishReason string `json:"finish_reason,omitempty"`
+	// PlannedSteps is the step at which a run that anneals to its deadline
+	// ends, its "cosine" or "linear" schedule at the floor: the plan made
+	// from the speed measured at the run's start (the run directory's
+	// plan.json keeps the measurement). 0 when the run has no such plan;
+	// checkpoints written before the field existed have none.
+	PlannedSteps int64 `json:"planned_steps,omitempty"`
 	// WallSeconds is the training time of all invocations so far. It is
 	// the one field that differs between an interrupted and a straight run.
 	WallSeconds float64 `json:"wall_seconds"`

@@ -434,7 +434,7 @@ func validate(r *Run, name string, lines map[string]int, set map[string]string) 
 	}{
 		{"data", r.Data.Validate()},
 		{"model", r.Model.Validate()},
-		{"training", r.Training.TrainConfig.Validate()},
+		{"training", trainValidate(r.Training.TrainConfig)},
 		{"evaluation", r.Evaluation.Config.Validate()},
 		{"training", r.Training.validate()},
 		{"checkpoint", r.Checkpoint.validate()},
@@ -479,6 +479,17 @@ func keyInMessage(section, msg string) string {
 		}
 	}
 	return ""
+}
+
+// trainValidate is TrainConfig.Validate but for the missing length of an
+// annealing schedule, which a run with a time budget plans at its start
+// (the flags --for and --until are not known here); runs.Train refuses
+// the run when it has no time budget either.
+func trainValidate(c rnn.TrainConfig) error {
+	if err := c.Validate(); !errors.Is(err, rnn.ErrNoDecayLength) {
+		return err
+	}
+	return nil
 }
 
 func (t *Training) validate() error {

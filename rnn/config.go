@@ -1,6 +1,7 @@
 package rnn
 
 import (
+	"errors"
 	"fmt"
 	"math"
 )
@@ -280,9 +281,13 @@ type TrainConfig struct {
 	// Schedule shapes the learning rate over steps: "constant", "step"
 	// (multiply by decay_factor every decay_every_steps), "cosine" (linear
 	// warm-up over warmup_steps, then a half cosine down to
-	// min_learning_rate at cosine_steps) or "plateau" (divide by
-	// plateau_divisor when the validation loss stops improving). Empty is
-	// invalid. Default "constant".
+	// min_learning_rate at cosine_steps), "linear" (the same warm-up, then
+	// a straight line down to min_learning_rate at linear_steps) or
+	// "plateau" (divide by plateau_divisor when the validation loss stops
+	// improving). With a time budget and no step budget, "cosine" and
+	// "linear" without their length anneal to the deadline: the run plans
+	// the length from its measured speed. Empty is invalid. Default
+	// "constant".
 	Schedule string `toml:"schedule"`
 
 	// DecayEverySteps is the period of the "step" schedule, in steps; zero
@@ -293,16 +298,18 @@ type TrainConfig struct {
 	// 1; zero is invalid with that schedule. Default 0.5.
 	DecayFactor float64 `toml:"decay_factor"`
 
-	// WarmupSteps is the length of the linear warm-up of the "cosine"
-	// schedule, in steps. Zero means no warm-up. Default 0.
+	// WarmupSteps is the length of the linear warm-up of the "cosine" and
+	// "linear" schedules, in steps. Zero means no warm-up. Default 0.
 	WarmupSteps int `toml:"warmup_steps"`
 
 	// CosineSteps is the step at which the "cosine" schedule reaches
-	// min_learning_rate (and stays). Zero means max_steps. Default 0.
+	// min_learning_rate (and stays). Zero means max_steps, or with a time
+	// budget and no max_steps the step planned from the deadline.
+	// Default 0.
 	CosineSteps int `toml:"cosine_steps"`
 
-	// MinLearningRate is the floor of the "cosine" schedule. Zero means the
-	// rate decays to 0. Default 0.
+	// MinLearningRate is the floor of the "cosine" and "linear" schedules.
+	// Zero means the rate decays to 0. Default 0.
 	MinLearningRate float64 `toml:"min_learning_rate"`
 
 	// PlateauDivisor divides the rate of the "plateau" schedule each time
@@ -314,6 +321,12 @@ type TrainConfig struct {
 	// "plateau" schedule tolerates before it divides. Zero means it divides
 	// at the first one. Default 0.
 	PlateauPatience int `toml:"plateau_patience"`
+
+	// LinearSteps is the step at which the "linear" schedule reaches
+	// min_learning_rate (and stays). Zero means max_steps, or with a time
+	// budget and no max_steps the step planned from the deadline.
+	// Default 0.
+	LinearSteps int `toml:"linear_steps"`
 
 	// PlateauThreshold is the relative improvement, from 0 to below 1, a
 	// validation loss needs over the best so far to count as one for
@@ -405,21 +418,25 @@ func (c TrainConfig) Validate() error {
 		if !(c.DecayFactor > 0 && c.DecayFactor <= 1) {
 			return fmt.Errorf("training.decay_factor must be in (0, 1], got %v", c.DecayFactor)
 		}
-	case "cosine":
+	case "cosine", "linear":
 		if c.WarmupSteps < 0 {
 			return fmt.Errorf("training.warmup_steps must be 0 or more, got %d", c.WarmupSteps)
 		}
 		if c.CosineSteps < 0 {
 			return fmt.Errorf("training.cosine_steps must be 0 (max_steps) or more, got %d", c.CosineSteps)
 		}
-		if c.CosineSteps == 0 && c.MaxSteps == 0 {
-			return fmt.Errorf("training.schedule \"cosine\" needs training.cosine_steps or training.max_steps")
-		}
-		if c.cosineSteps() <= c.WarmupSteps {
-			return fmt.Errorf("training.warmup_steps (%d) must be below the cosine length (%d)", c.WarmupSteps, c.cosineSteps())
+		if c.LinearSteps < 0 {
+			return fmt.Errorf("training.linear_steps must be 0 (max_steps) or more, got %d", c.LinearSteps)
 		}
 		if !(c.MinLearningRate >= 0 && c.MinLearningRate <= c.LearningRate) {
 			return fmt.Errorf("training.min_learning_rate must be from 0 to training.learning_rate (%v), got %v", c.LearningRate, c.MinLearningRate)
+		}
+		if c.DecaySteps() == 0 {
+			return noLengthError(fmt.Sprintf("training.schedule %q needs training.%s_steps, training.max_steps or a time budget (--for, --until, training.max_duration)",
+				c.Schedule, c.Schedule))
+		}
+		if c.DecaySteps() <= c.WarmupSteps {
+			return fmt.Errorf("training.warmup_steps (%d) must be below the %s length (%d)", c.WarmupSteps, c.Schedule, c.DecaySteps())
 		}
 	case "plateau":
 		if !(c.PlateauDivisor > 1) || !fin(c.PlateauDivisor) {
@@ -432,14 +449,62 @@ func (c TrainConfig) Validate() error {
 			return fmt.Errorf("training.plateau_threshold must be in [0, 1), got %v", c.PlateauThreshold)
 		}
 	default:
-		return fmt.Errorf("training.schedule must be \"constant\", \"step\", \"cosine\" or \"plateau\", got %q", c.Schedule)
+		return fmt.Errorf("training.schedule must be \"constant\", \"step\", \"cosine\", \"linear\" or \"plateau\", got %q", c.Schedule)
 	}
 	return nil
 }
 
-func (c TrainConfig) cosineSteps() int {
-	if c.CosineSteps > 0 {
-		return c.CosineSteps
+// ErrNoDecayLength is wrapped by Validate's error when a "cosine" or
+// "linear" schedule has no length: neither its own key nor max_steps. A run
+// with a time budget supplies the length from its plan (see
+// WithDecaySteps), so the run-file check lets this one error pass.
+var ErrNoDecayLength = errors.New("schedule length unknown")
+
+// noLengthError is Validate's error for a missing schedule length; it is
+// ErrNoDecayLength for errors.Is.
+type noLengthError string
+
+func (e noLengthError) Error() string        { return string(e) }
+func (e noLengthError) Is(target error) bool { return target == ErrNoDecayLength }
+
+// Anneals reports whether the schedule decays to a floor over a length
+// (the "cosine" and "linear" schedules).
+func (c TrainConfig) Anneals() bool { return c.Schedule == "cosine" || c.Schedule == "linear" }
+
+// DecaySteps is the step at which an annealing schedule reaches its floor:
+// its own length key (cosine_steps or linear_steps), else max_steps; 0
+// when neither is set or the schedule does not anneal.
+func (c TrainConfig) DecaySteps() int {
+	own := 0
+	switch c.Schedule {
+	case "cosine":
+		own = c.CosineSteps
+	case "linear":
+		own = c.LinearSteps
+	default:
+		return 0
+	}
+	if own > 0 {
+		return own
 	}
 	return c.MaxSteps
+}
+
+// OwnDecaySteps reports whether the schedule's length comes from its own
+// key (cosine_steps or linear_steps) rather than from max_steps or a plan.
+func (c TrainConfig) OwnDecaySteps() bool {
+	return (c.Schedule == "cosine" && c.CosineSteps > 0) || (c.Schedule == "linear" && c.LinearSteps > 0)
+}
+
+// WithDecaySteps returns c with the annealing schedule's length set to
+// steps (the key of its own schedule), as a run planned from its deadline
+// does; other schedules are returned unchanged.
+func (c TrainConfig) WithDecaySteps(steps int) TrainConfig {
+	switch c.Schedule {
+	case "cosine":
+		c.CosineSteps = steps
+	case "linear":
+		c.LinearSteps = steps
+	}
+	return c
 }

@@ -268,7 +268,7 @@ func TestConfigValidate(t *testing.T) {
 	}
 	tc = DefaultTrainConfig()
 	tc.Schedule = "cosine"
-	if err := tc.Validate(); err == nil || err.Error() != `training.schedule "cosine" needs training.cosine_steps or training.max_steps` {
+	if err := tc.Validate(); err == nil || err.Error() != `training.schedule "cosine" needs training.cosine_steps, training.max_steps or a time budget (--for, --until, training.max_duration)` {
 		t.Errorf("cosine without length: got %v", err)
 	}
 }

@@ -12,10 +12,13 @@ import (
 //	step:      η_t = η₀ · γ^⌊t/s⌋                   γ = decay_factor, s = decay_every_steps
 //	cosine:    η_t = η₀ · (t+1)/w                   for t < w = warmup_steps
 //	           η_t = η_min + (η₀−η_min)(1+cos(π p))/2,  p = min(1, (t−w)/(S−w)), S = cosine_steps
+//	linear:    η_t = η₀ · (t+1)/w                   for t < w = warmup_steps
+//	           η_t = η_min + (η₀−η_min)(1−p),       p = min(1, (t−w)/(S−w)), S = linear_steps
 //	plateau:   η_t = η₀ / d^k                       d = plateau_divisor, k = divisions so far
 //
 // where t counts updates from 0 (the cosine form follows Loshchilov &
-// Hutter 2017, SGDR, without restarts). The plateau schedule divides when
+// Hutter 2017, SGDR, without restarts; the linear one is the common-practice
+// straight-line decay). At t = S both give η_min exactly. The plateau schedule divides when
 // ReportValidation sees more than plateau_patience validations in a row
 // that do not improve on the best by the relative plateau_threshold.
 type Schedule struct {
@@ -77,12 +80,18 @@ func (s *Schedule) rate(t int64) float64 {
 	switch c.Schedule {
 	case "step":
 		return lr * math.Pow(c.DecayFactor, float64(t/int64(c.DecayEverySteps)))
-	case "cosine":
-		w, total := int64(c.WarmupSteps), int64(c.cosineSteps())
+	case "cosine", "linear":
+		w, total := int64(c.WarmupSteps), int64(c.DecaySteps())
 		if t < w {
 			return lr * float64(t+1) / float64(w)
 		}
 		p := math.Min(1, float64(t-w)/float64(total-w))
+		if p == 1 {
+			return c.MinLearningRate
+		}
+		if c.Schedule == "linear" {
+			return c.MinLearningRate + (lr-c.MinLearningRate)*(1-p)
+		}
 		return c.MinLearningRate + (lr-c.MinLearningRate)*(1+math.Cos(math.Pi*p))/2
 	case "plateau":
 		return lr / math.Pow(c.PlateauDivisor, float64(s.state.Divisions))

@@ -57,6 +57,12 @@ type Status struct {
 	BestStep        int64
 	ETA             time.Duration // to the first budget; -1 when there is none
 	MaxSteps        int64         // the step budget, 0 when none
+	// PlannedSteps is the step a run annealing to its deadline ends at (0:
+	// no plan). PlanSlack is the deadline minus the time the run reaches
+	// it at its speed so far (negative: late), when PlanSlackKnown.
+	PlannedSteps   int64
+	PlanSlack      time.Duration
+	PlanSlackKnown bool
 }
 
 // Validation is one measurement of the validation split.

@@ -24,8 +24,10 @@ import (
 func SafeOnResume(key string, r *configs.Run) bool {
 	switch key {
 	case "training.max_steps":
-		// The cosine schedule's length defaults to max_steps.
-		return !(r.Training.Schedule == "cosine" && r.Training.CosineSteps == 0)
+		// The length of the "cosine" and "linear" schedules defaults to
+		// max_steps (checkResume allows it for a run planned from its
+		// deadline, whose length is the plan).
+		return !(r.Training.Anneals() && !r.Training.OwnDecaySteps())
 	case "training.max_epochs", "training.max_tokens", "training.max_duration",
 		"training.early_stop_patience", "training.threads",
 		"training.divergence_factor", "training.divergence_retries", "training.divergence_lr_factor":
@@ -78,9 +80,13 @@ func checkResume(f *checkpoint.File, path string, runTOML []byte, r *configs.Run
 	if err != nil {
 		return fmt.Errorf("checkpoint %s: %w", path, err)
 	}
+	planned := false
+	if p, err := checkpoint.ReadProgress(f); err == nil && p.PlannedSteps > 0 {
+		planned = true
+	}
 	var unsafe []string
 	for _, k := range keys {
-		if !SafeOnResume(k, r) {
+		if !SafeOnResume(k, r) && !(planned && k == "training.max_steps") {
 			unsafe = append(unsafe, k)
 		}
 	}

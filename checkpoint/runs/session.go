@@ -43,6 +43,10 @@ type TrainOptions struct {
 	// Restart moves the old checkpoints and metrics log aside and starts
 	// over.
 	Restart bool
+	// Replan measures the speed again at the start of a resumed run that
+	// anneals to its deadline and plans its end anew from the time left
+	// (see PlanFile); without it a resumed run keeps its plan.
+	Replan bool
 
 	// Observer hears what the session does; nil hears nothing.
 	Observer Observer
@@ -79,6 +83,13 @@ type Result struct {
 	ResumedFrom string
 	// NothingToDo says a resumed run had already reached its budget.
 	NothingToDo bool
+	// PlannedSteps is the step a run annealing to its deadline planned to
+	// end at (0: no plan); Deadline is this invocation's deadline (zero:
+	// none) and Ended when it ended, so Deadline − Ended is the time to
+	// spare (negative: late).
+	PlannedSteps int64
+	Deadline     time.Time
+	Ended        time.Time
 }
 
 // session is one invocation of training on a run directory.
@@ -105,6 +116,7 @@ type session struct {
 	metrics *metricsLog
 
 	start       time.Time // of this invocation
+	loopStart   time.Time // of its training loop (the corpus prepared, the model built)
 	deadline    time.Time // zero: none
 	wallBase    float64   // WallSeconds of earlier invocations
 	startStep   int64
@@ -122,6 +134,15 @@ type session struct {
 	winTokens int64
 	lastInfo  rnn.StepInfo
 	val       *Validation // of the current step, for its metrics line
+
+	// The deadline plan: decaySteps is the schedule length in force (the
+	// plan, or provisionalDecaySteps while planning; 0: the run file's);
+	// meas the speed measurement under way (nil: none); planning and
+	// replanning say what the measurement is for.
+	decaySteps int64
+	meas       *measurement
+	planning   bool
+	replanning bool
 
 	res Result
 }
@@ -330,6 +351,9 @@ func (s *session) setDeadline(now time.Time) error {
 // scaled by the divergence guard's reductions.
 func (s *session) trainConfig(scale float64) rnn.TrainConfig {
 	tc := s.r.Training.TrainConfig
+	if s.decaySteps > 0 {
+		tc = tc.WithDecaySteps(int(s.decaySteps))
+	}
 	tc.LearningRate *= scale
 	tc.MinLearningRate *= scale
 	return tc
@@ -353,6 +377,9 @@ func (s *session) build(f *checkpoint.File, path string) error {
 			return fmt.Errorf("checkpoint %s: learning-rate scale %v out of range", path, p.LearningRateScale)
 		}
 		s.prog = p
+	}
+	if err := s.decidePlan(); err != nil {
+		return err
 	}
 	net, err := rnn.NewModelWithCounts[float32](r.Model, checkpoint.VocabCounts(s.ds.Vocab), r.Training.Seed)
 	if err != nil {
@@ -412,6 +439,8 @@ func (s *session) doneReason() string {
 	switch {
 	case t.MaxSteps > 0 && s.tr.Steps() >= int64(t.MaxSteps):
 		return fmt.Sprintf("step budget reached (training.max_steps = %d)", t.MaxSteps)
+	case p.PlannedSteps > 0 && s.tr.Steps() >= p.PlannedSteps:
+		return fmt.Sprintf("planned end reached (step %d, planned from the deadline)", p.PlannedSteps)
 	case t.MaxEpochs > 0 && p.Epoch >= t.MaxEpochs:
 		return fmt.Sprintf("epoch budget reached (training.max_epochs = %d)", t.MaxEpochs)
 	case t.MaxTokens > 0 && s.tokens >= t.MaxTokens:
@@ -452,9 +481,17 @@ func (s *session) train() (*Result, error) {
 		return s.result(reason), nil
 	}
 	s.prog.Finished, s.prog.FinishReason = false, ""
+	if !s.deadline.IsZero() {
+		s.meas = &measurement{from: tr.Steps()}
+	}
+	s.loopStart = s.o.Now()
 	reason, err := s.loop()
 	if err != nil {
 		return nil, err
+	}
+	if (s.planning || s.replanning) && reason == timeBudgetReached {
+		s.warn("the time budget ran out before the speed was measured (%d windows at least): the %s schedule was not planned and did not anneal; give the run more time",
+			planSkipWindows+planTimedWindows, s.r.Training.Schedule)
 	}
 	if reason == "" { // cancelled
 		path, err := s.saveStep(true)
@@ -480,6 +517,8 @@ func (s *session) result(reason string) *Result {
 	res := s.res
 	res.Reason = reason
 	res.Steps = s.tr.Steps()
+	res.PlannedSteps = s.prog.PlannedSteps
+	res.Deadline, res.Ended = s.deadline, s.o.Now()
 	res.Epochs = s.prog.Epoch
 	res.BestValBitsPerChar = math.NaN()
 	if s.prog.HaveBest {
@@ -567,6 +606,11 @@ func (s *session) loop() (string, error) {
 		if s.o.AfterStep != nil {
 			s.o.AfterStep(info.Step, s.net)
 		}
+		if s.meas != nil {
+			if err := s.measure(); err != nil {
+				return "", err
+			}
+		}
 
 		if every := r.Evaluation.EverySteps; (every > 0 && info.Step%int64(every) == 0) || s.validationTimeDue() {
 			if err := s.validate(); err != nil {
@@ -636,6 +680,7 @@ func (s *session) recoverDivergence(why string) error {
 	p.Divergences, p.DivergencesTotal = s.prog.Divergences, s.prog.DivergencesTotal
 	p.DivergedAt = max(s.prog.DivergedAt, step+1)
 	p.LearningRateScale = scale
+	p.PlannedSteps = s.prog.PlannedSteps // a plan made since the last good state stays
 	s.prog = p
 	s.tr = tr
 	st := tr.State()
@@ -787,10 +832,18 @@ func (s *session) progress() {
 		st.ValBitsPerChar = s.prog.LastBitsPerChar
 		st.BestBitsPerChar, st.BestStep = s.prog.BestBitsPerChar, s.prog.BestStep
 	}
+	st.PlannedSteps = s.prog.PlannedSteps
 	if el > 0 {
 		st.TokensPerSec = float64(s.tokens-s.startTokens) / el
 		stepsPerSec := float64(s.tr.Steps()-s.startStep) / el
 		st.ETA = s.eta(now, stepsPerSec, st.TokensPerSec)
+		// The slack at the speed of the training loop, without the time
+		// spent preparing the corpus and building the model.
+		if lel := now.Sub(s.loopStart).Seconds(); st.PlannedSteps > 0 && !s.deadline.IsZero() && lel > 0 && s.tr.Steps() > s.startStep {
+			loopRate := float64(s.tr.Steps()-s.startStep) / lel
+			end := now.Add(time.Duration(float64(st.PlannedSteps-s.tr.Steps()) / loopRate * float64(time.Second)))
+			st.PlanSlack, st.PlanSlackKnown = s.deadline.Sub(end), true
+		}
 	}
 	s.obs.Progress(st)
 }
@@ -804,6 +857,9 @@ func (s *session) eta(now time.Time, stepsPerSec, tokPerSec float64) time.Durati
 	}
 	if t.MaxTokens > 0 && tokPerSec > 0 {
 		best = math.Min(best, float64(t.MaxTokens-s.tokens)/tokPerSec)
+	}
+	if p := s.prog.PlannedSteps; p > 0 && stepsPerSec > 0 {
+		best = math.Min(best, float64(p-s.tr.Steps())/stepsPerSec)
 	}
 	if t.MaxEpochs > 0 && tokPerSec > 0 {
 		perEpoch := float64(s.batches.StreamLen() * t.BatchSize)

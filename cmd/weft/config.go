@@ -1,18 +1,32 @@
 package main
 
 import (
+	"context"
 	"fmt"
+	"io"
+	"path/filepath"
+	"runtime"
 	"strings"
+	"time"
 
 	"github.com/spf13/cobra"
 
 	"weft/configs"
+	"weft/data"
 )
 
 type configNewOptions struct {
 	*deps
 	Preset string
 	List   bool
+	// The sizing rule's inputs (--fit and what goes with it).
+	Fit       time.Duration
+	Corpus    []string
+	Cores     int
+	Tokenizer string
+	Speed     float64
+
+	presetGiven bool
 }
 
 type configShowOptions struct {
@@ -40,14 +54,23 @@ func newConfigNewCmd(d *deps, runF func(*configNewOptions) error) *cobra.Command
 		Use:   "new [PRESET]",
 		Short: "Write a commented starter run file to standard output",
 		Long: "Write a commented starter run file to standard output.\n\nPresets:\n" +
-			strings.Join(names, "\n") + "\n\nWithout PRESET, " + configs.DefaultPreset + " is written.",
-		Example:           "  weft config new char-small > night.toml",
+			strings.Join(names, "\n") + "\n\nWithout PRESET, " + configs.DefaultPreset + " is written.\n\n" +
+			"With --fit DURATION --corpus FILES, the run file is sized for that time budget,\n" +
+			"that corpus and this machine instead: the largest LSTM that trains on at least 4\n" +
+			"tokens per parameter in the budget and has at most one parameter per corpus\n" +
+			"token, dropout by the expected passes over the corpus, and a cosine schedule\n" +
+			"annealing to the deadline. Each value says why in a comment; tokens per\n" +
+			"parameter, expected passes and speed are printed on standard error. The speed\n" +
+			"is estimated from --cores unless --speed gives the tokens/s 'weft bench'\n" +
+			"measured for the default model (lstm 1x256).",
+		Example: "  weft config new char-small > night.toml\n" +
+			"  weft config new --fit 8h --corpus books/ > night.toml",
 		Args:              rangeArgs(0, 1, "at most one preset name"),
 		ValidArgsFunction: completePresets,
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.Preset = configs.DefaultPreset
 			if len(args) == 1 {
-				opts.Preset = args[0]
+				opts.Preset, opts.presetGiven = args[0], true
 			}
 			if runF != nil {
 				return runF(opts)
@@ -55,11 +78,20 @@ func newConfigNewCmd(d *deps, runF func(*configNewOptions) error) *cobra.Command
 			return runConfigNew(opts)
 		},
 	}
-	cmd.Flags().BoolVar(&opts.List, "list", false, "list the presets instead")
+	f := cmd.Flags()
+	f.BoolVar(&opts.List, "list", false, "list the presets instead")
+	f.DurationVar(&opts.Fit, "fit", 0, "size the run file for this time budget (e.g. 8h) instead of writing a preset")
+	f.StringArrayVar(&opts.Corpus, "corpus", nil, "with --fit: the corpus files, folders or globs (repeatable)")
+	f.IntVar(&opts.Cores, "cores", runtime.NumCPU(), "with --fit: cores the run will train on")
+	f.StringVar(&opts.Tokenizer, "tokenizer", "char", "with --fit: \"char\" or \"word\"")
+	f.Float64Var(&opts.Speed, "speed", 0, "with --fit: measured tokens/s of the default model on this machine (0: estimate from --cores)")
 	return cmd
 }
 
 func runConfigNew(opts *configNewOptions) error {
+	if opts.Fit != 0 || len(opts.Corpus) > 0 {
+		return runConfigFit(opts)
+	}
 	if opts.List {
 		for _, p := range configs.Presets() {
 			fmt.Fprintf(opts.Out, "%-11s %s\n", p.Name, p.Summary)
@@ -72,6 +104,55 @@ func runConfigNew(opts *configNewOptions) error {
 	}
 	_, err = opts.Out.Write(p.Text)
 	return err
+}
+
+// runConfigFit writes a run file sized by configs.Size for the budget, the
+// corpus (prepared as the run would, to count its training tokens and
+// vocabulary) and the cores.
+func runConfigFit(opts *configNewOptions) error {
+	switch {
+	case opts.presetGiven || opts.List:
+		return usagef("--fit writes a sized run file: give no preset and no --list with it")
+	case opts.Fit <= 0:
+		return usagef("--fit must be a positive duration such as 8h, got %v", opts.Fit)
+	case len(opts.Corpus) == 0:
+		return usagef("--fit needs --corpus FILES: the rule sizes the model to the corpus")
+	case opts.Cores < 1:
+		return usagef("--cores must be at least 1, got %d", opts.Cores)
+	case opts.Tokenizer != "char" && opts.Tokenizer != "word":
+		return usagef("--tokenizer must be \"char\" or \"word\" with --fit, got %q", opts.Tokenizer)
+	case opts.Speed < 0:
+		return usagef("--speed must be 0 (estimate) or a positive number of tokens/s, got %v", opts.Speed)
+	}
+	files := make([]string, len(opts.Corpus))
+	for i, f := range opts.Corpus {
+		abs, err := filepath.Abs(f)
+		if err != nil {
+			return fmt.Errorf("--corpus %s: %w", f, err)
+		}
+		files[i] = abs
+	}
+	dc := configs.Default().Data
+	dc.Files, dc.Tokenizer = files, opts.Tokenizer
+	if opts.Tokenizer == "word" {
+		dc.MaxVocabulary = 10000
+	}
+	ds, err := data.PrepareEnv(context.Background(), dc, data.Env{Stdin: opts.In})
+	if err != nil {
+		return err
+	}
+	fit, err := configs.Size(configs.FitInput{Budget: opts.Fit, CorpusTokens: int64(len(ds.Train.Tokens)), VocabSize: ds.Vocab.Len(),
+		Tokenizer: opts.Tokenizer, Cores: opts.Cores, TokensPerSecond: opts.Speed})
+	if err != nil {
+		return usagef("--fit: %v", err)
+	}
+	if _, err := io.WriteString(opts.Out, fit.RunFile(files, opts.Tokenizer, opts.Fit)); err != nil {
+		return err
+	}
+	fmt.Fprintf(opts.Err, "sized for %v on %d cores: lstm %d×%d, %s parameters; expected %s tokens/s, %s training tokens, %.1f tokens per parameter, %.1f passes over the %s training tokens\n",
+		opts.Fit, opts.Cores, fit.Layers, fit.Hidden, thousands(fit.Params), thousands(int64(fit.TokensPerSecond)), thousands(fit.ExpectedTokens),
+		fit.TokensPerParam, fit.Epochs, thousands(int64(len(ds.Train.Tokens))))
+	return nil
 }
 
 func newConfigShowCmd(d *deps, runF func(*configShowOptions) error) *cobra.Command {

@@ -14,7 +14,8 @@ import (
 
 // statusText is the progress line of a training run, in the order an
 // overnight user reads it: where validation stands and its best, the time
-// left to the budget, then speed, training loss and gradient norm, and the
+// left to the budget, the planned end of a deadline schedule and whether it
+// is on time, then speed, training loss and gradient norm, and the
 // position; every figure with its unit.
 func statusText(st runs.Status) string {
 	var b strings.Builder
@@ -28,6 +29,13 @@ func statusText(st runs.Status) string {
 	}
 	if st.ETA >= 0 {
 		fmt.Fprintf(&b, " | %s left", roundDuration(st.ETA))
+	}
+	if st.PlannedSteps > 0 && st.PlanSlackKnown {
+		if st.PlanSlack >= 0 {
+			fmt.Fprintf(&b, " | planned end step %s, on time (%s spare)", thousands(st.PlannedSteps), roundDuration(st.PlanSlack))
+		} else {
+			fmt.Fprintf(&b, " | planned end step %s, %s late", thousands(st.PlannedSteps), roundDuration(-st.PlanSlack))
+		}
 	}
 	fmt.Fprintf(&b, " | %s tokens/s | training loss %.4f nats/token | gradient norm %.3g before clipping | step %s",
 		thousands(int64(st.TokensPerSec)), st.Loss, st.GradNorm, thousands(st.Step))

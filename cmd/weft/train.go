@@ -31,6 +31,7 @@ type trainOptions struct {
 	Run     string
 	Set     []string
 	Restart bool
+	Replan  bool
 	For     time.Duration
 	Until   string
 	Steps   int
@@ -59,7 +60,15 @@ after moving the old checkpoints aside.
 The run stops at the first budget reached: training.max_steps, max_epochs,
 max_tokens, max_duration, --for, --until, --steps. It then validates, saves
 and exits 0. SIGINT, SIGTERM and SIGUSR1 make it finish the current window,
-save and exit 3; a second signal exits at once with status 130.`,
+save and exit 3; a second signal exits at once with status 130.
+
+With a time budget and no step budget, schedule = "cosine" or "linear"
+without its length anneals to the deadline: the run times its first windows
+(12 after 2 untimed, or up to a minute on a long night), plans the step at
+which the rate reaches min_learning_rate (keeping 10% of the time left as
+margin), records the plan in plan.json and the checkpoints, and ends there.
+A resumed run keeps its plan; --replan measures again and plans from the
+time left.`,
 		Args: exactArgs(1, "one run file"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
@@ -74,6 +83,7 @@ save and exit 3; a second signal exits at once with status 130.`,
 	f := cmd.Flags()
 	f.StringVar(&opts.Run, "run", "", "run directory (created if missing, resumed if it holds checkpoints)")
 	f.BoolVar(&opts.Restart, "restart", false, "start over, moving the old checkpoints aside to checkpoints.old-TIME")
+	f.BoolVar(&opts.Replan, "replan", false, "on resume, measure the speed again and re-plan where a schedule annealing to the deadline ends")
 	f.DurationVar(&opts.For, "for", 0, "stop after training this long in this invocation (e.g. 8h, 90m)")
 	f.StringVar(&opts.Until, "until", "", "stop at this local time of day (HH:MM, the next occurrence) or an RFC 3339 time")
 	f.IntVar(&opts.Steps, "steps", 0, "stop at this many training steps in all (sets training.max_steps)")
@@ -93,7 +103,7 @@ func runTrain(opts *trainOptions) error {
 	if opts.Steps < 0 {
 		return usagef("--steps must be positive, got %d", opts.Steps)
 	}
-	o := trainRunOptions{Duration: opts.For, Restart: opts.Restart, Quiet: opts.Quiet}
+	o := trainRunOptions{Duration: opts.For, Restart: opts.Restart, Replan: opts.Replan, Quiet: opts.Quiet}
 	if opts.Until != "" {
 		t, err := parseUntil(opts.Until, opts.Now())
 		if err != nil {
@@ -168,6 +178,8 @@ type trainRunOptions struct {
 	Deadline time.Time
 	// Restart moves old checkpoints aside and starts over.
 	Restart bool
+	// Replan re-measures and re-plans a deadline schedule on resume.
+	Replan bool
 	// Quiet prints no progress, only warnings.
 	Quiet bool
 }
@@ -190,7 +202,7 @@ func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (
 	defer release()
 	page := report.Watch(runDir, &trainObserver{rep: rep}, cc.Now, func(s string) { rep.warnf("%s", s) })
 	res, err := runs.Train(ctx, r, runDir, runs.TrainOptions{
-		Duration: o.Duration, Deadline: o.Deadline, Restart: o.Restart,
+		Duration: o.Duration, Deadline: o.Deadline, Restart: o.Restart, Replan: o.Replan,
 		Observer: page, Now: cc.Now, Save: saveCheckpoint, AfterStep: trainStepHook, Stdin: cc.In,
 	})
 	signal, _ := sig.Load().(string)
@@ -211,6 +223,9 @@ func trainRun(cc cmdContext, r *configs.Run, runDir string, o trainRunOptions) (
 			fmt.Fprintf(cc.Out, " Best validation: %.4f bits per character at step %s (%s).", res.BestValBitsPerChar, thousands(res.BestStep), res.BestPath)
 		}
 		fmt.Fprintf(cc.Out, " Newest checkpoint: %s\n", res.LatestPath)
+		if t := planText(res); t != "" {
+			fmt.Fprintln(cc.Out, t)
+		}
 	}
 	return out, nil
 }
@@ -300,6 +315,23 @@ func (o *trainObserver) Notice(n runs.Notice) {
 		return
 	}
 	o.rep.logf("%s", n.Text)
+}
+
+// planText says how a run annealing to its deadline ended against its
+// plan, or "" for a run without one.
+func planText(res *runs.Result) string {
+	if res.PlannedSteps == 0 {
+		return ""
+	}
+	if res.Steps >= res.PlannedSteps {
+		t := fmt.Sprintf("Planned end: step %s, reached", thousands(res.PlannedSteps))
+		if !res.Deadline.IsZero() {
+			t += fmt.Sprintf(" %s before the deadline (on time)", roundDuration(res.Deadline.Sub(res.Ended)))
+		}
+		return t + "; the learning rate is at its floor."
+	}
+	return fmt.Sprintf("Planned end: step %s, not reached: stopped %s steps short, the learning rate above its floor (late; --replan on the next resume plans from the measured speed).",
+		thousands(res.PlannedSteps), thousands(res.PlannedSteps-res.Steps))
 }
 
 func budgetText(b runs.Budget) string {

@@ -1,0 +1,148 @@
+package runs
+
+import (
+	"fmt"
+	"time"
+
+	"weft/checkpoint"
+	"weft/configs"
+	"weft/rnn"
+)
+
+// measurement is the timing of the run's first windows (see PlanSkipWindows).
+type measurement struct {
+	from    int64 // the step the invocation started at
+	started bool  // the untimed windows are behind
+	t0      time.Time
+	step0   int64
+	tokens0 int64
+}
+
+// decidePlan sets how the schedule's length is known: from the run file,
+// from the plan recorded in the checkpoint, or from a plan made once the
+// speed is measured. It refuses an annealing schedule with no length and
+// no time budget.
+func (s *session) decidePlan() error {
+	tc := s.r.Training.TrainConfig
+	if !tc.Anneals() || tc.OwnDecaySteps() {
+		if s.o.Replan {
+			s.warn("--replan: this run does not anneal to its deadline (training.schedule = %q with its length set); nothing to replan", tc.Schedule)
+		}
+		return nil
+	}
+	switch {
+	case s.prog.PlannedSteps > 0:
+		s.decaySteps = s.prog.PlannedSteps
+		if s.o.Replan {
+			if s.deadline.IsZero() {
+				return fmt.Errorf("--replan needs a time budget (--for, --until or training.max_duration) to plan against")
+			}
+			s.replanning = true
+		}
+	case tc.MaxSteps > 0:
+		// The length is max_steps.
+	case !s.deadline.IsZero():
+		s.decaySteps, s.planning = provisionalDecaySteps, true
+	default:
+		return fmt.Errorf("training.schedule %q needs training.%s_steps, training.max_steps or a time budget (--for, --until, training.max_duration) to anneal to",
+			tc.Schedule, tc.Schedule)
+	}
+	return nil
+}
+
+// measure times the first windows of the invocation; when enough are
+// timed it warns about a plan out of proportion and, for a run annealing
+// to its deadline, makes (or remakes) the plan.
+func (s *session) measure() error {
+	m := s.meas
+	step := s.tr.Steps()
+	if !m.started {
+		if step-m.from >= planSkipWindows {
+			m.started, m.t0, m.step0, m.tokens0 = true, s.o.Now(), step, s.tokens
+		}
+		return nil
+	}
+	if step-m.step0 < planTimedWindows || s.o.Now().Sub(m.t0) < min(planTimedMax, time.Duration(planTimedFraction*float64(s.deadline.Sub(m.t0)))) {
+		return nil
+	}
+	s.meas = nil
+	el := s.o.Now().Sub(m.t0).Seconds()
+	if el <= 0 {
+		el = 1e-9 // a clock that did not move: as fast as can be
+	}
+	n := step - m.step0
+	secPerStep := el / float64(n)
+	tokPerSec := float64(s.tokens-m.tokens0) / el
+	return s.plan(int(n), secPerStep, tokPerSec)
+}
+
+// plan turns the measured speed into the planned step (see PlanMargin),
+// warns when the budget is out of proportion to the model and corpus, and
+// for an annealing run records the plan and rebuilds the trainer with it.
+func (s *session) plan(timed int, secPerStep, tokPerSec float64) error {
+	now := s.o.Now()
+	step := s.tr.Steps()
+	left := s.deadline.Sub(now)
+	valSec := float64(len(s.ds.Validation.Tokens)) / (3 * tokPerSec)
+	tokPerStep := tokPerSec * secPerStep
+	var over float64
+	if every := s.r.Evaluation.EverySteps; every > 0 {
+		over += valSec / float64(every)
+	}
+	if train := float64(len(s.ds.Train.Tokens)); tokPerStep > 0 && train > 0 {
+		over += valSec / (train / tokPerStep) // one validation per epoch
+	}
+	planned := PlanSteps(step, left, secPerStep, over, valSec, PlanMargin)
+
+	// Out of proportion: judged on the tokens this invocation will train.
+	expect := float64(planned-step) * tokPerStep
+	for _, w := range configs.CheckProportion(int64(expect), int64(len(s.ds.Train.Tokens)), int64(s.net.NumParams()), left) {
+		s.warn("%s", w)
+	}
+	if !s.planning && !s.replanning {
+		return nil
+	}
+	tc := s.r.Training.TrainConfig
+	if w := int64(tc.WarmupSteps); planned <= w {
+		s.warn("the deadline leaves time for about %d steps, no more than training.warmup_steps = %d: the schedule is planned to end at step %d, which the deadline may cut short", planned, w, w+1)
+		planned = w + 1
+	}
+	old := s.prog.PlannedSteps
+	s.prog.PlannedSteps, s.decaySteps = planned, planned
+	f, err := s.file()
+	if err != nil {
+		return err
+	}
+	tr, err := rnn.NewTrainer(s.net, s.trainConfig(s.prog.LearningRateScale), s.pool)
+	if err != nil {
+		return err
+	}
+	if err := checkpoint.RestoreTrainer(f, tr); err != nil {
+		return fmt.Errorf("deadline plan: %w", err)
+	}
+	s.tr = tr
+	p := Plan{Schedule: tc.Schedule, PlannedSteps: planned, MadeAtStep: step, MadeAt: now, Deadline: s.deadline,
+		TimedWindows: timed, SecondsPerStep: secPerStep, TokensPerSecond: tokPerSec,
+		ValidationSecondsPerStep: over, ValidationSeconds: valSec, Margin: PlanMargin}
+	if prev, err := ReadPlan(s.d.Path()); err == nil && s.replanning {
+		p.Replans, p.PreviousSteps = prev.Replans+1, old
+	}
+	if err := s.d.writePlan(p); err != nil {
+		s.warn("%s", oneLine(err.Error()))
+	}
+	end := now.Add(time.Duration(float64(planned-step) * (secPerStep + over) * float64(time.Second)))
+	if s.replanning {
+		s.replanning = false
+		change := "unchanged"
+		if planned != old {
+			change = fmt.Sprintf("moved by %+d steps", planned-old)
+		}
+		s.info("replanned from %.0f tokens/s measured over %d windows: the %s schedule now ends at step %d (was %d, %s), about %s, before the deadline %s",
+			tokPerSec, timed, tc.Schedule, planned, old, change, end.Format("15:04:05"), s.deadline.Format("15:04:05"))
+		return nil
+	}
+	s.planning = false
+	s.info("deadline plan: %.0f tokens/s measured over %d windows; the %s schedule reaches its floor and the run ends at step %d, about %s, keeping %.0f%% of the time left as margin before the deadline %s",
+		tokPerSec, timed, tc.Schedule, planned, end.Format("15:04:05"), PlanMargin*100, s.deadline.Format("15:04:05"))
+	return nil
+}
