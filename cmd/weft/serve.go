@@ -8,7 +8,6 @@ import (
 	"os/signal"
 	"strings"
 	"syscall"
-	"time"
 
 	"github.com/spf13/cobra"
 
@@ -17,18 +16,10 @@ import (
 
 type serveOptions struct {
 	cmdContext
-	Run             string
-	Checkpoint      string
-	Listen          string
-	MaxBodyBytes    int64
-	MaxLineChars    int
-	MaxBatchLines   int
-	MaxSampleTokens int
-	MaxSamples      int
-	MaxStreams      int
-	Workers         int
-	BatchWait       time.Duration
-	DrainTimeout    time.Duration
+	Run        string
+	Checkpoint string
+	Listen     string
+	Limits     serve.Limits // from the flags
 
 	// reloads delivers reload requests (SIGHUP); nil: runServe asks the
 	// system for SIGHUP when the command gets the system's signals.
@@ -83,15 +74,15 @@ stops accepting connections, lets the requests in flight finish (at most
 	f.StringVar(&opts.Run, "run", "", "run directory whose model to serve")
 	f.StringVar(&opts.Checkpoint, "checkpoint", "", `checkpoint: with --run "best" (default), "latest", a step or a file name; else a file`)
 	f.StringVar(&opts.Listen, "listen", "127.0.0.1:8750", "address and port to listen on")
-	f.Int64Var(&opts.MaxBodyBytes, "max-body-bytes", lim.MaxBodyBytes, "largest request body (for /v1/score/lines, largest input line), in bytes")
-	f.IntVar(&opts.MaxLineChars, "max-line-chars", lim.MaxLineChars, "longest line scored, in characters")
-	f.IntVar(&opts.MaxBatchLines, "max-batch-lines", lim.MaxBatchLines, "most lines in one score request")
-	f.IntVar(&opts.MaxSampleTokens, "max-sample-tokens", lim.MaxSampleTokens, "longest sample, in tokens")
-	f.IntVar(&opts.MaxSamples, "max-samples", lim.MaxSamples, "most samples in one request")
-	f.IntVar(&opts.MaxStreams, "max-streams", lim.MaxStreams, "carried streams kept (least recently used dropped)")
-	f.IntVar(&opts.Workers, "workers", lim.Workers, "batches of lines scored at the same time (default: the number of CPUs)")
-	f.DurationVar(&opts.BatchWait, "batch-wait", lim.BatchWait, "how long a batch waits for more lines once it has one (0: no wait)")
-	f.DurationVar(&opts.DrainTimeout, "drain-timeout", lim.DrainTimeout, "longest wait for requests in flight when stopping")
+	f.Int64Var(&opts.Limits.MaxBodyBytes, "max-body-bytes", lim.MaxBodyBytes, "largest request body (for /v1/score/lines, largest input line), in bytes")
+	f.IntVar(&opts.Limits.MaxLineChars, "max-line-chars", lim.MaxLineChars, "longest line scored, in characters")
+	f.IntVar(&opts.Limits.MaxBatchLines, "max-batch-lines", lim.MaxBatchLines, "most lines in one score request")
+	f.IntVar(&opts.Limits.MaxSampleTokens, "max-sample-tokens", lim.MaxSampleTokens, "longest sample, in tokens")
+	f.IntVar(&opts.Limits.MaxSamples, "max-samples", lim.MaxSamples, "most samples in one request")
+	f.IntVar(&opts.Limits.MaxStreams, "max-streams", lim.MaxStreams, "carried streams kept (least recently used dropped)")
+	f.IntVar(&opts.Limits.Workers, "workers", lim.Workers, "batches of lines scored at the same time (default: the number of CPUs)")
+	f.DurationVar(&opts.Limits.BatchWait, "batch-wait", lim.BatchWait, "how long a batch waits for more lines once it has one (0: no wait)")
+	f.DurationVar(&opts.Limits.DrainTimeout, "drain-timeout", lim.DrainTimeout, "longest wait for requests in flight when stopping")
 	return cmd
 }
 
@@ -109,23 +100,20 @@ func runServe(opts *serveOptions) error {
 	if err != nil {
 		return usagef("--listen %q: want HOST:PORT, such as 127.0.0.1:8750", opts.Listen)
 	}
-	for name, v := range map[string]int64{"--max-body-bytes": opts.MaxBodyBytes, "--max-line-chars": int64(opts.MaxLineChars),
-		"--max-batch-lines": int64(opts.MaxBatchLines), "--max-sample-tokens": int64(opts.MaxSampleTokens),
-		"--max-samples": int64(opts.MaxSamples), "--max-streams": int64(opts.MaxStreams), "--workers": int64(opts.Workers)} {
+	for name, v := range map[string]int64{"--max-body-bytes": opts.Limits.MaxBodyBytes, "--max-line-chars": int64(opts.Limits.MaxLineChars),
+		"--max-batch-lines": int64(opts.Limits.MaxBatchLines), "--max-sample-tokens": int64(opts.Limits.MaxSampleTokens),
+		"--max-samples": int64(opts.Limits.MaxSamples), "--max-streams": int64(opts.Limits.MaxStreams), "--workers": int64(opts.Limits.Workers)} {
 		if v < 1 {
 			return usagef("%s must be at least 1, got %d", name, v)
 		}
 	}
-	if opts.BatchWait < 0 || opts.DrainTimeout <= 0 {
+	if opts.Limits.BatchWait < 0 || opts.Limits.DrainTimeout <= 0 {
 		return usagef("--batch-wait must be 0 or more and --drain-timeout more than 0")
 	}
-	wait := opts.BatchWait
-	if wait == 0 {
-		wait = -1 // serve.Limits: negative means no wait
+	lim := opts.Limits
+	if lim.BatchWait == 0 {
+		lim.BatchWait = -1 // serve.Limits: negative means no wait
 	}
-	lim := serve.Limits{MaxBodyBytes: opts.MaxBodyBytes, MaxLineChars: opts.MaxLineChars, MaxBatchLines: opts.MaxBatchLines,
-		MaxSampleTokens: opts.MaxSampleTokens, MaxSamples: opts.MaxSamples, MaxStreams: opts.MaxStreams, Workers: opts.Workers,
-		BatchWait: wait, DrainTimeout: opts.DrainTimeout}
 	s, err := serve.New(load, lim)
 	if err != nil {
 		return err

@@ -24,8 +24,8 @@ func TestServeFlags(t *testing.T) {
 		t.Fatal(err)
 	}
 	// The default address is the loopback one.
-	if got.Run != "r" || got.Listen != "127.0.0.1:8750" || got.MaxLineChars != 80 || got.MaxStreams != 9 ||
-		got.BatchWait != 2*time.Millisecond || got.MaxBatchLines != serve.DefaultLimits().MaxBatchLines {
+	if got.Run != "r" || got.Listen != "127.0.0.1:8750" || got.Limits.MaxLineChars != 80 || got.Limits.MaxStreams != 9 ||
+		got.Limits.BatchWait != 2*time.Millisecond || got.Limits.MaxBatchLines != serve.DefaultLimits().MaxBatchLines {
 		t.Errorf("got %+v", got)
 	}
 }
