@@ -41,7 +41,7 @@ type Summary struct {
 
 // Describe tells the state of the run directory dir from its files, without
 // taking its lock: the outcome of its newest invocation (a training
-// outcome whose process is gone on this host is StateStale), the step and
+// outcome whose holder is gone, see holderAlive, is StateStale), the step and
 // best validation from its metrics log, and its last change. A directory
 // without a run file is not a run directory (an error wrapping
 // os.ErrNotExist).
@@ -64,10 +64,8 @@ func Describe(dir string) (Summary, error) {
 	if lines, err := ReadMetrics(l.Metrics()); err == nil {
 		for _, m := range lines {
 			s.Step = max(s.Step, m.Step)
-			if m.ValBPC != nil && !math.IsNaN(float64(*m.ValBPC)) && (math.IsNaN(float64(s.BestBitsPerChar)) || *m.ValBPC < s.BestBitsPerChar) {
-				s.BestBitsPerChar, s.BestStep = *m.ValBPC, m.Step
-			}
 		}
+		s.BestBitsPerChar, s.BestStep = BestValidation(lines)
 	}
 	o, err := ReadOutcome(dir)
 	switch {
@@ -95,16 +93,11 @@ func Describe(dir string) (Summary, error) {
 }
 
 // holderAlive reports whether the process an outcome names still holds the
-// run: on this host, whether it lives and the lock file names it; on
-// another host it cannot be checked from here and counts as alive.
+// run: the lock file names it and it looks alive (Holder.Alive: its
+// process on this host, a recent heartbeat on another).
 func holderAlive(dir string, o Outcome) bool {
-	host, _ := os.Hostname()
-	if o.Host != host {
-		return true
-	}
-	b, err := os.ReadFile(Layout(dir).Lock())
-	h := parseHolder(b)
-	return err == nil && h != nil && h.PID == o.PID && processAlive(o.PID)
+	h, err := ReadHolder(dir)
+	return err == nil && h != nil && h.Host == o.Host && h.PID == o.PID && h.Alive(time.Now())
 }
 
 // IsRunDir reports whether dir is a run directory: it holds the resolved

@@ -77,6 +77,18 @@ func ReadMetrics(path string) ([]MetricsLine, error) {
 	return out, sc.Err()
 }
 
+// BestValidation returns the lowest validation bits per character of a
+// metrics log's lines and its step; NaN and 0 when none validated.
+func BestValidation(lines []MetricsLine) (best Number, step int64) {
+	best = Number(math.NaN())
+	for _, l := range lines {
+		if l.ValBPC != nil && !math.IsNaN(float64(*l.ValBPC)) && (math.IsNaN(float64(best)) || *l.ValBPC < best) {
+			best, step = *l.ValBPC, l.Step
+		}
+	}
+	return best, step
+}
+
 // metricsLog is a metrics log open for appending.
 type metricsLog struct{ f *os.File }
 

@@ -47,11 +47,7 @@ func (sw *Sweep) Status(p *Plan, now time.Time) ([]RunStatus, error) {
 			if last.WallSeconds > 0 {
 				st.TokensPerSec = runs.Number(float64(last.Tokens) / last.WallSeconds)
 			}
-			for _, l := range lines {
-				if l.ValBPC != nil && !math.IsNaN(float64(*l.ValBPC)) && (math.IsNaN(float64(st.BestBPC)) || *l.ValBPC < st.BestBPC) {
-					st.BestBPC = *l.ValBPC
-				}
-			}
+			st.BestBPC, _ = runs.BestValidation(lines)
 		}
 		if ents, err := checkpoint.List(lay.Checkpoints()); err == nil && len(ents) > 0 {
 			st.State = StatePartial
