@@ -8,7 +8,6 @@ import (
 	"io"
 	"os"
 	"syscall"
-	"time"
 )
 
 // lockDir takes an flock(2) on dir/lock. The kernel releases it when the
@@ -47,7 +46,7 @@ func lockDir(dir string, me Holder) (*DirLock, error) {
 		// and never taken over here (StealStale does that).
 		if prev := parseHolder(b); prev != nil && prev.Host != me.Host {
 			f.Close()
-			return nil, otherHostError(dir, prev, time.Now())
+			return nil, otherHostError(dir, prev, clock())
 		}
 		err = writeHolder(f, me)
 		if err != nil {
