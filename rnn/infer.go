@@ -44,11 +44,50 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 			return fmt.Errorf("LogProbs: token %d at position %d outside the vocabulary 0..%d", tok, i, m.vocab-1)
 		}
 	}
-	n := len(seq)
+	return m.score(ctx, len(seq), func(w []int, off int) error {
+		copy(w, seq[off:])
+		return nil
+	}, func(pos int, lp float64) { dst[pos] = lp })
+}
+
+// A TokenReader gives a sequence of token ids window by window: Read sets
+// dst to the ids from off on. data.Tokens, the prepared splits' form, is
+// one.
+type TokenReader interface {
+	Len() int
+	Read(dst []int, off int)
+}
+
+// LogProbsEach scores the sequence seq gives as LogProbs does, reading it
+// window by window instead of holding it, and calls visit with each
+// position and the natural logarithm of its probability, instead of
+// storing them. With one scoring stream (the default; see SetScoring) the
+// positions come in order; with several, stream after stream within each
+// pass. The numbers are LogProbs's, bit for bit.
+func (m *Model[T]) LogProbsEach(ctx context.Context, seq TokenReader, visit func(pos int, logProb float64)) error {
+	return m.score(ctx, seq.Len(), func(w []int, off int) error {
+		seq.Read(w, off)
+		for i, tok := range w {
+			if tok < 0 || tok >= m.vocab {
+				return fmt.Errorf("LogProbs: token %d at position %d outside the vocabulary 0..%d", tok, off+i, m.vocab-1)
+			}
+		}
+		return nil
+	}, visit)
+}
+
+// score runs LogProbs over n tokens that read gives window by window (it
+// sets w to the ids from off on), handing each position's log-probability
+// to emit.
+func (m *Model[T]) score(ctx context.Context, n int, read func(w []int, off int) error, emit func(pos int, lp float64)) error {
 	if n == 0 {
 		return nil
 	}
-	dst[0] = m.startLogProb(seq[0])
+	var first [1]int
+	if err := read(first[:], 0); err != nil {
+		return err
+	}
+	emit(0, m.startLogProb(first[0]))
 	P := n - 1 // positions 1..n-1 remain
 	if P == 0 {
 		return nil
@@ -66,6 +105,9 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 	B := S
 	w := newWork(m, B, min(scoreChunk, max(L, W)), false)
 	in := make([]int, w.max*B)
+	// win holds each stream's window of the pass: its inputs and, one
+	// further on, its last target.
+	win := make([]int, (w.max+1)*B)
 	var tg []int
 	var lp []float64
 	if w.cls != nil {
@@ -75,11 +117,16 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 	// anything and is reset afterwards.
 	for t0 := 0; t0 < W; t0 += w.max {
 		c := min(w.max, W-t0)
+		for k := 1; k < B; k++ {
+			if err := read(win[k*(w.max+1):k*(w.max+1)+c], k*L-W+t0); err != nil {
+				return err
+			}
+		}
 		for t := 0; t < c; t++ {
 			for k := 0; k < B; k++ {
 				tok := 0
 				if k > 0 {
-					tok = seq[k*L-W+t0+t]
+					tok = win[k*(w.max+1)+t]
 				}
 				in[t*B+k] = tok
 			}
@@ -97,12 +144,24 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 	V := m.vocab
 	for t0 := 0; t0 < L; t0 += w.max {
 		c := min(w.max, L-t0)
+		for k := 0; k < B; k++ {
+			// Stream k's window: seq[kL+t0 .. kL+t0+c], cut at the end.
+			at := k*L + t0
+			got := max(0, min(c+1, n-at))
+			wk := win[k*(w.max+1) : k*(w.max+1)+c+1]
+			if got > 0 {
+				if err := read(wk[:got], at); err != nil {
+					return err
+				}
+			}
+			clear(wk[got:])
+		}
 		for t := 0; t < c; t++ {
 			for k := 0; k < B; k++ {
 				i := k*L + t0 + t
 				tok := 0
 				if i+1 < n {
-					tok = seq[i]
+					tok = win[k*(w.max+1)+t]
 				}
 				in[t*B+k] = tok
 			}
@@ -114,7 +173,7 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 					pos := k*L + t0 + t + 1
 					tg[t*B+k] = -1
 					if pos < n && pos <= (k+1)*L {
-						tg[t*B+k] = seq[pos]
+						tg[t*B+k] = win[k*(w.max+1)+t+1]
 					}
 				}
 			}
@@ -126,9 +185,9 @@ func (m *Model[T]) LogProbs(ctx context.Context, dst []float64, seq []int) error
 				if pos < n && pos <= (k+1)*L {
 					r := t*B + k
 					if w.cls != nil {
-						dst[pos] = lp[r]
+						emit(pos, lp[r])
 					} else {
-						dst[pos] = logSoftmaxAt(w.logits[r*V:(r+1)*V], seq[pos])
+						emit(pos, logSoftmaxAt(w.logits[r*V:(r+1)*V], win[k*(w.max+1)+t+1]))
 					}
 				}
 			}

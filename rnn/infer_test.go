@@ -254,3 +254,62 @@ func TestStreamHypothesesIndependent(t *testing.T) {
 		}
 	}
 }
+
+// windowReader is a TokenReader over a slice that records the longest read.
+type windowReader struct {
+	ids     []int
+	longest int
+}
+
+func (r *windowReader) Len() int { return len(r.ids) }
+func (r *windowReader) Read(dst []int, off int) {
+	r.longest = max(r.longest, len(dst))
+	copy(dst, r.ids[off:off+len(dst)])
+}
+
+// TestLogProbsEachMatchesLogProbs: scoring from windows gives LogProbs's
+// numbers bit for bit, in position order with one stream, and never reads
+// more than a pass's window at once.
+func TestLogProbsEachMatchesLogProbs(t *testing.T) {
+	ctx := context.Background()
+	for _, cell := range []string{"rnn", "lstm"} {
+		m := inferModel(t, cell)
+		seq := randomTokens(300, 9, 11)
+		for _, n := range []int{1, 2, 65, 129, 300} {
+			for _, sw := range [][2]int{{1, 0}, {3, 0}, {4, 9}} {
+				if err := m.SetScoring(sw[0], sw[1]); err != nil {
+					t.Fatal(err)
+				}
+				want := make([]float64, n)
+				if err := m.LogProbs(ctx, want, seq[:n]); err != nil {
+					t.Fatal(err)
+				}
+				r := &windowReader{ids: seq[:n]}
+				got := make([]float64, n)
+				seen, last := 0, -1
+				err := m.LogProbsEach(ctx, r, func(pos int, lp float64) {
+					if sw[0] == 1 && pos != last+1 {
+						t.Fatalf("%s n=%d: position %d after %d", cell, n, pos, last)
+					}
+					last = pos
+					got[pos] = lp
+					seen++
+				})
+				if err != nil {
+					t.Fatal(err)
+				}
+				if seen != n {
+					t.Fatalf("%s n=%d streams=%v: %d positions visited", cell, n, sw, seen)
+				}
+				for i := range want {
+					if math.Float64bits(got[i]) != math.Float64bits(want[i]) {
+						t.Fatalf("%s n=%d streams=%v: position %d: %v, LogProbs %v", cell, n, sw, i, got[i], want[i])
+					}
+				}
+				if r.longest > scoreChunk+1 {
+					t.Errorf("%s n=%d: a read of %d tokens, more than a pass (%d)", cell, n, r.longest, scoreChunk+1)
+				}
+			}
+		}
+	}
+}
