@@ -80,28 +80,48 @@ type Result struct {
 // The interval and difference fields are NaN until Bootstrap results are
 // set; the row is Comparable until SetUnknown says otherwise.
 func NewResult(model, kind, split string, logp []float64, characters int) Result {
-	var nats float64
-	zeros := 0
+	var t Tally
 	for _, lp := range logp {
-		if math.IsInf(lp, -1) {
-			zeros++
-		}
-		nats -= lp
+		t.Add(lp)
 	}
+	return t.Result(model, kind, split, characters)
+}
+
+// A Tally sums natural-log probabilities one at a time, in the order they
+// come, as NewResult sums a slice of them: a scorer that streams a held-out
+// split through a Tally gets NewResult's numbers without holding them.
+type Tally struct {
+	nats   float64
+	tokens int
+	zeros  int
+}
+
+// Add counts one token's natural-log probability.
+func (t *Tally) Add(lp float64) {
+	if math.IsInf(lp, -1) {
+		t.zeros++
+	}
+	t.nats -= lp
+	t.tokens++
+}
+
+// Result is NewResult over the tokens added so far.
+func (t *Tally) Result(model, kind, split string, characters int) Result {
+	nats := t.nats
 	bits := nats / math.Ln2
 	nan := math.NaN()
 	r := Result{
 		Model: model, Kind: kind, Split: split,
-		Tokens: len(logp), Characters: characters,
+		Tokens: t.tokens, Characters: characters,
 		CrossEntropyNats: nats, CrossEntropyBits: bits,
-		BitsPerToken: bits / float64(len(logp)),
+		BitsPerToken: bits / float64(t.tokens),
 		BitsPerChar:  bits / float64(characters),
 		CILow:        nan, CIHigh: nan,
 		DiffBitsPerChar: nan, DiffCILow: nan, DiffCIHigh: nan,
-		ZeroProbTokens: zeros,
+		ZeroProbTokens: t.zeros,
 		Comparable:     true,
 	}
-	r.Perplexity = math.Exp(nats / float64(len(logp)))
+	r.Perplexity = math.Exp(nats / float64(t.tokens))
 	return r
 }
 
