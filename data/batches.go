@@ -36,16 +36,18 @@ type BatchOptions struct {
 // the others. Next returns io.EOF once at the end of each epoch; the call
 // after that starts the next epoch from the start of the streams.
 type Batches struct {
-	tokens []int
+	tokens *Tokens
+	window []int // one stream's window, read from tokens
 	opts   BatchOptions
 	l      int // inputs per stream
 	cur    Cursor
 }
 
-// NewBatches lays tokens out as opts describes. It returns an error
+// NewBatches lays tokens out as opts describes; each window reads its
+// ids from tokens, so a split viewed in the token cache is never copied. It returns an error
 // wrapping ErrTooSmall when the tokens do not fill one window of B streams
 // of T steps (N ≥ B·T+1).
-func NewBatches(tokens []int, opts BatchOptions) (*Batches, error) {
+func NewBatches(tokens *Tokens, opts BatchOptions) (*Batches, error) {
 	switch {
 	case opts.Streams < 1:
 		return nil, fmt.Errorf("batches: streams must be at least 1, got %d", opts.Streams)
@@ -55,15 +57,15 @@ func NewBatches(tokens []int, opts BatchOptions) (*Batches, error) {
 		return nil, fmt.Errorf("batches: variation must be from 0 to below 1, got %v", opts.Variation)
 	}
 	l := 0
-	if len(tokens) > 0 {
-		l = (len(tokens) - 1) / opts.Streams
+	if tokens.Len() > 0 {
+		l = (tokens.Len() - 1) / opts.Streams
 	}
 	if l < opts.Steps {
 		return nil, fmt.Errorf("training split: %w: %d tokens for %d streams of %d steps (need at least %d)",
-			ErrTooSmall, len(tokens), opts.Streams, opts.Steps, opts.Streams*opts.Steps+1)
+			ErrTooSmall, tokens.Len(), opts.Streams, opts.Steps, opts.Streams*opts.Steps+1)
 	}
 	b := &Batches{tokens: tokens, opts: opts, l: l}
-	b.cur = Cursor{Tokens: len(tokens), Streams: opts.Streams, Steps: opts.Steps}
+	b.cur = Cursor{Tokens: tokens.Len(), Streams: opts.Streams, Steps: opts.Steps}
 	return b, nil
 }
 
@@ -99,11 +101,15 @@ func (b *Batches) Next(ctx context.Context) (Batch, error) {
 	t := min(b.windowLen(c.Epoch, c.Window), b.l-c.Step)
 	nb := b.opts.Streams
 	bt := Batch{B: nb, T: t, Inputs: make([]int, nb*t), Targets: make([]int, nb*t)}
+	if cap(b.window) < t+1 {
+		b.window = make([]int, t+1)
+	}
+	w := b.window[:t+1]
 	for s := 0; s < nb; s++ {
-		base := s*b.l + c.Step
+		b.tokens.Read(w, s*b.l+c.Step)
 		for i := 0; i < t; i++ {
-			bt.Inputs[i*nb+s] = b.tokens[base+i]
-			bt.Targets[i*nb+s] = b.tokens[base+i+1]
+			bt.Inputs[i*nb+s] = w[i]
+			bt.Targets[i*nb+s] = w[i+1]
 		}
 	}
 	c.Window++
@@ -119,9 +125,9 @@ func (b *Batches) Cursor() Cursor { return b.cur }
 // Batches over as many tokens with the same streams, steps, variation and
 // seed.
 func (b *Batches) SetCursor(c Cursor) error {
-	if c.Tokens != len(b.tokens) || c.Streams != b.opts.Streams || c.Steps != b.opts.Steps {
+	if c.Tokens != b.tokens.Len() || c.Streams != b.opts.Streams || c.Steps != b.opts.Steps {
 		return fmt.Errorf("batch cursor is for %d tokens in %d streams of %d steps, not %d tokens in %d streams of %d steps",
-			c.Tokens, c.Streams, c.Steps, len(b.tokens), b.opts.Streams, b.opts.Steps)
+			c.Tokens, c.Streams, c.Steps, b.tokens.Len(), b.opts.Streams, b.opts.Steps)
 	}
 	if c.Epoch < 0 || c.Window < 0 || c.Step < 0 || c.Step > b.l {
 		return fmt.Errorf("batch cursor out of range: epoch %d, window %d, step %d of %d", c.Epoch, c.Window, c.Step, b.l)

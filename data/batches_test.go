@@ -22,7 +22,7 @@ func seq(n int) []int {
 // 0..10 (targets 1..11), stream 1 is 11..21 (targets 12..22). With T=4 the
 // windows start at steps 0, 4, 8, the last one 3 steps long.
 func TestBatchLayout(t *testing.T) {
-	b, err := NewBatches(seq(23), BatchOptions{Streams: 2, Steps: 4})
+	b, err := NewBatches(NewTokens(seq(23)), BatchOptions{Streams: 2, Steps: 4})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -53,15 +53,15 @@ func TestBatchLayout(t *testing.T) {
 
 func TestBatchTooSmall(t *testing.T) {
 	// B·T+1 = 9 tokens fill one window; 8 do not.
-	if _, err := NewBatches(seq(9), BatchOptions{Streams: 2, Steps: 4}); err != nil {
+	if _, err := NewBatches(NewTokens(seq(9)), BatchOptions{Streams: 2, Steps: 4}); err != nil {
 		t.Errorf("9 tokens: %v", err)
 	}
-	_, err := NewBatches(seq(8), BatchOptions{Streams: 2, Steps: 4})
+	_, err := NewBatches(NewTokens(seq(8)), BatchOptions{Streams: 2, Steps: 4})
 	if !errors.Is(err, ErrTooSmall) {
 		t.Errorf("8 tokens: got %v, want ErrTooSmall", err)
 	}
 	for _, o := range []BatchOptions{{Streams: 0, Steps: 1}, {Streams: 1, Steps: 0}, {Streams: 1, Steps: 1, Variation: 1}} {
-		if _, err := NewBatches(seq(100), o); err == nil {
+		if _, err := NewBatches(NewTokens(seq(100)), o); err == nil {
 			t.Errorf("%+v: no error", o)
 		}
 	}
@@ -69,7 +69,7 @@ func TestBatchTooSmall(t *testing.T) {
 
 func TestBatchVariation(t *testing.T) {
 	opts := BatchOptions{Streams: 3, Steps: 20, Variation: 0.5, Seed: 9}
-	b, err := NewBatches(seq(5000), opts)
+	b, err := NewBatches(NewTokens(seq(5000)), opts)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -101,7 +101,7 @@ func TestCursorRoundTrip(t *testing.T) {
 	ctx := context.Background()
 	tokens := seq(3001)
 	opts := BatchOptions{Streams: 4, Steps: 16, Variation: 0.3, Seed: 5}
-	a, _ := NewBatches(tokens, opts)
+	a, _ := NewBatches(NewTokens(tokens), opts)
 	for i := 0; i < 60; i++ { // crosses an epoch end (L = 750, about 55 windows)
 		if _, err := a.Next(ctx); err != nil && err != io.EOF {
 			t.Fatal(err)
@@ -123,7 +123,7 @@ func TestCursorRoundTrip(t *testing.T) {
 	if fromBin != cur || fromJSON != cur {
 		t.Fatalf("cursor %+v came back as %+v and %+v", cur, fromBin, fromJSON)
 	}
-	b, _ := NewBatches(tokens, opts)
+	b, _ := NewBatches(NewTokens(tokens), opts)
 	if err := b.SetCursor(fromBin); err != nil {
 		t.Fatal(err)
 	}
@@ -139,7 +139,7 @@ func TestCursorRoundTrip(t *testing.T) {
 	}
 
 	// A cursor from another shape or seed is refused.
-	other, _ := NewBatches(tokens, BatchOptions{Streams: 4, Steps: 16, Variation: 0.3, Seed: 6})
+	other, _ := NewBatches(NewTokens(tokens), BatchOptions{Streams: 4, Steps: 16, Variation: 0.3, Seed: 6})
 	c := cur
 	c.Window = 7
 	c.Step = 7 * 16

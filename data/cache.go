@@ -1,12 +1,15 @@
 package data
 
 import (
+	"bufio"
+	"bytes"
 	"crypto/sha256"
 	"encoding/binary"
 	"encoding/json"
 	"errors"
 	"fmt"
 	"hash/crc32"
+	"io"
 	"io/fs"
 	"os"
 	"path/filepath"
@@ -76,55 +79,92 @@ type splitMeta struct {
 	Offset     int64 `json:"offset"`
 }
 
-// encodeCache serializes ds in the cache format.
-func encodeCache(key [32]byte, ds *Dataset) ([]byte, error) {
+// cacheWidth is the bytes of one token id in the cache: 2 up to 65,536
+// vocabulary entries, 4 above.
+func cacheWidth(vocab int) int {
+	if vocab > 1<<16 {
+		return 4
+	}
+	return 2
+}
+
+// crcWriter passes writes on and keeps the running CRC-32C of them.
+type crcWriter struct {
+	w   io.Writer
+	crc uint32
+}
+
+func (c *crcWriter) Write(p []byte) (int, error) {
+	n, err := c.w.Write(p)
+	c.crc = crc32.Update(c.crc, castagnoli, p[:n])
+	return n, err
+}
+
+// writeCacheTo writes ds in the cache format to w, streaming: the token
+// ids of each split come from its Tokens window by window, and the
+// checksum is taken as the bytes go out.
+func writeCacheTo(w io.Writer, key [32]byte, ds *Dataset) error {
 	meta := cacheMeta{Vocab: ds.Vocab, Input: ds.Input, Report: ds.Report}
 	for i, s := range ds.Splits() {
 		meta.Splits[i] = splitMeta{s.Characters, s.Lines, s.OOV, s.Offset}
 	}
 	mb, err := json.Marshal(meta)
 	if err != nil {
-		return nil, err
+		return err
 	}
-	width := 2
-	if ds.Vocab.Len() > 1<<16 {
-		width = 4
-	}
-	size := cacheFixed + len(mb) + 4
-	for _, s := range ds.Splits() {
-		size += 16 + width*len(s.Tokens) + 12*len(s.odd)
-	}
-	b := make([]byte, 0, size)
+	width := cacheWidth(ds.Vocab.Len())
+	cw := &crcWriter{w: w}
+	out := bufio.NewWriterSize(cw, 1<<20)
+	b := make([]byte, 0, cacheFixed)
 	b = append(b, cacheMagic...)
 	b = binary.LittleEndian.AppendUint32(b, cacheVersion)
 	b = append(b, key[:]...)
 	b = binary.LittleEndian.AppendUint32(b, uint32(width))
 	b = binary.LittleEndian.AppendUint64(b, uint64(len(mb)))
-	b = append(b, mb...)
+	out.Write(b)
+	out.Write(mb)
+	var num [12]byte
+	pack := make([]byte, 0, width*tokenReadChunk)
 	for _, s := range ds.Splits() {
-		b = binary.LittleEndian.AppendUint64(b, uint64(len(s.Tokens)))
-		for _, id := range s.Tokens {
-			if width == 2 {
-				b = binary.LittleEndian.AppendUint16(b, uint16(id))
-			} else {
-				b = binary.LittleEndian.AppendUint32(b, uint32(id))
+		out.Write(binary.LittleEndian.AppendUint64(num[:0], uint64(s.Tokens.Len())))
+		s.Tokens.Each(tokenReadChunk, func(_ int, ids []int) error {
+			pack = pack[:0]
+			for _, id := range ids {
+				if width == 2 {
+					pack = binary.LittleEndian.AppendUint16(pack, uint16(id))
+				} else {
+					pack = binary.LittleEndian.AppendUint32(pack, uint32(id))
+				}
 			}
-		}
-		b = binary.LittleEndian.AppendUint64(b, uint64(len(s.odd)))
+			out.Write(pack)
+			return nil
+		})
+		out.Write(binary.LittleEndian.AppendUint64(num[:0], uint64(len(s.odd))))
 		for _, o := range s.odd {
-			b = binary.LittleEndian.AppendUint64(b, uint64(o.Pos))
-			b = binary.LittleEndian.AppendUint32(b, uint32(o.Chars))
+			r := binary.LittleEndian.AppendUint64(num[:0], uint64(o.Pos))
+			out.Write(binary.LittleEndian.AppendUint32(r, uint32(o.Chars)))
 		}
 	}
-	return binary.LittleEndian.AppendUint32(b, crc32.Checksum(b, castagnoli)), nil
+	// The writer keeps its first error; Flush returns it.
+	if err := out.Flush(); err != nil {
+		return err
+	}
+	_, err = w.Write(binary.LittleEndian.AppendUint32(num[:0], cw.crc))
+	return err
+}
+
+// encodeCache serializes ds in the cache format, in memory.
+func encodeCache(key [32]byte, ds *Dataset) ([]byte, error) {
+	var buf bytes.Buffer
+	if err := writeCacheTo(&buf, key, ds); err != nil {
+		return nil, err
+	}
+	return buf.Bytes(), nil
 }
 
 func writeCache(path string, key [32]byte, ds *Dataset) error {
-	b, err := encodeCache(key, ds)
+	err := atomicfile.Write(path, func(w io.Writer) error { return writeCacheTo(w, key, ds) })
 	if err != nil {
-		return fmt.Errorf("token cache %q: %w", path, err)
-	}
-	if err := atomicfile.WriteBytes(path, b); err != nil {
 		return fmt.Errorf("token cache %q: %w", path, err)
 	}
 	return nil
@@ -133,110 +173,185 @@ func writeCache(path string, key [32]byte, ds *Dataset) error {
 // errStale is a cache made for other inputs or settings.
 var errStale = errors.New("stale")
 
-// readCache loads the cache at path. A missing or stale cache gives an
-// error that is not ErrCorrupt; damaged bytes give one wrapping ErrCorrupt.
+// readCache opens the cache at path: it checks every byte (the checksum,
+// the layout, each id against the vocabulary) in one streaming pass, then
+// maps the file so that the splits' Tokens view it. A missing or stale
+// cache gives an error that is not ErrCorrupt; damaged bytes give one
+// wrapping ErrCorrupt.
 func readCache(path string, key [32]byte) (*Dataset, error) {
-	b, err := os.ReadFile(path)
+	f, err := os.Open(path)
 	if err != nil {
 		if errors.Is(err, fs.ErrNotExist) {
 			return nil, err
 		}
 		return nil, fmt.Errorf("token cache %q: %w: %v", path, ErrCorrupt, err)
 	}
-	ds, gotKey, err := decodeCache(b)
+	ds, gotKey, lay, err := scanCache(bufio.NewReaderSize(f, 1<<20), true)
 	if err != nil {
+		f.Close()
+		if errors.Is(err, errStale) {
+			return nil, err
+		}
 		return nil, fmt.Errorf("token cache %q: %w", path, err)
 	}
 	if gotKey != key {
+		f.Close()
 		return nil, errStale
+	}
+	if err := lay.attach(ds, f, path); err != nil {
+		f.Close()
+		return nil, fmt.Errorf("token cache %q: %w", path, err)
 	}
 	return ds, nil
 }
 
-// decodeCache checks and parses cache bytes; every failure wraps ErrCorrupt.
-func decodeCache(b []byte) (*Dataset, [32]byte, error) {
+// cacheLayout is where each split's packed ids lie in a cache file.
+type cacheLayout struct {
+	width int
+	size  int64    // bytes of the whole file
+	at    [3]int64 // offset of each split's first id
+	n     [3]int   // ids of each split
+}
+
+// countingReader counts and checksums the bytes read through it.
+type countingReader struct {
+	r   io.Reader
+	n   int64
+	crc uint32
+}
+
+func (c *countingReader) Read(p []byte) (int, error) {
+	n, err := c.r.Read(p)
+	c.n += int64(n)
+	c.crc = crc32.Update(c.crc, castagnoli, p[:n])
+	return n, err
+}
+
+// scanCache reads cache bytes from r in one pass and checks them: the
+// layout, each id against the vocabulary (when checkIDs) and the
+// checksum. It returns the dataset without its splits' Tokens, the key
+// and where the ids lie. Every failure wraps ErrCorrupt.
+func scanCache(r io.Reader, checkIDs bool) (*Dataset, [32]byte, cacheLayout, error) {
 	var key [32]byte
-	bad := func(format string, args ...any) (*Dataset, [32]byte, error) {
-		return nil, key, fmt.Errorf("%w: %s", ErrCorrupt, fmt.Sprintf(format, args...))
+	var lay cacheLayout
+	bad := func(format string, args ...any) (*Dataset, [32]byte, cacheLayout, error) {
+		return nil, key, lay, fmt.Errorf("%w: %s", ErrCorrupt, fmt.Sprintf(format, args...))
 	}
-	if len(b) < cacheFixed+4 {
-		return bad("%d bytes, shorter than the header", len(b))
+	cr := &countingReader{r: r}
+	full := func(p []byte) bool {
+		_, err := io.ReadFull(cr, p)
+		return err == nil
 	}
-	body, sum := b[:len(b)-4], binary.LittleEndian.Uint32(b[len(b)-4:])
-	if crc32.Checksum(body, castagnoli) != sum {
-		return bad("checksum mismatch")
+	head := make([]byte, cacheFixed)
+	if !full(head) {
+		return bad("%d bytes, shorter than the header", cr.n)
 	}
-	if string(body[:8]) != cacheMagic {
-		return bad("not a token cache (magic %q)", body[:8])
+	if string(head[:8]) != cacheMagic {
+		return bad("not a token cache (magic %q)", head[:8])
 	}
-	if v := binary.LittleEndian.Uint32(body[8:]); v != cacheVersion {
+	if v := binary.LittleEndian.Uint32(head[8:]); v != cacheVersion {
 		return bad("format version %d, want %d", v, cacheVersion)
 	}
-	copy(key[:], body[12:44])
-	width := int(binary.LittleEndian.Uint32(body[44:]))
+	copy(key[:], head[12:44])
+	width := int(binary.LittleEndian.Uint32(head[44:]))
 	if width != 2 && width != 4 {
 		return bad("token width %d", width)
 	}
-	mlen := binary.LittleEndian.Uint64(body[48:])
-	rest := body[cacheFixed:]
-	if mlen > uint64(len(rest)) {
+	lay.width = width
+	mlen := binary.LittleEndian.Uint64(head[48:])
+	if mlen > 1<<30 {
+		return bad("metadata length %d", mlen)
+	}
+	mb := make([]byte, mlen)
+	if !full(mb) {
 		return bad("metadata length %d past the end", mlen)
 	}
 	var meta cacheMeta
-	if err := json.Unmarshal(rest[:mlen], &meta); err != nil || meta.Vocab == nil {
+	if err := json.Unmarshal(mb, &meta); err != nil || meta.Vocab == nil {
 		return bad("metadata: %v", err)
 	}
-	rest = rest[mlen:]
 	v := meta.Vocab
 	ds := &Dataset{Vocab: v, Input: meta.Input, Report: meta.Report}
 	var splits [3]*Split
+	var num [12]byte
+	buf := make([]byte, width*tokenReadChunk)
 	for i, name := range []string{SplitTrain, SplitValidation, SplitTest} {
 		m := meta.Splits[i]
 		s := &Split{Name: name, vocab: v, Characters: m.Characters, Lines: m.Lines, OOV: m.OOV, Offset: m.Offset}
-		if len(rest) < 8 {
+		if !full(num[:8]) {
 			return bad("%s split truncated", name)
 		}
-		n := binary.LittleEndian.Uint64(rest)
-		rest = rest[8:]
-		if n > uint64(len(rest)/width) {
+		n := binary.LittleEndian.Uint64(num[:])
+		if n > 1<<48 {
 			return bad("%s split: %d tokens past the end", name, n)
 		}
-		s.Tokens = make([]int, n)
-		for j := range s.Tokens {
-			var id int
-			if width == 2 {
-				id = int(binary.LittleEndian.Uint16(rest[j*2:]))
-			} else {
-				id = int(binary.LittleEndian.Uint32(rest[j*4:]))
+		lay.at[i], lay.n[i] = cr.n, int(n)
+		for j := uint64(0); j < n; {
+			k := min(n-j, tokenReadChunk)
+			p := buf[:int(k)*width]
+			if !full(p) {
+				return bad("%s split: %d tokens past the end", name, n)
 			}
-			if id >= v.Len() {
-				return bad("%s split: token %d has id %d outside the vocabulary of %d", name, j, id, v.Len())
+			if checkIDs {
+				for q := 0; q < int(k); q++ {
+					var id int
+					if width == 2 {
+						id = int(binary.LittleEndian.Uint16(p[q*2:]))
+					} else {
+						id = int(binary.LittleEndian.Uint32(p[q*4:]))
+					}
+					if id >= v.Len() {
+						return bad("%s split: token %d has id %d outside the vocabulary of %d", name, j+uint64(q), id, v.Len())
+					}
+				}
 			}
-			s.Tokens[j] = id
+			j += k
 		}
-		rest = rest[int(n)*width:]
-		if len(rest) < 8 {
+		if !full(num[:8]) {
 			return bad("%s split truncated", name)
 		}
-		k := binary.LittleEndian.Uint64(rest)
-		rest = rest[8:]
-		if k > uint64(len(rest)/12) {
+		k := binary.LittleEndian.Uint64(num[:])
+		if k > n {
 			return bad("%s split: %d character records past the end", name, k)
 		}
-		s.odd = make([]oddChars, k)
-		for j := range s.odd {
-			pos := binary.LittleEndian.Uint64(rest[j*12:])
-			if pos >= n {
+		s.odd = make([]oddChars, 0, min(k, 1<<20))
+		for j := uint64(0); j < k; j++ {
+			if !full(num[:12]) {
+				return bad("%s split: %d character records past the end", name, k)
+			}
+			pos := binary.LittleEndian.Uint64(num[:])
+			if pos >= n || (j > 0 && int64(pos) <= s.odd[j-1].Pos) {
 				return bad("%s split: character record at token %d of %d", name, pos, n)
 			}
-			s.odd[j] = oddChars{int64(pos), int32(binary.LittleEndian.Uint32(rest[j*12+8:]))}
+			s.odd = append(s.odd, oddChars{int64(pos), int32(binary.LittleEndian.Uint32(num[8:]))})
 		}
-		rest = rest[k*12:]
 		splits[i] = s
 	}
-	if len(rest) != 0 {
-		return bad("%d trailing bytes", len(rest))
+	sum := cr.crc
+	if !full(num[:4]) {
+		return bad("checksum missing")
 	}
+	if binary.LittleEndian.Uint32(num[:]) != sum {
+		return bad("checksum mismatch")
+	}
+	var one [1]byte
+	if k, _ := io.ReadFull(cr, one[:]); k != 0 {
+		return bad("trailing bytes")
+	}
+	lay.size = cr.n
 	ds.Train, ds.Validation, ds.Test = splits[0], splits[1], splits[2]
+	return ds, key, lay, nil
+}
+
+// decodeCache checks and parses cache bytes held in memory; the splits'
+// Tokens view b. Every failure wraps ErrCorrupt.
+func decodeCache(b []byte) (*Dataset, [32]byte, error) {
+	ds, key, lay, err := scanCache(bytes.NewReader(b), true)
+	if err != nil {
+		return nil, key, err
+	}
+	for i, s := range ds.Splits() {
+		s.Tokens = packedTokens(b[lay.at[i]:], lay.width, lay.n[i])
+	}
 	return ds, key, nil
 }

@@ -28,7 +28,7 @@ func ExampleVocab() {
 
 func ExampleBatches() {
 	tokens := []int{0, 1, 2, 3, 4, 5, 6, 7, 8, 9, 10, 11, 12}
-	b, err := data.NewBatches(tokens, data.BatchOptions{Streams: 2, Steps: 3})
+	b, err := data.NewBatches(data.NewTokens(tokens), data.BatchOptions{Streams: 2, Steps: 3})
 	if err != nil {
 		fmt.Println(err)
 		return

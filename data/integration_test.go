@@ -45,7 +45,7 @@ func TestDemoCorpus(t *testing.T) {
 			continue // not in the test split
 		}
 		// The demo text is ASCII: rune offsets are byte offsets.
-		if got, want := ds.Vocab.Piece(ds.Test.Tokens[i]), text[m.Offset:m.Offset+1]; got != want {
+		if got, want := ds.Vocab.Piece(ds.Test.Tokens.At(i)), text[m.Offset:m.Offset+1]; got != want {
 			t.Fatalf("mark at %d: token %q, text %q", m.Offset, got, want)
 		}
 		checked++
@@ -108,7 +108,7 @@ func TestDocumentSplit(t *testing.T) {
 		var out [3]string
 		var lines, chars int64
 		for i, s := range ds.Splits() {
-			out[i] = ds.Vocab.Decode(s.Tokens)
+			out[i] = ds.Vocab.Decode(s.Tokens.Ints())
 			lines += s.Lines
 			chars += s.Characters
 		}

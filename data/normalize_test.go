@@ -106,7 +106,7 @@ func FuzzDecodeCache(f *testing.F) {
 	v := vocabFor(f, "seed text for the cache\n", VocabOptions{Tokenizer: "word"})
 	ds := &Dataset{Vocab: v}
 	for i, name := range []string{SplitTrain, SplitValidation, SplitTest} {
-		s := &Split{Name: name, vocab: v, Tokens: v.Encode(nil, "seed text\n"), Offset: -1}
+		s := &Split{Name: name, vocab: v, Tokens: NewTokens(v.Encode(nil, "seed text\n")), Offset: -1}
 		if i == 0 {
 			s.odd = []oddChars{{1, 3}}
 		}

@@ -1,6 +1,7 @@
 package data
 
 import (
+	"bufio"
 	"context"
 	"crypto/sha256"
 	"errors"
@@ -54,6 +55,20 @@ type Dataset struct {
 	Report                  Report
 	Input                   InputStats
 	Cache                   CacheInfo
+
+	closer *mapping // the token cache the splits view, if any
+}
+
+// Close releases the token cache file the splits view (a dataset read
+// from the cache maps it); the splits' Tokens must not be used after it.
+// It is safe to call on any dataset, more than once.
+func (d *Dataset) Close() error {
+	if d.closer == nil {
+		return nil
+	}
+	m := d.closer
+	d.closer = nil
+	return m.close()
 }
 
 // Splits returns the training, validation and test splits in that order.
@@ -115,18 +130,52 @@ func PrepareEnv(ctx context.Context, cfg Config, env Env) (*Dataset, error) {
 			info.Damaged = err
 		}
 	}
-	ds, err := buildDataset(ctx, cfg, srcs)
-	if err != nil {
-		return nil, err
-	}
-	ds.Cache = info
+	spool := ""
 	if env.CacheDir != "" {
 		if err := os.MkdirAll(env.CacheDir, 0o755); err != nil {
 			return nil, fmt.Errorf("token cache: %w", err)
 		}
-		if err := writeCache(info.Path, key, ds); err != nil {
-			return nil, err
+		spool = env.CacheDir
+	}
+	ds, sinks, err := buildDataset(ctx, cfg, srcs, spool)
+	defer func() {
+		for _, k := range sinks {
+			k.remove()
 		}
+	}()
+	if err != nil {
+		return nil, err
+	}
+	ds.Cache = info
+	if env.CacheDir == "" {
+		return ds, nil
+	}
+	if err := writeCache(info.Path, key, ds); err != nil {
+		return nil, err
+	}
+	// The splits now view the cache just written, not the spool files.
+	cached, err := openWritten(info.Path)
+	if err != nil {
+		return nil, err
+	}
+	cached.Cache = info
+	return cached, nil
+}
+
+// openWritten opens a cache this process has just written: its checksum
+// is checked, its ids are not read again.
+func openWritten(path string) (*Dataset, error) {
+	f, err := os.Open(path)
+	if err != nil {
+		return nil, fmt.Errorf("token cache %q: %w", path, err)
+	}
+	ds, _, lay, err := scanCache(bufio.NewReaderSize(f, 1<<20), false)
+	if err == nil {
+		err = lay.attach(ds, f, path)
+	}
+	if err != nil {
+		f.Close()
+		return nil, fmt.Errorf("token cache %q: %w", path, err)
 	}
 	return ds, nil
 }
@@ -345,8 +394,11 @@ func (w *walker) run(ctx context.Context) error {
 
 // buildDataset runs the passes: count the characters (for the contiguous cuts),
 // count the training pieces and collect the test lines, learn the
-// vocabulary, then encode the three splits and count the leaked lines.
-func buildDataset(ctx context.Context, cfg Config, srcs []source) (*Dataset, error) {
+// vocabulary, then encode the three splits and count the leaked lines. The
+// encoded ids go to temporary files in spool ("" keeps them in memory);
+// the caller removes the returned sinks when done with the dataset's
+// Tokens.
+func buildDataset(ctx context.Context, cfg Config, srcs []source, spool string) (ds *Dataset, sinks [3]*tokenSink, err error) {
 	kind, _ := parseKind(cfg.Tokenizer)
 	nop := func(int) {}
 	w := &walker{cfg: cfg, srcs: srcs, cut1: math.MaxInt64, cut2: math.MaxInt64,
@@ -354,7 +406,7 @@ func buildDataset(ctx context.Context, cfg Config, srcs []source) (*Dataset, err
 
 	if cfg.Split == "contiguous" {
 		if err := w.run(ctx); err != nil {
-			return nil, err
+			return nil, sinks, err
 		}
 		total := w.chars[iTrain]
 		w.cut1 = int64(math.Round(float64(total) * (1 - cfg.ValidationFraction - cfg.TestFraction)))
@@ -386,13 +438,13 @@ func buildDataset(ctx context.Context, cfg Config, srcs []source) (*Dataset, err
 		}
 	}
 	if err := w.run(ctx); err != nil {
-		return nil, err
+		return nil, sinks, err
 	}
 	if !w.nonSpace {
-		return nil, fmt.Errorf("corpus %s: %w: empty or whitespace only", describeSources(srcs), ErrEmpty)
+		return nil, sinks, fmt.Errorf("corpus %s: %w: empty or whitespace only", describeSources(srcs), ErrEmpty)
 	}
 	if w.chars[iTrain] == 0 {
-		return nil, fmt.Errorf("corpus %s: %w in the training split", describeSources(srcs), ErrEmpty)
+		return nil, sinks, fmt.Errorf("corpus %s: %w in the training split", describeSources(srcs), ErrEmpty)
 	}
 	v := buildVocab(kind, c.counts(), cfg.vocabOptions())
 	if cfg.Boundary == "document" {
@@ -400,11 +452,17 @@ func buildDataset(ctx context.Context, cfg Config, srcs []source) (*Dataset, err
 	}
 
 	// Pass 3: encode.
-	ds := &Dataset{Vocab: v}
+	ds = &Dataset{Vocab: v}
 	splits := [3]*Split{}
 	encs := [3]*encoder{}
 	for i, name := range []string{SplitTrain, SplitValidation, SplitTest} {
 		s := &Split{Name: name, vocab: v, Offset: -1}
+		if spool == "" {
+			s.sink = newMemSink(cacheWidth(v.Len()))
+		} else if s.sink, err = newFileSink(spool, cacheWidth(v.Len())); err != nil {
+			return nil, sinks, err
+		}
+		sinks[i] = s.sink
 		splits[i] = s
 		encs[i] = v.newEncoder(s.addToken)
 	}
@@ -428,10 +486,14 @@ func buildDataset(ctx context.Context, cfg Config, srcs []source) (*Dataset, err
 		}
 	}
 	if err := w.run(ctx); err != nil {
-		return nil, err
+		return nil, sinks, err
 	}
 	for i, s := range splits {
 		s.Characters, s.Lines = w.chars[i], w.lines[i]
+		if s.Tokens, err = s.sink.finish(); err != nil {
+			return nil, sinks, err
+		}
+		s.sink = nil
 	}
 	ds.Train, ds.Validation, ds.Test = splits[iTrain], splits[iValidation], splits[iTest]
 	ds.Input = w.stats
@@ -441,17 +503,17 @@ func buildDataset(ctx context.Context, cfg Config, srcs []source) (*Dataset, err
 		frac float64
 		key  string
 	}{{ds.Validation, cfg.ValidationFraction, "data.validation_fraction"}, {ds.Test, cfg.TestFraction, "data.test_fraction"}} {
-		if chk.frac > 0 && len(chk.s.Tokens) == 0 {
-			return nil, fmt.Errorf("corpus %s: %w: the %s split is empty (%s %v of %d characters)",
+		if chk.frac > 0 && chk.s.Tokens.Len() == 0 {
+			return nil, sinks, fmt.Errorf("corpus %s: %w: the %s split is empty (%s %v of %d characters)",
 				describeSources(srcs), ErrTooSmall, chk.s.Name, chk.key, chk.frac, w.chars[0]+w.chars[1]+w.chars[2])
 		}
 	}
-	return ds, nil
+	return ds, sinks, nil
 }
 
 func makeReport(ds *Dataset, leaked int64) Report {
 	sr := func(s *Split) SplitReport {
-		return SplitReport{Characters: s.Characters, Tokens: int64(len(s.Tokens)), Lines: s.Lines, OOVRate: s.OOVRate()}
+		return SplitReport{Characters: s.Characters, Tokens: int64(s.Tokens.Len()), Lines: s.Lines, OOVRate: s.OOVRate()}
 	}
 	return Report{Train: sr(ds.Train), Validation: sr(ds.Validation), Test: sr(ds.Test),
 		VocabularySize: ds.Vocab.Len(), LeakedTestLines: leaked}

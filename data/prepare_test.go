@@ -41,7 +41,7 @@ func prepare(t *testing.T, cfg Config, dir string) (*Dataset, error) {
 	return PrepareEnv(context.Background(), cfg, Env{BaseDir: dir, Stdin: strings.NewReader("")})
 }
 
-func decodeSplit(ds *Dataset, s *Split) string { return ds.Vocab.Decode(s.Tokens) }
+func decodeSplit(ds *Dataset, s *Split) string { return ds.Vocab.Decode(s.Tokens.Ints()) }
 
 // TestBadInput checks that each kind of bad input gives a one-line error
 // naming the file and the problem, or is repaired and counted.
@@ -237,9 +237,9 @@ func TestContiguousSplit(t *testing.T) {
 		chars, lines int64
 		offset       int64
 	}{{ds.Train, 17500, 700, 0}, {ds.Validation, 2500, 100, 17500}, {ds.Test, 5000, 200, 20000}} {
-		if c.s.Characters != c.chars || c.s.Lines != c.lines || c.s.Offset != c.offset || int64(len(c.s.Tokens)) != c.chars {
+		if c.s.Characters != c.chars || c.s.Lines != c.lines || c.s.Offset != c.offset || int64(c.s.Tokens.Len()) != c.chars {
 			t.Errorf("%s: got %d chars, %d lines, offset %d, %d tokens; want %d, %d, %d, %d",
-				c.s.Name, c.s.Characters, c.s.Lines, c.s.Offset, len(c.s.Tokens), c.chars, c.lines, c.offset, c.chars)
+				c.s.Name, c.s.Characters, c.s.Lines, c.s.Offset, c.s.Tokens.Len(), c.chars, c.lines, c.offset, c.chars)
 		}
 		// One token per character: token i starts at character Offset+i.
 		offs, err := c.s.TokenOffsets(nil)
@@ -335,7 +335,7 @@ func TestVocabLimits(t *testing.T) {
 	if got, want := ds.Train.OOV, int64(6); got != want {
 		t.Errorf("got %d unknown tokens, want %d", got, want)
 	}
-	if got, want := ds.Vocab.Decode(ds.Train.Tokens), "the \uFFFD \uFFFD the \uFFFD \uFFFD the \uFFFD\uFFFD"; got != want {
+	if got, want := ds.Vocab.Decode(ds.Train.Tokens.Ints()), "the \uFFFD \uFFFD the \uFFFD \uFFFD the \uFFFD\uFFFD"; got != want {
 		t.Errorf("decoded %q, want %q", got, want)
 	}
 	chars := ds.Train.TokenChars(nil)
@@ -373,13 +373,13 @@ func TestBoundary(t *testing.T) {
 			t.Fatal(err)
 		}
 		var got []string
-		for _, id := range ds.Train.Tokens {
+		for _, id := range ds.Train.Tokens.Ints() {
 			got = append(got, ds.Vocab.Piece(id))
 		}
 		if !reflect.DeepEqual(got, c.want) {
 			t.Errorf("boundary %s: got %q, want %q", c.boundary, got, c.want)
 		}
-		if dec := ds.Vocab.Decode(ds.Train.Tokens); dec != "C4 E4\nG4\nA4 B4\n" {
+		if dec := ds.Vocab.Decode(ds.Train.Tokens.Ints()); dec != "C4 E4\nG4\nA4 B4\n" {
 			t.Errorf("boundary %s: decoded %q", c.boundary, dec)
 		}
 	}
@@ -412,7 +412,7 @@ func TestCache(t *testing.T) {
 	same := func(a, b *Dataset) bool {
 		for i := range a.Splits() {
 			x, y := a.Splits()[i], b.Splits()[i]
-			if !slices.Equal(x.Tokens, y.Tokens) || !slices.Equal(x.TokenChars(nil), y.TokenChars(nil)) ||
+			if !slices.Equal(x.Tokens.Ints(), y.Tokens.Ints()) || !slices.Equal(x.TokenChars(nil), y.TokenChars(nil)) ||
 				x.Characters != y.Characters || x.Lines != y.Lines || x.Offset != y.Offset {
 				return false
 			}

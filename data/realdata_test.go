@@ -110,7 +110,7 @@ func TestMobyDick(t *testing.T) {
 				t.Errorf("got %d characters (tokens sum to %d), %d lines; want %d and %d",
 					tr.Characters, sumChars(tr), tr.Lines, want.runes, want.lines)
 			}
-			dec := ds.Vocab.Decode(tr.Tokens)
+			dec := ds.Vocab.Decode(tr.Tokens.Ints())
 			wantTokens, wantVocab := 0, 0
 			switch tk {
 			case "char":
@@ -122,8 +122,8 @@ func TestMobyDick(t *testing.T) {
 			case "symbols":
 				wantTokens = want.symbols
 			}
-			if wantTokens != 0 && len(tr.Tokens) != wantTokens {
-				t.Errorf("got %d tokens, want %d", len(tr.Tokens), wantTokens)
+			if wantTokens != 0 && tr.Tokens.Len() != wantTokens {
+				t.Errorf("got %d tokens, want %d", tr.Tokens.Len(), wantTokens)
 			}
 			if wantVocab != 0 && ds.Vocab.Len() != wantVocab {
 				t.Errorf("got %d vocabulary entries, want %d", ds.Vocab.Len(), wantVocab)
@@ -142,8 +142,8 @@ func TestMobyDick(t *testing.T) {
 				if n := len(ds.Vocab.Merges()); n != 300 {
 					t.Errorf("learned %d merges, want 300", n)
 				}
-				if len(tr.Tokens) >= want.runes || len(tr.Tokens) <= want.words/2 {
-					t.Errorf("bpe gives %d tokens, want between half the %d words and the %d characters", len(tr.Tokens), want.words, want.runes)
+				if tr.Tokens.Len() >= want.runes || tr.Tokens.Len() <= want.words/2 {
+					t.Errorf("bpe gives %d tokens, want between half the %d words and the %d characters", tr.Tokens.Len(), want.words, want.runes)
 				}
 			}
 		})
@@ -171,7 +171,7 @@ func TestMobyDick(t *testing.T) {
 		if ds.Report.Validation.OOVRate <= 0 || ds.Report.Train.OOVRate != 0 {
 			t.Errorf("word OOV rates: train %v, validation %v; want 0 and above 0", ds.Report.Train.OOVRate, ds.Report.Validation.OOVRate)
 		}
-		got := ds.Vocab.Decode(ds.Train.Tokens) + ds.Vocab.Decode(ds.Validation.Tokens) + ds.Vocab.Decode(ds.Test.Tokens)
+		got := ds.Vocab.Decode(ds.Train.Tokens.Ints()) + ds.Vocab.Decode(ds.Validation.Tokens.Ints()) + ds.Vocab.Decode(ds.Test.Tokens.Ints())
 		// Moby-Dick has no U+FFFD of its own, so each one decoded is an
 		// unknown token of a held-out split.
 		if n := int64(strings.Count(got, "\uFFFD")); n != ds.Validation.OOV+ds.Test.OOV || n == 0 {
@@ -234,15 +234,15 @@ func TestGoSource(t *testing.T) {
 		}
 		// Files are joined as they are; each file ends with "\n", so
 		// lines do not merge across files.
-		if ds.Train.Characters != int64(want.runes) || len(ds.Train.Tokens) != wantTokens || sumChars(ds.Train) != int64(want.runes) {
-			t.Errorf("%s: got %d characters, %d tokens; want %d and %d", tk, ds.Train.Characters, len(ds.Train.Tokens), want.runes, wantTokens)
+		if ds.Train.Characters != int64(want.runes) || ds.Train.Tokens.Len() != wantTokens || sumChars(ds.Train) != int64(want.runes) {
+			t.Errorf("%s: got %d characters, %d tokens; want %d and %d", tk, ds.Train.Characters, ds.Train.Tokens.Len(), want.runes, wantTokens)
 		}
 		if tk == "char" && ds.Vocab.Len() != want.distinctRunes+1 {
 			t.Errorf("char vocabulary of %d, want %d", ds.Vocab.Len(), want.distinctRunes+1)
 		}
-		if ds.Vocab.Decode(ds.Train.Tokens) != strings.ReplaceAll(text, "\r\n", "\n") {
+		if ds.Vocab.Decode(ds.Train.Tokens.Ints()) != strings.ReplaceAll(text, "\r\n", "\n") {
 			t.Errorf("%s: decoding does not give the source back", tk)
 		}
-		t.Logf("%s: %d files, %d characters, %d tokens, vocabulary %d", tk, files, ds.Train.Characters, len(ds.Train.Tokens), ds.Vocab.Len())
+		t.Logf("%s: %d files, %d characters, %d tokens, vocabulary %d", tk, files, ds.Train.Characters, ds.Train.Tokens.Len(), ds.Vocab.Len())
 	}
 }

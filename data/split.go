@@ -14,8 +14,9 @@ type Split struct {
 	Name string // SplitTrain, SplitValidation or SplitTest
 
 	// Tokens is the encoded text of the split, in corpus order: the lines
-	// or documents of a hash split follow one another.
-	Tokens []int
+	// or documents of a hash split follow one another. For a split read
+	// from the token cache it is a view of the cache file, not a copy.
+	Tokens *Tokens
 
 	// Characters counts the runes of normalized text. Bits per character
 	// divide by the sum of TokenChars instead, which is the same number
@@ -30,6 +31,7 @@ type Split struct {
 
 	vocab *Vocab
 	odd   []oddChars // tokens whose character count differs from Vocab.Chars
+	sink  *tokenSink // while Prepare encodes the split
 }
 
 // oddChars records the character count of one token that differs from its
@@ -43,27 +45,51 @@ type oddChars struct {
 // OOVRate returns the share of tokens that are the unknown entry, 0 for an
 // empty split.
 func (s *Split) OOVRate() float64 {
-	if len(s.Tokens) == 0 {
+	if s.Tokens.Len() == 0 {
 		return 0
 	}
-	return float64(s.OOV) / float64(len(s.Tokens))
+	return float64(s.OOV) / float64(s.Tokens.Len())
 }
 
 // TokenChars sets dst[i] to the number of characters of normalized text
-// that token i stands for, and returns dst (grown to len(s.Tokens)). For
+// that token i stands for, and returns dst (grown to s.Tokens.Len()). For
 // every tokenizer but symbols (whose separating whitespace belongs to no
 // token) the counts sum to s.Characters, so bits per character is the sum
-// of the tokens' bits divided by that sum.
+// of the tokens' bits divided by that sum. It costs 8 bytes a token;
+// WindowChars gives the counts of a window.
 func (s *Split) TokenChars(dst []int) []int {
-	if cap(dst) < len(s.Tokens) {
-		dst = make([]int, len(s.Tokens))
+	n := s.Tokens.Len()
+	if cap(dst) < n {
+		dst = make([]int, n)
 	}
-	dst = dst[:len(s.Tokens)]
-	for i, id := range s.Tokens {
-		dst[i] = int(s.vocab.chars[id])
+	dst = dst[:n]
+	s.Tokens.Read(dst, 0)
+	return s.WindowChars(dst, dst, 0)
+}
+
+// WindowChars sets dst[j] to the character count of token off+j, whose id
+// is ids[j] (the tokens Tokens.Read gives for the window), and returns dst.
+// dst may be ids itself.
+func (s *Split) WindowChars(dst, ids []int, off int) []int {
+	dst = dst[:len(ids)]
+	for j, id := range ids {
+		dst[j] = int(s.vocab.chars[id])
 	}
-	for _, o := range s.odd {
-		dst[o.Pos] = int(o.Chars)
+	// The records are in position order: find the window's first.
+	lo, hi := 0, len(s.odd)
+	for lo < hi {
+		m := int(uint(lo+hi) >> 1)
+		if s.odd[m].Pos < int64(off) {
+			lo = m + 1
+		} else {
+			hi = m
+		}
+	}
+	for _, o := range s.odd[lo:] {
+		if o.Pos >= int64(off+len(dst)) {
+			break
+		}
+		dst[o.Pos-int64(off)] = int(o.Chars)
 	}
 	return dst
 }
@@ -73,18 +99,24 @@ func (s *Split) TokenChars(dst []int) []int {
 // whitespace between symbols belongs to no token and is not counted.
 func (s *Split) CountedCharacters() int64 {
 	var n int64
-	for _, c := range s.TokenChars(nil) {
-		n += int64(c)
+	s.Tokens.Each(1<<16, func(_ int, ids []int) error {
+		for _, id := range ids {
+			n += int64(s.vocab.chars[id])
+		}
+		return nil
+	})
+	for _, o := range s.odd {
+		n += int64(o.Chars) - int64(s.vocab.chars[s.Tokens.At(int(o.Pos))])
 	}
 	return n
 }
 
 // Streams lays the split out as n continuous streams for evaluation: the
 // tokens cut into n contiguous runs in order, the first len%n runs one
-// token longer than the others. The runs share the split's backing array.
+// token longer than the others. The runs are copies of the split's ids.
 // A model scores each stream from its start, carrying its state along it.
 func (s *Split) Streams(n int) ([][]int, error) {
-	return EvalStreams(s.Tokens, n)
+	return EvalStreams(s.Tokens.Ints(), n)
 }
 
 // EvalStreams cuts tokens into n contiguous runs as Split.Streams does.
@@ -109,31 +141,32 @@ func EvalStreams(tokens []int, n int) ([][]int, error) {
 	return out, nil
 }
 
-// addToken appends one encoded token.
+// addToken appends one encoded token to the split's sink.
 func (s *Split) addToken(id, chars int) {
 	if id == 0 {
 		s.OOV++
 	}
 	if int32(chars) != s.vocab.chars[id] {
-		s.odd = append(s.odd, oddChars{int64(len(s.Tokens)), int32(chars)})
+		s.odd = append(s.odd, oddChars{s.sink.n, int32(chars)})
 	}
-	s.Tokens = append(s.Tokens, id)
+	s.sink.add(id)
 }
 
 // TokenOffsets sets dst[i] to the rune offset in the corpus of the first
 // character of token i (for a token of no characters, such as the document
 // boundary, the offset of the next character), and returns dst grown to
-// len(s.Tokens). It lets the evaluation look up positions such as the
+// s.Tokens.Len(). It lets the evaluation look up positions such as the
 // demo corpus's marks. Only the contiguous split keeps the corpus order
 // needed; the hash splits give an error.
 func (s *Split) TokenOffsets(dst []int64) ([]int64, error) {
 	if s.Offset < 0 {
 		return nil, fmt.Errorf("%s split: token offsets need data.split = \"contiguous\"", s.Name)
 	}
-	if cap(dst) < len(s.Tokens) {
-		dst = make([]int64, len(s.Tokens))
+	n := s.Tokens.Len()
+	if cap(dst) < n {
+		dst = make([]int64, n)
 	}
-	dst = dst[:len(s.Tokens)]
+	dst = dst[:n]
 	at := s.Offset
 	for i, c := range s.TokenChars(nil) {
 		dst[i] = at

@@ -144,7 +144,7 @@ func TestLongLine(t *testing.T) {
 	}
 	// The "\n" ends the test split and never occurs in training, so it is
 	// unknown; besides it only the word cut by the split's start may be.
-	if ds.Test.OOV < 1 || ds.Test.OOV > 2 || ds.Test.Tokens[len(ds.Test.Tokens)-1] != ds.Vocab.Unknown() {
+	if ds.Test.OOV < 1 || ds.Test.OOV > 2 || ds.Test.Tokens.At(ds.Test.Tokens.Len()-1) != ds.Vocab.Unknown() {
 		t.Errorf("test split has %d unknown tokens, want 1 or 2, the last its newline", ds.Test.OOV)
 	}
 }

@@ -23,7 +23,8 @@ type Tokens struct {
 	width int
 	r     io.ReaderAt // file fallback: packed ids from off
 	off   int64
-	name  string // the file, for the fallback's panics
+	name  string   // the file, for the fallback's panics
+	m     *mapping // the cache file the ids come from, if any
 }
 
 // NewTokens returns the ids as a Tokens. It keeps ids, not a copy.
@@ -74,6 +75,9 @@ func (t *Tokens) Read(dst []int, off int) {
 		return
 	case t.b != nil:
 		decodeIDs(dst, t.b[off*t.width:], t.width)
+		if t.m != nil {
+			t.m.read(len(dst) * t.width)
+		}
 		return
 	}
 	var buf [tokenReadChunk]byte

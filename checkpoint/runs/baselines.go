@@ -36,7 +36,7 @@ type Manifest struct {
 
 // newManifest describes the ladder cfg gives on ds's training split.
 func newManifest(cfg eval.Config, ds *data.Dataset) Manifest {
-	return Manifest{FileHeader: manifestHeader, TrainSHA256: tokensSHA256(ds.Train.Tokens),
+	return Manifest{FileHeader: manifestHeader, TrainSHA256: tokensSHA256(ds.Train.Tokens.Ints()),
 		VocabSize: ds.Vocab.Len(), Boundary: ds.Vocab.Boundary(), Settings: fitSettings(cfg)}
 }
 
@@ -62,7 +62,7 @@ func ReadManifest(dir string) (Manifest, error) {
 // trusted; note, when non-nil, hears why. progress reports the fit's
 // stages.
 func FitBaselines(ctx context.Context, cfg eval.Config, ds *data.Dataset, dir string, progress eval.ProgressFunc, note func(string)) (*eval.Ladder, error) {
-	train := ds.Train.Tokens
+	train := ds.Train.Tokens.Ints()
 	if len(train) == 0 {
 		return nil, errors.New("the training split is empty")
 	}

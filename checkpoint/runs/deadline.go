@@ -83,20 +83,20 @@ func (s *session) plan(timed int, secPerStep, tokPerSec float64) error {
 	now := s.o.Now()
 	step := s.tr.Steps()
 	left := s.deadline.Sub(now)
-	valSec := float64(len(s.ds.Validation.Tokens)) / (3 * tokPerSec)
+	valSec := float64(s.ds.Validation.Tokens.Len()) / (3 * tokPerSec)
 	tokPerStep := tokPerSec * secPerStep
 	var over float64
 	if every := s.r.Evaluation.EverySteps; every > 0 {
 		over += valSec / float64(every)
 	}
-	if train := float64(len(s.ds.Train.Tokens)); tokPerStep > 0 && train > 0 {
+	if train := float64(s.ds.Train.Tokens.Len()); tokPerStep > 0 && train > 0 {
 		over += valSec / (train / tokPerStep) // one validation per epoch
 	}
 	planned := PlanSteps(step, left, secPerStep, over, valSec, PlanMargin)
 
 	// Out of proportion: judged on the tokens this invocation will train.
 	expect := float64(planned-step) * tokPerStep
-	for _, w := range configs.CheckProportion(int64(expect), int64(len(s.ds.Train.Tokens)), int64(s.net.NumParams()), left) {
+	for _, w := range configs.CheckProportion(int64(expect), int64(s.ds.Train.Tokens.Len()), int64(s.net.NumParams()), left) {
 		s.warn("%s", w)
 	}
 	if !s.planning && !s.replanning {

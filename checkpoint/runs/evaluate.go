@@ -138,13 +138,13 @@ func CompareDataset(ctx context.Context, cfg eval.Config, ds *data.Dataset, spli
 	}
 	return eval.Compare(ctx, cfg, eval.CompareInput{
 		Split:         split,
-		Validation:    eval.HeldOut{Tokens: ds.Validation.Tokens, Chars: ds.Validation.TokenChars(nil)},
-		Reported:      eval.HeldOut{Tokens: rep.Tokens, Chars: rep.TokenChars(nil)},
+		Validation:    eval.HeldOut{Tokens: ds.Validation.Tokens.Ints(), Chars: ds.Validation.TokenChars(nil)},
+		Reported:      eval.HeldOut{Tokens: rep.Tokens.Ints(), Chars: rep.TokenChars(nil)},
 		Models:        models,
 		Unknown:       ds.Vocab.Unknown(),
 		Lowercased:    ds.Vocab.Lowercase(),
 		CharacterUnit: characterUnit(ds.Vocab.Kind()),
-		TrainCounts:   eval.TokenCounts(ds.Train.Tokens, ds.Vocab.Len()),
+		TrainCounts:   eval.TokenCounts(ds.Train.Tokens.Ints(), ds.Vocab.Len()),
 		Marks:         marks,
 		Progress:      progress,
 	})
@@ -172,8 +172,8 @@ func ScoreOnValidation(ctx context.Context, ds *data.Dataset, models []eval.Entr
 		if progress != nil {
 			progress(stage, i, len(models))
 		}
-		lp := make([]float64, len(v.Tokens))
-		if err := e.Model.LogProbs(ctx, lp, v.Tokens); err != nil {
+		lp := make([]float64, v.Tokens.Len())
+		if err := e.Model.LogProbs(ctx, lp, v.Tokens.Ints()); err != nil {
 			return nil, fmt.Errorf("score %s: %w", e.Model.Name(), err)
 		}
 		kind := e.Kind

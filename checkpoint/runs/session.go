@@ -126,7 +126,6 @@ type session struct {
 	lastSave       time.Time
 	lastValidation time.Time // of this invocation, or its start
 	lastSavedStep  int64
-	logp           []float64
 	valChars       int64 // characters of the validation split, the bits-per-character denominator
 
 	// Since the last metrics line.
@@ -460,7 +459,7 @@ func (s *session) train() (*Result, error) {
 	s.d.writeOutcome(Outcome{State: StateTraining, Step: tr.Steps(), Time: s.o.Now()})
 	s.obs.Started(Start{
 		ResumedFrom: s.res.ResumedFrom, Step: tr.Steps(), Epochs: s.prog.Epoch,
-		Model: s.net.Name(), Params: int64(s.net.NumParams()), TrainTokens: int64(len(s.ds.Train.Tokens)),
+		Model: s.net.Name(), Params: int64(s.net.NumParams()), TrainTokens: int64(s.ds.Train.Tokens.Len()),
 		Streams: r.Training.BatchSize, UnrollSteps: r.Training.UnrollSteps,
 		Budget: Budget{MaxSteps: r.Training.MaxSteps, MaxEpochs: r.Training.MaxEpochs, MaxTokens: r.Training.MaxTokens, Deadline: s.deadline},
 	})
@@ -707,14 +706,14 @@ func (s *session) validate() error {
 		return nil
 	}
 	v := s.ds.Validation
-	if len(v.Tokens) == 0 {
+	if v.Tokens.Len() == 0 {
 		return nil
 	}
-	if cap(s.logp) < len(v.Tokens) {
-		s.logp = make([]float64, len(v.Tokens))
-	}
-	logp := s.logp[:len(v.Tokens)]
-	if err := s.net.LogProbs(s.ctx, logp, v.Tokens); err != nil {
+	// The model scores with one stream (it is never given SetScoring), so
+	// the positions come in order and the tally sums them as eval.NewResult
+	// sums a slice: the split is read window by window, never held.
+	var tally eval.Tally
+	if err := s.net.LogProbsEach(s.ctx, v.Tokens, func(_ int, lp float64) { tally.Add(lp) }); err != nil {
 		if s.stopped() {
 			s.prog.ValidationDue = true
 			return nil
@@ -726,7 +725,7 @@ func (s *session) validate() error {
 		// cover (for symbols, without the whitespace between them).
 		s.valChars = v.CountedCharacters()
 	}
-	res := eval.NewResult("rnn", "rnn", data.SplitValidation, logp, int(s.valChars))
+	res := tally.Result("rnn", "rnn", data.SplitValidation, int(s.valChars))
 	val := Validation{Step: step, CrossEntropy: res.CrossEntropyNats / float64(res.Tokens), Perplexity: res.Perplexity, BitsPerChar: res.BitsPerChar}
 	s.prog.ValidationDue = false
 	s.prog.LastValidationStep = step

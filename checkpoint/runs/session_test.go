@@ -492,7 +492,7 @@ func TestValidationDenominator(t *testing.T) {
 	if counted >= all {
 		t.Fatalf("counted %d of %d characters: the corpus has no whitespace between symbols", counted, all)
 	}
-	bits := v.CrossEntropy * float64(len(ds.Validation.Tokens)) / math.Ln2
+	bits := v.CrossEntropy * float64(ds.Validation.Tokens.Len()) / math.Ln2
 	if got, want := v.BitsPerChar, bits/float64(counted); math.Abs(got-want) > 1e-12*want {
 		t.Errorf("validation bits per character %v, want %v (bits over the %d counted characters, not the %d of the split)", got, want, counted, all)
 	}

@@ -124,7 +124,7 @@ func runBaselines(opts *baselinesOptions) error {
 		enc.SetIndent("", "  ")
 		return enc.Encode(rows)
 	}
-	fmt.Fprintf(opts.Out, "baselines fitted on %s training tokens; validation split, best first\n\n", thousands(int64(len(ds.Train.Tokens))))
+	fmt.Fprintf(opts.Out, "baselines fitted on %s training tokens; validation split, best first\n\n", thousands(int64(ds.Train.Tokens.Len())))
 	tw := tabwriter.NewWriter(opts.Out, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "model\tkind\tbits/char\tbits/token\tperplexity")
 	for _, res := range rows {

@@ -141,7 +141,7 @@ func runConfigFit(opts *configNewOptions) error {
 	if err != nil {
 		return err
 	}
-	fit, err := configs.Size(configs.FitInput{Budget: opts.Fit, CorpusTokens: int64(len(ds.Train.Tokens)), VocabSize: ds.Vocab.Len(),
+	fit, err := configs.Size(configs.FitInput{Budget: opts.Fit, CorpusTokens: int64(ds.Train.Tokens.Len()), VocabSize: ds.Vocab.Len(),
 		Tokenizer: opts.Tokenizer, Cores: opts.Cores, TokensPerSecond: opts.Speed})
 	if err != nil {
 		return usagef("--fit: %v", err)
@@ -151,7 +151,7 @@ func runConfigFit(opts *configNewOptions) error {
 	}
 	fmt.Fprintf(opts.Err, "sized for %v on %d cores: lstm %d×%d, %s parameters; expected %s tokens/s, %s training tokens, %.1f tokens per parameter, %.1f passes over the %s training tokens\n",
 		opts.Fit, opts.Cores, fit.Layers, fit.Hidden, thousands(fit.Params), thousands(int64(fit.TokensPerSecond)), thousands(fit.ExpectedTokens),
-		fit.TokensPerParam, fit.Epochs, thousands(int64(len(ds.Train.Tokens))))
+		fit.TokensPerParam, fit.Epochs, thousands(int64(ds.Train.Tokens.Len())))
 	return nil
 }
 

@@ -214,7 +214,7 @@ func TestDemoMarksPlaceCharacters(t *testing.T) {
 			continue
 		}
 		n++
-		c := ds.Vocab.Piece(ds.Test.Tokens[i])
+		c := ds.Vocab.Piece(ds.Test.Tokens.At(i))
 		if !strings.ContainsAny(c, "ABCDEFGHIJKLMNOPQRSTUVWXYZ0123456789,;)]}\"") {
 			t.Fatalf("marked test token %d is %q, not a long-range character", i, c)
 		}
@@ -286,7 +286,7 @@ func comparisonOf(t *testing.T, text string, set func(*data.Config), blockChars 
 	if err != nil {
 		t.Fatal(err)
 	}
-	counts, err := eval.CountNGrams(ds.Train.Tokens, ds.Vocab.Len(), 3, ds.Vocab.Boundary(), nil)
+	counts, err := eval.CountNGrams(ds.Train.Tokens.Ints(), ds.Vocab.Len(), 3, ds.Vocab.Boundary(), nil)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -321,7 +321,7 @@ func TestCompareSymbolsDenominator(t *testing.T) {
 	ds, cmp := comparisonOf(t, b.String(), func(c *data.Config) {
 		c.Tokenizer, c.Split = "symbols", "line"
 	}, 500)
-	T := len(ds.Test.Tokens)
+	T := ds.Test.Tokens.Len()
 	if T%4 != 0 {
 		t.Fatalf("test split of %d tokens is not whole lines", T)
 	}
@@ -451,7 +451,7 @@ func TestCompareValidationLabelled(t *testing.T) {
 	dir := t.TempDir()
 	runFile := writeTinyRun(t, dir, 30000)
 	r, ds := loadTestDataset(t, runFile)
-	counts, err := eval.CountNGrams(ds.Train.Tokens, ds.Vocab.Len(), 3, ds.Vocab.Boundary(), nil)
+	counts, err := eval.CountNGrams(ds.Train.Tokens.Ints(), ds.Vocab.Len(), 3, ds.Vocab.Boundary(), nil)
 	if err != nil {
 		t.Fatal(err)
 	}

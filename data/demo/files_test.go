@@ -66,8 +66,8 @@ func TestWriteFilesAndSplitMarks(t *testing.T) {
 			got++
 		}
 	}
-	if len(mask) != len(ds.Test.Tokens) || got == 0 {
-		t.Errorf("mask of %d tokens with %d marked, split of %d", len(mask), got, len(ds.Test.Tokens))
+	if len(mask) != ds.Test.Tokens.Len() || got == 0 {
+		t.Errorf("mask of %d tokens with %d marked, split of %d", len(mask), got, ds.Test.Tokens.Len())
 	}
 	if m, err := SplitMarks(filepath.Join(dir, "none.txt"), ds.Test); m != nil || err != nil {
 		t.Errorf("no marks file: got %v, %v", m, err)

@@ -80,7 +80,7 @@ func Build(ctx context.Context, dir string, o Options) (*Data, error) {
 	if base == nil {
 		d.Missing["surprisal_baseline"] = "no best baseline to set beside the model: run 'weft eval --run " + dir + "', then 'weft report --run " + dir + "'"
 	}
-	s, err := NewSurprisal(ctx, o.Model, base, baseName, split.Name, split.Tokens, split.TokenChars(nil), o.Stretch)
+	s, err := NewSurprisal(ctx, o.Model, base, baseName, split.Name, split.Tokens.Ints(), split.TokenChars(nil), o.Stretch)
 	if err != nil {
 		return nil, err
 	}
