@@ -144,10 +144,23 @@ func CompareDataset(ctx context.Context, cfg eval.Config, ds *data.Dataset, spli
 		Unknown:       ds.Vocab.Unknown(),
 		Lowercased:    ds.Vocab.Lowercase(),
 		CharacterUnit: characterUnit(ds.Vocab.Kind()),
-		TrainCounts:   eval.TokenCounts(ds.Train.Tokens.Ints(), ds.Vocab.Len()),
+		TrainCounts:   trainCounts(ds),
 		Marks:         marks,
 		Progress:      progress,
 	})
+}
+
+// trainCounts is eval.TokenCounts of the training split, counted window
+// by window instead of over a copy of the split.
+func trainCounts(ds *data.Dataset) []int {
+	c := make([]int, ds.Vocab.Len())
+	ds.Train.Tokens.Each(1<<16, func(_ int, ids []int) error {
+		for _, w := range ids {
+			c[w]++
+		}
+		return nil
+	})
+	return c
 }
 
 // characterUnit says what a character of Split.TokenChars is for the
@@ -168,12 +181,13 @@ func ScoreOnValidation(ctx context.Context, ds *data.Dataset, models []eval.Entr
 	v := ds.Validation
 	chars := int(v.CountedCharacters())
 	var rows []eval.Result
+	ids := v.Tokens.Ints()
+	lp := make([]float64, len(ids))
 	for i, e := range models {
 		if progress != nil {
 			progress(stage, i, len(models))
 		}
-		lp := make([]float64, v.Tokens.Len())
-		if err := e.Model.LogProbs(ctx, lp, v.Tokens.Ints()); err != nil {
+		if err := e.Model.LogProbs(ctx, lp, ids); err != nil {
 			return nil, fmt.Errorf("score %s: %w", e.Model.Name(), err)
 		}
 		kind := e.Kind
