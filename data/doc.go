@@ -155,6 +155,24 @@
 //	                              its entry's (unknown words, lower-casing)
 //	end−4       4        CRC-32C (Castagnoli) of every byte before it
 //
+// Corpora larger than memory: Prepare never holds a split. It reads the
+// files in 64 KiB pieces, spools each split's ids to a temporary file in
+// the cache folder as it encodes them, and writes the cache from those in
+// one streaming pass, taking the checksum as the bytes go out. Opening a
+// cache checks every byte in one streaming pass, then maps the file
+// read-only (Linux, macOS and the BSDs; elsewhere, and where mapping
+// fails, the splits read the file window by window), so that a Split's
+// Tokens is a view of the file, not a copy: training windows, validation
+// and the character counts read the ids a window at a time. A reader gives
+// the mapped pages back to the system every 64 MiB it reads, so they do
+// not accumulate in its resident memory. What Prepare holds grows with the
+// vocabulary, the distinct test lines (8-byte hashes, for the leakage
+// count), the records of tokens whose characters differ from their
+// entry's (12 bytes each) and, for the word and BPE tokenizers, the
+// distinct training pieces; not with the corpus. For "bpe" on a corpus
+// over BPESampleBytes the merges are learned on a seeded sample of the
+// piece occurrences, reported in Report.BPESample.
+//
 // # Batches
 //
 // NewBatches lays the N training tokens out as B contiguous streams of

@@ -21,6 +21,30 @@ type Report struct {
 	Test            SplitReport `json:"test"`
 	VocabularySize  int         `json:"vocabulary_size"`
 	LeakedTestLines int64       `json:"leaked_test_lines"`
+
+	// BPESample, when not nil, says that the BPE merges were learned on a
+	// sample of the training pieces (see BPESampleBytes).
+	BPESample *BPESample `json:"bpe_sample,omitempty"`
+}
+
+// BPESampleBytes is the corpus size above which the "bpe" tokenizer learns
+// its merges on a sample of the training text: each piece occurrence (a
+// word or a run of punctuation, as the tokenizer splits the text before
+// merging) is counted with probability BPESampleBytes divided by the
+// corpus's bytes, drawn from a hash (splitmix64) of data.split_seed and the
+// occurrence's number, so that about BPESampleBytes of text is counted
+// whatever the corpus's size and the same corpus always gives the same
+// sample. The whole training split is still encoded with the merges.
+const BPESampleBytes = 64 << 20
+
+// bpeSampleBytes is BPESampleBytes; tests lower it.
+var bpeSampleBytes int64 = BPESampleBytes
+
+// BPESample describes the sample BPE merges were learned on.
+type BPESample struct {
+	Pieces int64  `json:"pieces"` // piece occurrences counted
+	Of     int64  `json:"of"`     // piece occurrences in the training split
+	Seed   uint64 `json:"seed"`   // data.split_seed
 }
 
 // SplitReport gives the sizes of one split.
@@ -415,6 +439,14 @@ func buildDataset(ctx context.Context, cfg Config, srcs []source, spool string) 
 
 	// Pass 2: training pieces and test lines.
 	c := newCounter(kind, cfg.Lowercase)
+	var inBytes int64
+	for _, src := range srcs {
+		inBytes += src.Size
+	}
+	if kind == KindBPE && inBytes > bpeSampleBytes {
+		c.below = uint64(float64(bpeSampleBytes) / float64(inBytes) * (1 << 64))
+		c.seed = cfg.SplitSeed
+	}
 	testLines := map[uint64]int64{}
 	var trainDocs int64
 	w.text = func(s int, p []byte) {
@@ -498,6 +530,9 @@ func buildDataset(ctx context.Context, cfg Config, srcs []source, spool string) 
 	ds.Train, ds.Validation, ds.Test = splits[iTrain], splits[iValidation], splits[iTest]
 	ds.Input = w.stats
 	ds.Report = makeReport(ds, leaked)
+	if c.below != 0 {
+		ds.Report.BPESample = &BPESample{Pieces: c.kept, Of: c.seen, Seed: c.seed}
+	}
 	for _, chk := range []struct {
 		s    *Split
 		frac float64

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math"
 	"os"
 	"path/filepath"
 	"reflect"
@@ -536,5 +537,57 @@ func TestBPEWorkedExample(t *testing.T) {
 	want := [][2]string{{"e", "s"}, {"es", "t"}, {"l", "o"}, {"lo", "w"}, {"e", "w"}}
 	if !reflect.DeepEqual(m.merges, want) {
 		t.Errorf("got merges %q, want %q", m.merges, want)
+	}
+}
+
+// TestBPESample lowers the sampling size below a 24 KB corpus: the merges
+// are learned on about that share of the piece occurrences, the same
+// sample every time for a seed and another for another seed, the report
+// says so, and the whole split is still encoded. Above the size nothing is
+// sampled.
+func TestBPESample(t *testing.T) {
+	text := numberedCorpus(1000, 0) // 24,000 bytes
+	dir := writeFiles(t, map[string]string{"c.txt": text})
+	cfg := testConfig("c.txt")
+	cfg.Tokenizer, cfg.BPEMerges = "bpe", 20
+	whole, err := prepare(t, cfg, dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if whole.Report.BPESample != nil {
+		t.Fatalf("a %d-byte corpus under %d was sampled: %+v", len(text), bpeSampleBytes, whole.Report.BPESample)
+	}
+	defer func(n int64) { bpeSampleBytes = n }(bpeSampleBytes)
+	bpeSampleBytes = int64(len(text)) / 4
+	a, err := prepare(t, cfg, dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := prepare(t, cfg, dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	s := a.Report.BPESample
+	if s == nil {
+		t.Fatal("no sample reported")
+	}
+	// Binomial(Of, 1/4): the standard deviation is sqrt(Of·3/16), about 2%
+	// of Of/4 here; 5 of them is a loose bound.
+	if want := float64(s.Of) / 4; math.Abs(float64(s.Pieces)-want) > 5*math.Sqrt(float64(s.Of)*3/16) || s.Seed != cfg.SplitSeed {
+		t.Errorf("sample %+v, want about %.0f pieces with seed %d", *s, want, cfg.SplitSeed)
+	}
+	if *b.Report.BPESample != *s || !reflect.DeepEqual(a.Vocab.Merges(), b.Vocab.Merges()) {
+		t.Error("the same seed gave another sample")
+	}
+	if got := decodeSplit(a, a.Train); got != text {
+		t.Errorf("the sampled vocabulary encodes the split as %q...", got[:40])
+	}
+	cfg.SplitSeed = 99
+	c, err := prepare(t, cfg, dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Report.BPESample.Pieces == s.Pieces && reflect.DeepEqual(c.Vocab.Merges(), a.Vocab.Merges()) {
+		t.Error("another seed gave the same sample")
 	}
 }

@@ -114,6 +114,13 @@ type counter struct {
 	pieces map[string]int // piece -> index in n
 	n      []int64
 	sp     *splitter
+
+	// Sampling, for BPE on a large corpus (see BPESampleBytes): piece
+	// occurrence k (from 1) is counted when splitmix64(seed^k) < below;
+	// below = 0 counts every one.
+	below      uint64
+	seed       uint64
+	seen, kept int64
 }
 
 func newCounter(kind Kind, lower bool) *counter {
@@ -123,6 +130,11 @@ func newCounter(kind Kind, lower bool) *counter {
 }
 
 func (c *counter) addPiece(p []byte, _ int) {
+	c.seen++
+	if c.below != 0 && splitmix64(c.seed^uint64(c.seen)) >= c.below {
+		return
+	}
+	c.kept++
 	// The lookup m[string(p)] does not allocate; only a new piece does.
 	if i, ok := c.pieces[string(p)]; ok {
 		c.n[i]++

@@ -96,7 +96,12 @@ func printSplitReport(w io.Writer, ds *data.Dataset) {
 	} else if ds.Cache.Hit {
 		fmt.Fprintln(w, "token cache: reused (inputs and settings unchanged)")
 	}
-	fmt.Fprintf(w, "vocabulary: %d entries (%s tokenizer, built on the training split)\n\n", ds.Report.VocabularySize, ds.Vocab.Kind())
+	fmt.Fprintf(w, "vocabulary: %d entries (%s tokenizer, built on the training split)\n", ds.Report.VocabularySize, ds.Vocab.Kind())
+	if s := ds.Report.BPESample; s != nil {
+		fmt.Fprintf(w, "BPE merges learned on a sample: %s of %s training pieces (%.1f%%, seed %d; the corpus is over %d MiB)\n",
+			thousands(s.Pieces), thousands(s.Of), 100*float64(s.Pieces)/float64(max(s.Of, 1)), s.Seed, data.BPESampleBytes>>20)
+	}
+	fmt.Fprintln(w)
 	tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 	fmt.Fprintln(tw, "split\tcharacters\ttokens\tlines\tout of vocabulary\t")
 	rows := []struct {
