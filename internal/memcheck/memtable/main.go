@@ -8,7 +8,10 @@
 //
 // Each corpus is generated in a temporary folder (-tmp, default the system's)
 // and deleted with its run directory when its row is done. -json also
-// writes one JSON object a line per corpus size to a file.
+// writes one JSON object a line per corpus size to a file. With -generate
+// FILE it only writes the corpus of its one size to FILE:
+//
+//	go run ./internal/memcheck/memtable -generate /tmp/corpus.txt 100MB
 package main
 
 import (
@@ -23,6 +26,7 @@ import (
 	"strings"
 	"time"
 
+	"weft/data/corpustest"
 	"weft/internal/memcheck"
 )
 
@@ -34,6 +38,7 @@ func main() {
 	tokenizer := flag.String("tokenizer", "char", "data.tokenizer")
 	limit := flag.String("kill", "0", "kill a verb whose resident set passes this size (e.g. 16GB; 0: no limit)")
 	defaultLadder := flag.Bool("default-ladder", false, "fit the default baseline ladder (8-grams, five smoothers, a 32-state HMM) instead of the short one of memcheck.RunFile")
+	generate := flag.String("generate", "", "only write the corpus of the one SIZE to this file (e.g. to time weft prepare on it)")
 	jsonOut := flag.String("json", "", "also append one JSON object a line per corpus size to this file")
 	flag.Usage = func() {
 		fmt.Fprintf(os.Stderr, "usage: memtable [flags] SIZE...   (sizes such as 40MB, 400MB, 4GB; decimal units)\n")
@@ -52,6 +57,17 @@ func main() {
 			os.Exit(2)
 		}
 		sizes = append(sizes, n)
+	}
+	if *generate != "" {
+		if len(sizes) != 1 {
+			fmt.Fprintf(os.Stderr, "memtable: -generate takes one SIZE\n")
+			os.Exit(2)
+		}
+		if err := corpustest.WriteFile(*generate, sizes[0], *seed); err != nil {
+			fmt.Fprintf(os.Stderr, "memtable: %v\n", err)
+			os.Exit(1)
+		}
+		return
 	}
 	kill, err := memcheck.ParseSize(*limit)
 	if err != nil {
