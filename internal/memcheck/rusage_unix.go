@@ -15,9 +15,21 @@ func maxRSS(ps *os.ProcessState) int64 {
 	if !ok || ru == nil {
 		return 0
 	}
-	n := int64(ru.Maxrss)
-	if runtime.GOOS != "darwin" && runtime.GOOS != "ios" {
-		n <<= 10
+	return rssBytes(int64(ru.Maxrss))
+}
+
+// selfMaxRSS is this process's own ru_maxrss in bytes, or 0.
+func selfMaxRSS() int64 {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
 	}
-	return n
+	return rssBytes(int64(ru.Maxrss))
+}
+
+func rssBytes(maxrss int64) int64 {
+	if runtime.GOOS != "darwin" && runtime.GOOS != "ios" {
+		return maxrss << 10
+	}
+	return maxrss
 }
