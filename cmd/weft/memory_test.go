@@ -170,8 +170,12 @@ func measureSizes(t *testing.T, sizes [2]int64, kill int64) [2]memcheck.Measurem
 			t.Logf("  %-9s max RSS %9s  peak anon %9s  %6.1f s", v.Name, memcheck.FormatBytes(v.Peak.MaxRSS), anonText(v.Peak.PeakAnon), v.Peak.Wall.Seconds())
 		}
 		if f := m.Failed(); f != nil {
-			t.Fatalf("%s of corpus: %s (max RSS %s, peak anon %s when it stopped)", memcheck.FormatBytes(size), f.Err,
-				memcheck.FormatBytes(f.Peak.MaxRSS), anonText(f.Peak.PeakAnon))
+			hint := ""
+			if f.Peak.Killed {
+				hint = "; memory must not grow with the corpus (issue 18), and a verb is stopped past " + envMemKill + " (default 4·bound + 3 bytes per corpus byte)"
+			}
+			t.Fatalf("%s of corpus: %s (max RSS %s, peak anon %s when it stopped)%s", memcheck.FormatBytes(size), f.Err,
+				memcheck.FormatBytes(f.Peak.MaxRSS), anonText(f.Peak.PeakAnon), hint)
 		}
 		ms[i] = m
 	}

@@ -203,7 +203,10 @@ func Measure(ctx context.Context, s Setup) (Measurement, error) {
 		v.Peak, err = Run(cmd, s.Options)
 		cancel()
 		if err != nil {
-			v.Err = fmt.Sprintf("weft %s: %v: %s", args[0], err, strings.TrimSpace(out.String()))
+			v.Err = fmt.Sprintf("weft %s: %v", args[0], err)
+			if o := strings.TrimSpace(out.String()); o != "" {
+				v.Err += ": " + o
+			}
 		}
 		m.Verbs = append(m.Verbs, v)
 		if i == 0 {

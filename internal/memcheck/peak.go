@@ -115,7 +115,7 @@ func Run(cmd *exec.Cmd, opts Options) (Peak, error) {
 		p.MaxRSS, p.MaxRSSSampled = max(hwmSampled, p.PeakRSS), true
 	}
 	if p.Killed {
-		err = fmt.Errorf("%w: sampled resident set over %d bytes", ErrKilled, opts.Limit)
+		err = fmt.Errorf("%w: sampled resident set over %s", ErrKilled, FormatBytes(opts.Limit))
 	}
 	return p, err
 }
