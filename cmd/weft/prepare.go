@@ -4,7 +4,9 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"math"
 	"text/tabwriter"
+	"time"
 
 	"github.com/spf13/cobra"
 
@@ -60,10 +62,12 @@ func runPrepare(opts *prepareOptions) error {
 		}
 		defer rd.Close()
 	}
+	start := opts.Now()
 	ds, err := prepareData(opts.cmdContext, r, rd)
 	if err != nil {
 		return err
 	}
+	speed := newPrepareSpeed(ds, opts.Now().Sub(start))
 	if rd != nil {
 		// The run file too, so that 'weft baselines DIR' and 'weft eval
 		// --run DIR' find the run.
@@ -74,13 +78,59 @@ func runPrepare(opts *prepareOptions) error {
 	if opts.JSON {
 		enc := json.NewEncoder(opts.Out)
 		enc.SetIndent("", "  ")
-		return enc.Encode(ds.Report)
+		return enc.Encode(prepareJSON{ds.Report, speed})
 	}
 	printSplitReport(opts.Out, ds)
+	speed.print(opts.Out)
 	if rd != nil {
 		fmt.Fprintf(opts.Out, "saved in %s: %s, %s, %s, %s\n", rd.Path(), runs.RunFile, data.VocabFile, runs.SplitFile, data.TokenCacheFile)
 	}
 	return nil
+}
+
+// prepareJSON is what prepare --json prints: the split report's fields,
+// and how long preparing took.
+type prepareJSON struct {
+	data.Report
+	Speed prepareSpeed `json:"speed"`
+}
+
+// prepareSpeed is how fast prepare went: the wall time of reading,
+// tokenizing, splitting and writing the cache (or of reading the cache
+// back when it was reused), and from it the input read and the tokens made
+// per second. The rates are null when the cache was reused, since nothing
+// was tokenized.
+type prepareSpeed struct {
+	Seconds         float64  `json:"seconds"`
+	CacheReused     bool     `json:"cache_reused"`
+	InputBytes      int64    `json:"input_bytes"`
+	Tokens          int64    `json:"tokens"`
+	MBPerSecond     *float64 `json:"input_mb_per_second"` // 10^6 bytes of input per second
+	TokensPerSecond *float64 `json:"tokens_per_second"`
+}
+
+func newPrepareSpeed(ds *data.Dataset, d time.Duration) prepareSpeed {
+	s := prepareSpeed{
+		Seconds:     d.Seconds(),
+		CacheReused: ds.Cache.Hit,
+		InputBytes:  ds.Input.Bytes,
+		Tokens:      ds.Report.Train.Tokens + ds.Report.Validation.Tokens + ds.Report.Test.Tokens,
+	}
+	if !s.CacheReused && d > 0 {
+		mb := float64(s.InputBytes) / 1e6 / d.Seconds()
+		tps := float64(s.Tokens) / d.Seconds()
+		s.MBPerSecond, s.TokensPerSecond = &mb, &tps
+	}
+	return s
+}
+
+func (s prepareSpeed) print(w io.Writer) {
+	if s.MBPerSecond == nil {
+		fmt.Fprintf(w, "token cache read back in %.1f s\n", s.Seconds)
+		return
+	}
+	fmt.Fprintf(w, "prepared in %.1f s: %.1f MB of input a second, %s tokens a second\n",
+		s.Seconds, *s.MBPerSecond, thousands(int64(math.Round(*s.TokensPerSecond))))
 }
 
 func printSplitReport(w io.Writer, ds *data.Dataset) {
