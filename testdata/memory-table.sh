@@ -18,7 +18,7 @@
 # about 3 times its size of disk, for the corpus and a token cache of 2
 # bytes a character), STEPS (training steps, default 20), LADDER (default:
 # fit the default baseline ladder, 8-grams with five smoothers and a
-# 32-state HMM, instead of the short ladder of internal/memcheck.RunFile),
+# 32-state HMM, instead of the short ladder of cmd/internal/memcheck.RunFile),
 # KILL (kill a verb whose resident set passes this size, e.g. 16GB, to
 # spare a shared machine; default no limit), JSON (also append one JSON
 # object a line per size to this file).
@@ -34,7 +34,7 @@ if [ ! -x "$WEFT" ]; then
 	echo "memory-table: $WEFT is not an executable weft" >&2
 	exit 1
 fi
-go build -o bin/memtable ./internal/memcheck/memtable
+go build -o bin/memtable ./cmd/internal/memcheck/memtable
 set -- -weft "$WEFT" -steps "${STEPS:-20}" -kill "${KILL:-0}" "$@"
 if [ "${LADDER:-}" = default ]; then
 	set -- -default-ladder "$@"

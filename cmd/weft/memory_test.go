@@ -7,13 +7,13 @@ import (
 	"testing"
 	"time"
 
-	"weft/internal/memcheck"
+	"weft/cmd/internal/memcheck"
 )
 
 // The bounded-memory checks of issue 18: weft prepare, a few steps of weft
 // train, weft baselines and weft eval run as child processes on a generated
 // corpus (data/corpustest.Generate) at two sizes, and each process's peak
-// memory is read (internal/memcheck). TestMemoryFlat runs in every
+// memory is read (cmd/internal/memcheck). TestMemoryFlat runs in every
 // `go test` (not -short) at small sizes and checks that the peaks do not
 // grow with the corpus; TestMemoryBound is `make memory-check`, at sizes of
 // hundreds of megabytes, and checks them against a fixed bound too.

@@ -4,14 +4,14 @@
 // a tiny model), baselines and eval on a generated corpus. It is run by
 // testdata/memory-table.sh, which builds weft first.
 //
-//	go run ./internal/memcheck/memtable -weft bin/weft 40MB 400MB
+//	go run ./cmd/internal/memcheck/memtable -weft bin/weft 40MB 400MB
 //
 // Each corpus is generated in a temporary folder (-tmp, default the system's)
 // and deleted with its run directory when its row is done. -json also
 // writes one JSON object a line per corpus size to a file. With -generate
 // FILE it only writes the corpus of its one size to FILE:
 //
-//	go run ./internal/memcheck/memtable -generate /tmp/corpus.txt 100MB
+//	go run ./cmd/internal/memcheck/memtable -generate /tmp/corpus.txt 100MB
 package main
 
 import (
@@ -27,7 +27,7 @@ import (
 	"time"
 
 	"weft/data/corpustest"
-	"weft/internal/memcheck"
+	"weft/cmd/internal/memcheck"
 )
 
 func main() {

@@ -104,7 +104,7 @@ func RunFile(corpus, tokenizer string, steps int, defaultLadder bool) string {
 	if defaultLadder {
 		ladder = ""
 	}
-	return fmt.Sprintf(`# Written by weft/internal/memcheck: a tiny model over a generated corpus.
+	return fmt.Sprintf(`# Written by weft/cmd/internal/memcheck: a tiny model over a generated corpus.
 [data]
 files = [%q]
 tokenizer = %q
