@@ -26,8 +26,8 @@ import (
 	"strings"
 	"time"
 
-	"weft/data/corpustest"
 	"weft/cmd/internal/memcheck"
+	"weft/data/corpustest"
 )
 
 func main() {
