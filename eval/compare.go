@@ -6,6 +6,8 @@ import (
 	"math"
 	"slices"
 	"sort"
+	"strconv"
+	"strings"
 )
 
 // HeldOut is a held-out split as a comparison scores it: its token ids and
@@ -14,8 +16,13 @@ import (
 // breakdowns all divide by the sum of Chars, so one count of characters
 // serves them all.
 type HeldOut struct {
-	// Tokens are the split's token ids, in text order.
+	// Tokens are the split's token ids, in text order: the whole split, or
+	// its first tokens (see Of).
 	Tokens []int
+	// Of is the number of tokens of the whole split when Tokens holds
+	// only its first ones (evaluation.heldout_tokens), 0 when Tokens is
+	// the whole split.
+	Of int
 	// Chars[i] is the number of characters token i stands for; nil means
 	// one each (a character model).
 	Chars []int
@@ -59,6 +66,36 @@ func (e Entrant) kind() string {
 		return k.Kind()
 	}
 	return "unknown"
+}
+
+// scoredNote says which held-out splits were scored on their first tokens
+// only.
+func scoredNote(in CompareInput) string {
+	var parts []string
+	part := func(h HeldOut, name string) {
+		if h.Of > len(h.Tokens) {
+			parts = append(parts, fmt.Sprintf("the first %s of %s %s tokens", groupDigits(len(h.Tokens)), groupDigits(h.Of), name))
+		}
+	}
+	if in.Split == "validation" {
+		part(in.Reported, "validation")
+	} else {
+		part(in.Reported, in.Split)
+		part(in.Validation, "validation")
+	}
+	if len(parts) == 0 {
+		return ""
+	}
+	return "scored on " + strings.Join(parts, " and ") + " (evaluation.heldout_tokens)"
+}
+
+// groupDigits writes n with commas between groups of three digits.
+func groupDigits(n int) string {
+	s := strconv.Itoa(n)
+	for i := len(s) - 3; i > 0; i -= 3 {
+		s = s[:i] + "," + s[i:]
+	}
+	return s
 }
 
 func isBaselineKind(kind string) bool {
@@ -118,6 +155,10 @@ type Comparison struct {
 	// that the blocks were shrunk (PlanBlocks).
 	BlockChars   int
 	IntervalNote string
+	// ScoredNote says that the held-out splits were scored on their first
+	// tokens only (HeldOut.Of), and how many; empty when whole splits
+	// were scored.
+	ScoredNote string
 	// TunedOnReported is true when the reported split is the validation
 	// split: the best baseline and the interpolation weight were then
 	// chosen on the split reported, so the difference column and the
@@ -187,7 +228,8 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 		cands[i] = c
 	}
 	in.Progress.report(stage, len(in.Models), len(in.Models))
-	cmp := &Comparison{TunedOnReported: in.Split == "validation", Split: in.Split, CharacterUnit: in.CharacterUnit, ConfidenceLevel: cfg.ConfidenceLevel, Lambda: math.NaN(), BestBaselineValBPC: math.NaN()}
+	cmp := &Comparison{TunedOnReported: in.Split == "validation", Split: in.Split, CharacterUnit: in.CharacterUnit, ConfidenceLevel: cfg.ConfidenceLevel, Lambda: math.NaN(), BestBaselineValBPC: math.NaN(),
+		ScoredNote: scoredNote(in)}
 
 	// The best baseline and the interpolation partner are chosen on
 	// validation rows (eval.BestBaseline), so the reported split stays

@@ -85,6 +85,15 @@ type Config struct {
 	// and below 1. Default 0.95.
 	ConfidenceLevel float64 `toml:"confidence_level"`
 
+	// HeldOutTokens caps the tokens of each held-out split that the
+	// comparison (weft eval, the report) and weft baselines score: a longer
+	// split is scored on its first HeldOutTokens tokens, in corpus order,
+	// and the table says so. The comparison holds about 16 bytes per
+	// scored token for each model and baseline (their log-probabilities on
+	// the two splits), so this bounds its memory whatever the corpus's
+	// size. Zero means whole splits. Default 1000000.
+	HeldOutTokens int `toml:"heldout_tokens"`
+
 	// Interpolate adds the row mixing the recurrent model linearly with the
 	// best n-gram baseline, the weight tuned on the validation split; false
 	// (the zero value) leaves it out. Default true.
@@ -107,6 +116,7 @@ func DefaultConfig() Config {
 		BootstrapSamples:    1000,
 		BootstrapBlockChars: 2000,
 		ConfidenceLevel:     0.95,
+		HeldOutTokens:       1000000,
 		Interpolate:         true,
 	}
 }
@@ -155,6 +165,9 @@ func (c Config) Validate() error {
 	}
 	if c.HMMMaxTokens < 0 {
 		bad("hmm_max_tokens", "%d is negative", c.HMMMaxTokens)
+	}
+	if c.HeldOutTokens < 0 {
+		bad("heldout_tokens", "%d is negative", c.HeldOutTokens)
 	}
 	if c.BootstrapSamples < 0 {
 		bad("bootstrap_samples", "%d is negative", c.BootstrapSamples)

@@ -45,6 +45,7 @@ type reportJSON struct {
 	ConfidenceLevel      jsonFloat        `json:"confidence_level"`
 	BlockChars           int              `json:"bootstrap_block_chars"`
 	IntervalNote         string           `json:"interval_note"`
+	ScoredNote           string           `json:"scored_note,omitempty"`
 	TunedOnReported      bool             `json:"tuned_on_reported_split"`
 	BestBaseline         string           `json:"best_baseline"`
 	BestBaselineValBPC   jsonFloat        `json:"best_baseline_validation_bits_per_char"`
@@ -60,7 +61,7 @@ func (c *Comparison) MarshalJSON() ([]byte, error) {
 	return json.Marshal(reportJSON{
 		Format: ReportFormat, Version: ReportVersion,
 		Split: c.Split, CharacterUnit: c.CharacterUnit, ConfidenceLevel: jsonFloat(c.ConfidenceLevel),
-		BlockChars: c.BlockChars, IntervalNote: c.IntervalNote, TunedOnReported: c.TunedOnReported,
+		BlockChars: c.BlockChars, IntervalNote: c.IntervalNote, ScoredNote: c.ScoredNote, TunedOnReported: c.TunedOnReported,
 		BestBaseline: c.BestBaseline, BestBaselineValBPC: jsonFloat(c.BestBaselineValBPC),
 		InterpolationPartner: c.InterpolationPartner, Lambda: jsonFloat(c.Lambda),
 		Rows: c.Rows, LongRange: c.LongRange, Bands: c.Bands,
@@ -87,7 +88,7 @@ func (c *Comparison) UnmarshalJSON(b []byte) error {
 	}
 	*c = Comparison{
 		Split: j.Split, CharacterUnit: j.CharacterUnit, ConfidenceLevel: float64(j.ConfidenceLevel),
-		BlockChars: j.BlockChars, IntervalNote: j.IntervalNote, TunedOnReported: j.TunedOnReported,
+		BlockChars: j.BlockChars, IntervalNote: j.IntervalNote, ScoredNote: j.ScoredNote, TunedOnReported: j.TunedOnReported,
 		BestBaseline: j.BestBaseline, BestBaselineValBPC: float64(j.BestBaselineValBPC),
 		InterpolationPartner: j.InterpolationPartner, Lambda: float64(j.Lambda),
 		Rows: j.Rows, LongRange: j.LongRange, Bands: j.Bands,

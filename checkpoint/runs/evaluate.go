@@ -136,10 +136,18 @@ func CompareDataset(ctx context.Context, cfg eval.Config, ds *data.Dataset, spli
 	if split == data.SplitValidation {
 		rep = ds.Validation
 	}
+	val := HeldOut(ds.Validation, cfg.HeldOutTokens)
+	reported := val
+	if rep != ds.Validation {
+		reported = HeldOut(rep, cfg.HeldOutTokens)
+	}
+	if len(marks) > len(reported.Tokens) {
+		marks = marks[:len(reported.Tokens)]
+	}
 	return eval.Compare(ctx, cfg, eval.CompareInput{
 		Split:         split,
-		Validation:    eval.HeldOut{Tokens: ds.Validation.Tokens.Ints(), Chars: ds.Validation.TokenChars(nil)},
-		Reported:      eval.HeldOut{Tokens: rep.Tokens.Ints(), Chars: rep.TokenChars(nil)},
+		Validation:    val,
+		Reported:      reported,
 		Models:        models,
 		Unknown:       ds.Vocab.Unknown(),
 		Lowercased:    ds.Vocab.Lowercase(),
@@ -148,6 +156,22 @@ func CompareDataset(ctx context.Context, cfg eval.Config, ds *data.Dataset, spli
 		Marks:         marks,
 		Progress:      progress,
 	})
+}
+
+// HeldOut is the split as eval.Compare scores it: its ids and the
+// characters each stands for, only its first max tokens when max > 0 and
+// the split is longer (evaluation.heldout_tokens; HeldOut.Of then says how
+// long the split is). It costs 16 bytes a token it holds.
+func HeldOut(s *data.Split, max int) eval.HeldOut {
+	n := s.Tokens.Len()
+	var h eval.HeldOut
+	if max > 0 && n > max {
+		h.Of, n = n, max
+	}
+	h.Tokens = make([]int, n)
+	s.Tokens.Read(h.Tokens, 0)
+	h.Chars = s.WindowChars(make([]int, n), h.Tokens, 0)
+	return h
 }
 
 // trainCounts is eval.TokenCounts of the training split, counted window
@@ -175,13 +199,17 @@ func characterUnit(k data.Kind) string {
 
 // ScoreOnValidation scores each model on ds's validation split, dividing
 // by the characters its tokens cover (eval.Compare's denominator), in the
-// order given.
-func ScoreOnValidation(ctx context.Context, ds *data.Dataset, models []eval.Entrant, progress eval.ProgressFunc) ([]eval.Result, error) {
+// order given: on the first max tokens of the split when max > 0 and it is
+// longer (evaluation.heldout_tokens), as eval.Compare does.
+func ScoreOnValidation(ctx context.Context, ds *data.Dataset, max int, models []eval.Entrant, progress eval.ProgressFunc) ([]eval.Result, error) {
 	const stage = "score baselines on validation"
-	v := ds.Validation
-	chars := int(v.CountedCharacters())
+	h := HeldOut(ds.Validation, max)
+	chars := 0
+	for _, c := range h.Chars {
+		chars += c
+	}
 	var rows []eval.Result
-	ids := v.Tokens.Ints()
+	ids := h.Tokens
 	lp := make([]float64, len(ids))
 	for i, e := range models {
 		if progress != nil {

@@ -113,7 +113,7 @@ func runBaselines(opts *baselinesOptions) error {
 	if len(models) == 0 {
 		return fmt.Errorf("no baselines configured: set evaluation.ngram_orders and ngram_smoothers, markov_orders or hmm_states")
 	}
-	rows, err := runs.ScoreOnValidation(opts.ctx, ds, models, prog.Func())
+	rows, err := runs.ScoreOnValidation(opts.ctx, ds, r.Evaluation.HeldOutTokens, models, prog.Func())
 	if err != nil {
 		return err
 	}
@@ -124,7 +124,11 @@ func runBaselines(opts *baselinesOptions) error {
 		enc.SetIndent("", "  ")
 		return enc.Encode(rows)
 	}
-	fmt.Fprintf(opts.Out, "baselines fitted on %s training tokens; validation split, best first\n\n", thousands(int64(ds.Train.Tokens.Len())))
+	scored := "validation split"
+	if n := ds.Validation.Tokens.Len(); len(rows) > 0 && rows[0].Tokens < n {
+		scored = fmt.Sprintf("the first %s of %s validation tokens (evaluation.heldout_tokens)", thousands(int64(rows[0].Tokens)), thousands(int64(n)))
+	}
+	fmt.Fprintf(opts.Out, "baselines fitted on %s training tokens; %s, best first\n\n", thousands(int64(ds.Train.Tokens.Len())), scored)
 	tw := tabwriter.NewWriter(opts.Out, 0, 0, 2, ' ', 0)
 	fmt.Fprintln(tw, "model\tkind\tbits/char\tbits/token\tperplexity")
 	for _, res := range rows {

@@ -40,6 +40,9 @@ func printComparison(w io.Writer, cmp *comparison, rows []eval.Result) {
 	if cmp.IntervalNote != "" {
 		fmt.Fprintf(w, "%s\n", cmp.IntervalNote)
 	}
+	if cmp.ScoredNote != "" {
+		fmt.Fprintf(w, "%s\n", cmp.ScoredNote)
+	}
 	if cmp.CharacterUnit != "" {
 		fmt.Fprintf(w, "a character here is %s\n", cmp.CharacterUnit)
 	}

@@ -116,7 +116,7 @@ func writeRunReport(cc cmdContext, dir string, stretch int) (string, error) {
 		return "", err
 	}
 	defer rd.Close()
-	o := report.Options{Stretch: stretch, Held: true}
+	o := report.Options{Stretch: stretch, Held: true, HeldOutTokens: r.Evaluation.HeldOutTokens}
 	ents, _ := checkpoint.List(rd.Checkpoints())
 	if _, err := os.Stat(checkpoint.BestPath(rd.Checkpoints())); len(ents) > 0 || err == nil {
 		m, err := runs.OpenModel(dir, "best")

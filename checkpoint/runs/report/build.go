@@ -8,6 +8,7 @@ import (
 
 	"weft/checkpoint"
 	"weft/checkpoint/generate"
+	"weft/checkpoint/runs"
 	"weft/data"
 	"weft/eval"
 	"weft/rnn"
@@ -44,6 +45,10 @@ type Options struct {
 	// Stretch is the block of the surprisal view, from 1; 0 means the
 	// median block.
 	Stretch int
+	// HeldOutTokens caps the held-out tokens the surprisal view scores, as
+	// evaluation.heldout_tokens caps the comparison's; 0 means the whole
+	// split.
+	HeldOutTokens int
 	// Held says the caller holds the run directory's lock, so no training
 	// process is live whatever report/status.json says.
 	Held bool
@@ -80,7 +85,8 @@ func Build(ctx context.Context, dir string, o Options) (*Data, error) {
 	if base == nil {
 		d.Missing["surprisal_baseline"] = "no best baseline to set beside the model: run 'weft eval --run " + dir + "', then 'weft report --run " + dir + "'"
 	}
-	s, err := NewSurprisal(ctx, o.Model, base, baseName, split.Name, split.Tokens.Ints(), split.TokenChars(nil), o.Stretch)
+	h := runs.HeldOut(split, o.HeldOutTokens)
+	s, err := NewSurprisal(ctx, o.Model, base, baseName, split.Name, h.Tokens, h.Chars, o.Stretch)
 	if err != nil {
 		return nil, err
 	}

@@ -83,6 +83,9 @@ type Comparison struct {
 	// intervals are shrunk or missing.
 	BestBaselineValBPC float64 `json:"-"`
 	IntervalNote       string  `json:"-"`
+	// ScoredNote says the held-out splits were scored on their first
+	// tokens only (eval's note).
+	ScoredNote string `json:"scored_note,omitempty"`
 	// Rows are every row, best first; Bars the best row of each kind
 	// (model family), best first.
 	Rows      []eval.Result `json:"rows"`
@@ -258,7 +261,7 @@ func readComparison(reportDir string) (*Comparison, error) {
 			return nil, fmt.Errorf("comparison %s: %w", path, err)
 		}
 		c := &Comparison{Split: cmp.Split, BestBaseline: cmp.BestBaseline, Rows: cmp.Rows, IntervalNote: cmp.IntervalNote,
-			BestBaselineValBPC: cmp.BestBaselineValBPC}
+			BestBaselineValBPC: cmp.BestBaselineValBPC, ScoredNote: cmp.ScoredNote}
 		if c.Split == "" {
 			c.Split = split
 		}
@@ -340,6 +343,9 @@ func intervalWarnings(c *Comparison, r *configs.Run) []string {
 		// A comparison from before eval shrank the blocks itself.
 		out = append(out, fmt.Sprintf("the %s split has %d characters, fewer than %d bootstrap blocks of %d: its intervals are too narrow to trust",
 			c.Split, c.Rows[0].Characters, eval.MinBootstrapBlocks, block))
+	}
+	if c.ScoredNote != "" {
+		out = append(out, c.ScoredNote)
 	}
 	var collapsed []string
 	for _, row := range c.Rows {

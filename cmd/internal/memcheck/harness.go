@@ -97,7 +97,9 @@ var VerbNames = []string{"prepare", "train", "baselines", "eval"}
 // with the generated corpus: n-grams up to order 3 over its alphabet of
 // about 65 characters (at most 65³ = 274,625 trigram counts, fewer in
 // fact), Markov chains of order 1, one 8-state HMM fitted on at most
-// 100,000 tokens, and 200 bootstrap samples; with defaultLadder, the
+// 100,000 tokens, 200 bootstrap samples, and the comparison scoring the
+// first 100,000 tokens of each held-out split (evaluation.heldout_tokens,
+// so that the check's small corpora already reach the cap); with defaultLadder, the
 // default ladder instead.
 func RunFile(corpus, tokenizer string, steps int, defaultLadder bool) string {
 	ladder := shortLadder
@@ -132,7 +134,8 @@ every_minutes = 0
 `, corpus, tokenizer, steps, ladder)
 }
 
-const shortLadder = `ngram_orders = [1, 2, 3]
+const shortLadder = `heldout_tokens = 100000
+ngram_orders = [1, 2, 3]
 ngram_smoothers = ["witten_bell", "kneser_ney"]
 markov_orders = [1]
 hmm_states = [8]
