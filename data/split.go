@@ -97,18 +97,25 @@ func (s *Split) WindowChars(dst, ids []int, off int) []int {
 // CountedCharacters is the sum of TokenChars, the denominator of bits
 // per character: Characters for every tokenizer but symbols, whose
 // whitespace between symbols belongs to no token and is not counted.
-func (s *Split) CountedCharacters() int64 {
-	var n int64
-	s.Tokens.Each(1<<16, func(_ int, ids []int) error {
+func (s *Split) CountedCharacters() int64 { return s.PrefixCharacters(s.Tokens.Len()) }
+
+// PrefixCharacters is the sum of TokenChars over the first n tokens,
+// counted window by window.
+func (s *Split) PrefixCharacters(n int) int64 {
+	var c int64
+	s.Tokens.Slice(0, n).Each(1<<16, func(_ int, ids []int) error {
 		for _, id := range ids {
-			n += int64(s.vocab.chars[id])
+			c += int64(s.vocab.chars[id])
 		}
 		return nil
 	})
 	for _, o := range s.odd {
-		n += int64(o.Chars) - int64(s.vocab.chars[s.Tokens.At(int(o.Pos))])
+		if o.Pos >= int64(n) {
+			break
+		}
+		c += int64(o.Chars) - int64(s.vocab.chars[s.Tokens.At(int(o.Pos))])
 	}
-	return n
+	return c
 }
 
 // Streams lays the split out as n continuous streams for evaluation: the

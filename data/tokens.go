@@ -28,7 +28,12 @@ type Tokens struct {
 }
 
 // NewTokens returns the ids as a Tokens. It keeps ids, not a copy.
-func NewTokens(ids []int) *Tokens { return &Tokens{n: len(ids), ints: ids} }
+func NewTokens(ids []int) *Tokens {
+	if ids == nil {
+		ids = []int{} // in memory all the same
+	}
+	return &Tokens{n: len(ids), ints: ids}
+}
 
 // packedTokens views n ids of width bytes each at the start of b.
 func packedTokens(b []byte, width, n int) *Tokens {
@@ -68,6 +73,9 @@ const tokenReadChunk = 1 << 16
 func (t *Tokens) Read(dst []int, off int) {
 	if off < 0 || off > t.Len() || len(dst) > t.Len()-off {
 		panic(fmt.Sprintf("data.Tokens: read [%d,%d) out of range [0,%d)", off, off+len(dst), t.Len()))
+	}
+	if len(dst) == 0 {
+		return
 	}
 	switch {
 	case t.ints != nil:

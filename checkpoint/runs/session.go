@@ -126,7 +126,8 @@ type session struct {
 	lastSave       time.Time
 	lastValidation time.Time // of this invocation, or its start
 	lastSavedStep  int64
-	valChars       int64 // characters of the validation split, the bits-per-character denominator
+	valChars       int64        // characters of the validation tokens scored, the bits-per-character denominator
+	valTokens      *data.Tokens // the validation tokens scored: the split, or its first evaluation.heldout_tokens
 
 	// Since the last metrics line.
 	winLoss   float64
@@ -709,21 +710,27 @@ func (s *session) validate() error {
 	if v.Tokens.Len() == 0 {
 		return nil
 	}
+	if s.valTokens == nil {
+		// The tokens eval.Compare scores on validation, and its
+		// denominator: the characters they cover (for symbols, without
+		// the whitespace between them).
+		s.valTokens = v.Tokens
+		if max := s.r.Evaluation.HeldOutTokens; max > 0 && v.Tokens.Len() > max {
+			s.valTokens = v.Tokens.Slice(0, max)
+			s.info("validation scores the first %d of the %d validation tokens (evaluation.heldout_tokens)", max, v.Tokens.Len())
+		}
+		s.valChars = v.PrefixCharacters(s.valTokens.Len())
+	}
 	// The model scores with one stream (it is never given SetScoring), so
 	// the positions come in order and the tally sums them as eval.NewResult
 	// sums a slice: the split is read window by window, never held.
 	var tally eval.Tally
-	if err := s.net.LogProbsEach(s.ctx, v.Tokens, func(_ int, lp float64) { tally.Add(lp) }); err != nil {
+	if err := s.net.LogProbsEach(s.ctx, s.valTokens, func(_ int, lp float64) { tally.Add(lp) }); err != nil {
 		if s.stopped() {
 			s.prog.ValidationDue = true
 			return nil
 		}
 		return fmt.Errorf("validation at step %d: %w", step, err)
-	}
-	if s.valChars == 0 {
-		// The denominator eval.Compare uses: the characters the tokens
-		// cover (for symbols, without the whitespace between them).
-		s.valChars = v.CountedCharacters()
 	}
 	res := tally.Result("rnn", "rnn", data.SplitValidation, int(s.valChars))
 	val := Validation{Step: step, CrossEntropy: res.CrossEntropyNats / float64(res.Tokens), Perplexity: res.Perplexity, BitsPerChar: res.BitsPerChar}
