@@ -65,6 +65,7 @@ func Evaluate(ctx context.Context, r *configs.Run, d *Dir, o EvalOptions) (*eval
 	if err != nil {
 		return nil, err
 	}
+	defer ds.Close()
 	ladder, err := FitBaselines(ctx, r.Evaluation.Config, ds, d.Baselines(), o.Progress, o.Note)
 	if err != nil {
 		return nil, err

@@ -178,6 +178,9 @@ func Train(ctx context.Context, r *configs.Run, dir string, o TrainOptions) (*Re
 	ents, _ := checkpoint.List(s.ckdir)
 	fresh := len(ents) == 0
 	res, err := s.run()
+	if s.ds != nil {
+		s.ds.Close() // the mapped token cache
+	}
 	end := Outcome{Time: o.Now()}
 	switch {
 	case err != nil:

@@ -223,6 +223,7 @@ func (sw *Sweep) finish(ctx context.Context, e Entry, r *configs.Run, dir string
 	if err != nil {
 		return err
 	}
+	defer ds.Close()
 	ladder, err := sw.SharedBaselines(ctx, r, ds, note)
 	if err != nil {
 		return err
