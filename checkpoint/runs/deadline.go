@@ -83,7 +83,11 @@ func (s *session) plan(timed int, secPerStep, tokPerSec float64) error {
 	now := s.o.Now()
 	step := s.tr.Steps()
 	left := s.deadline.Sub(now)
-	valSec := float64(s.ds.Validation.Tokens.Len()) / (3 * tokPerSec)
+	valTokens := s.ds.Validation.Tokens.Len()
+	if max := s.r.Evaluation.HeldOutTokens; max > 0 {
+		valTokens = min(valTokens, max) // what a validation scores
+	}
+	valSec := float64(valTokens) / (3 * tokPerSec)
 	tokPerStep := tokPerSec * secPerStep
 	var over float64
 	if every := s.r.Evaluation.EverySteps; every > 0 {
