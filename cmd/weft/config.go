@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"os"
 	"path/filepath"
 	"runtime"
 	"strings"
@@ -27,6 +28,7 @@ type configNewOptions struct {
 	Speed     float64
 
 	presetGiven bool
+	ctx         context.Context // the command's, cancelled by the stopping signals
 }
 
 type configShowOptions struct {
@@ -68,6 +70,7 @@ func newConfigNewCmd(d *deps, runF func(*configNewOptions) error) *cobra.Command
 		Args:              rangeArgs(0, 1, "at most one preset name"),
 		ValidArgsFunction: completePresets,
 		RunE: func(cmd *cobra.Command, args []string) error {
+			opts.ctx = cmd.Context()
 			opts.Preset = configs.DefaultPreset
 			if len(args) == 1 {
 				opts.Preset, opts.presetGiven = args[0], true
@@ -137,10 +140,22 @@ func runConfigFit(opts *configNewOptions) error {
 	if opts.Tokenizer == "word" {
 		dc.MaxVocabulary = 10000
 	}
-	ds, err := data.PrepareEnv(context.Background(), dc, data.Env{Stdin: opts.In})
+	// The corpus is encoded into a temporary cache folder, so that a
+	// corpus larger than memory is spooled and mapped, not held.
+	tmp, err := os.MkdirTemp("", "weft-fit-*")
+	if err != nil {
+		return fmt.Errorf("--fit: temporary folder: %w", err)
+	}
+	defer os.RemoveAll(tmp)
+	ctx := opts.ctx
+	if ctx == nil {
+		ctx = context.Background()
+	}
+	ds, err := data.PrepareEnv(ctx, dc, data.Env{CacheDir: tmp, Stdin: opts.In})
 	if err != nil {
 		return err
 	}
+	defer ds.Close()
 	fit, err := configs.Size(configs.FitInput{Budget: opts.Fit, CorpusTokens: int64(ds.Train.Tokens.Len()), VocabSize: ds.Vocab.Len(),
 		Tokenizer: opts.Tokenizer, Cores: opts.Cores, TokensPerSecond: opts.Speed})
 	if err != nil {
