@@ -278,7 +278,7 @@ func (s *BatchScorer[T]) score(ctx context.Context, dst [][]float64, seqs [][]in
 					dst[i][pos] = s.lp[r]
 				} else {
 					row := w.logits[r*V : (r+1)*V]
-					dst[i][pos] = float64(row[seqs[i][pos]]) - logSumExpCmp(row)
+					dst[i][pos] = logSoftmaxAt(row, seqs[i][pos])
 				}
 			}
 		}
@@ -373,23 +373,4 @@ func (s *BatchScorer[T]) save(c *Carry[T], k, b int, seq []int) {
 		}
 	}
 	c.last = seq[len(seq)-1]
-}
-
-// logSumExpCmp is logSumExp with the maximum found by comparisons rather
-// than math.Max: the same bits for every input (a maximum of ±0 differs at
-// most in its sign, which changes neither v − max, nor exp of it, nor
-// max + ln Σ with the sum at least 1; a NaN makes both NaN), at a fraction
-// of the cost, which matters when every scored token pays it.
-func logSumExpCmp[T Float](row []T) float64 {
-	mx := math.Inf(-1)
-	for _, v := range row {
-		if f := float64(v); f > mx {
-			mx = f
-		}
-	}
-	var s float64
-	for _, v := range row {
-		s += math.Exp(float64(v) - mx)
-	}
-	return mx + math.Log(s)
 }

@@ -163,34 +163,3 @@ func TestLogProbsBatchErrors(t *testing.T) {
 		t.Error("cancelled context: got no error")
 	}
 }
-
-// TestLogSumExpCmp: the comparison maximum gives logSumExp's bits on
-// ordinary rows and on the edge cases its doc comment argues about.
-func TestLogSumExpCmp(t *testing.T) {
-	inf, nan := math.Inf(1), math.NaN()
-	negz := math.Copysign(0, -1)
-	rows := [][]float64{
-		{0.5, -1, 3, 2.25},
-		{negz, 0, negz},
-		{0, negz},
-		{negz, negz},
-		{-inf, -inf},
-		{inf, 1},
-		{1, nan, 2},
-		randomRow(97),
-	}
-	for i, row := range rows {
-		got, want := logSumExpCmp(row), logSumExp(row)
-		if math.Float64bits(got) != math.Float64bits(want) && !(math.IsNaN(got) && math.IsNaN(want)) {
-			t.Errorf("row %d: got %v, want %v", i, got, want)
-		}
-	}
-}
-
-func randomRow(n int) []float64 {
-	row := make([]float64, n)
-	for i, tok := range randomTokens(n, 1000, 3) {
-		row[i] = float64(tok)/37 - 13
-	}
-	return row
-}
