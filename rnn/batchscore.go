@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"math"
 	"slices"
+
+	"weft/rnn/linalg"
 )
 
 // Batched scoring: many sequences at once as the parallel streams of one
@@ -94,6 +96,7 @@ type BatchScorer[T Float] struct {
 	in      []int
 	tg      []int
 	lp      []float64
+	table   []T // the first layer's input pre-activations of every token (see useTable)
 }
 
 // NewBatchScorer returns a scorer of up to streams sequences per pass,
@@ -115,12 +118,19 @@ func (m *Model[T]) NewBatchScorer(streams int) *BatchScorer[T] {
 // LogProbs writes for each sequence alone (with the default exact
 // scoring), computed up to BatchStreams sequences at a time as the
 // parallel streams of one forward pass. len(dst[i]) must equal
-// len(seqs[i]).
+// len(seqs[i]). Concurrent calls are safe; the model keeps the scorers
+// of finished calls for later ones, so that a caller scoring batch after
+// batch does not allocate a pass's buffers each time.
 func (m *Model[T]) LogProbsBatch(ctx context.Context, dst [][]float64, seqs [][]int) error {
 	if len(seqs) == 0 {
 		return nil
 	}
-	return m.NewBatchScorer(min(len(seqs), BatchStreams)).LogProbs(ctx, dst, seqs, nil)
+	s, _ := m.scorers.Get().(*BatchScorer[T])
+	if s == nil {
+		s = m.NewBatchScorer(BatchStreams)
+	}
+	defer m.scorers.Put(s)
+	return s.LogProbs(ctx, dst, seqs, nil)
 }
 
 // LogProbs writes to dst[i][j] the natural logarithm of
@@ -198,6 +208,14 @@ func (s *BatchScorer[T]) score(ctx context.Context, dst [][]float64, seqs [][]in
 		}
 	}
 	slices.SortStableFunc(s.order, func(a, b int) int { return steps[b] - steps[a] })
+	total := 0
+	for _, i := range s.order {
+		total += steps[i]
+	}
+	w.inTable = nil
+	if s.useTable(total) {
+		w.inTable = s.inputTable()
+	}
 	// read is the token stream i reads at step t; target the position of
 	// seqs[i] predicted at step t.
 	read := func(i, t int) int {
@@ -217,7 +235,7 @@ func (s *BatchScorer[T]) score(ctx context.Context, dst [][]float64, seqs [][]in
 	}
 	queue := s.order
 	s.rows, s.done = s.rows[:0], s.done[:0]
-	defer func() { w.B = s.streams }()
+	defer func() { w.B, w.inTable = s.streams, nil }()
 	// take puts the next waiting sequence in row b (appending a row when b
 	// is len(s.rows)), loading its state into row block 0.
 	take := func(b int) {
@@ -373,4 +391,48 @@ func (s *BatchScorer[T]) save(c *Carry[T], k, b int, seq []int) {
 		}
 	}
 	c.last = seq[len(seq)-1]
+}
+
+// useTable says whether the passes of a call with steps forward steps in
+// all read the first layer's input pre-activations from a table of every
+// token (inputTable) rather than computing them position by position: when
+// the steps are at least twice the vocabulary, so that the table's V rows
+// cost at most half the rows they replace, and the table is no larger than
+// the pre-activation buffer of one pass. The table is made afresh for each
+// call, so it always holds the model's current weights.
+func (s *BatchScorer[T]) useTable(steps int) bool {
+	V := s.m.vocab
+	return steps >= 2*V && V <= s.streams*scoreChunk
+}
+
+// inputTable computes into s.table the first layer's input pre-activations
+// of every token id v, row v of
+//
+//	W_ih e_v + b   (embedding input: e_v row v of the embedding)
+//	W_ih[:, v] + b (one-hot input),
+//
+// with the operations forward runs for a position that reads v: the same
+// linalg.Gemm (which gives a row the same bits whichever row of a product
+// it is and however many rows there are) and the same bias addition, so a
+// pass that copies row v gives every number a pass computing it gives.
+func (s *BatchScorer[T]) inputTable() []T {
+	m := s.m
+	lp := &m.layers[0]
+	V, G := m.vocab, lp.g
+	if cap(s.table) < V*G {
+		s.table = make([]T, V*G)
+	}
+	tb := s.table[:V*G]
+	if E := m.cfg.EmbeddingSize; E > 0 {
+		linalg.Gemm(m.pool, false, true, V, G, lp.in, 1, m.emb, lp.in, lp.wIn, lp.in, 0, tb, G)
+		addRowsPool(m.pool, &s.w.layers[0].cw.mat, tb, lp.bias, V, G, G)
+		return tb
+	}
+	for v := 0; v < V; v++ {
+		row := tb[v*G : (v+1)*G]
+		for j := range row {
+			row[j] = lp.wIn[j*V+v] + lp.bias[j]
+		}
+	}
+	return tb
 }

@@ -22,6 +22,11 @@ var batchCases = []batchCase{
 	{"lstm-onehot-2layers", func(c *Config) { c.Cell, c.EmbeddingSize, c.Layers = "lstm", 0, 2 }, 11},
 	{"lstm-projection", func(c *Config) { c.Cell, c.ProjectionSize = "lstm", 7 }, 11},
 	{"lstm-class", func(c *Config) { c.Cell, c.OutputLayer, c.OutputClasses = "lstm", "class", 4 }, 23},
+	// A vocabulary wider than the kernels' row block (MC = 192 on
+	// AVX-512): the input table (inputTable) is a product of several
+	// blocks of rows, used where the batch has 7 or more streams.
+	{"lstm-wide-vocab", func(c *Config) { c.Cell = "lstm" }, 300},
+	{"gru-onehot-wide-vocab", func(c *Config) { c.Cell, c.EmbeddingSize = "gru", 0 }, 300},
 }
 
 // batchSeqs are sequences of lengths that exercise every boundary: empty,
