@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"math"
 	"slices"
+
+	"weft/rnn/linalg"
 )
 
 // Batched scoring: many sequences at once as the parallel streams of one
@@ -37,9 +39,13 @@ import (
 const BatchStreams = 64
 
 // minPass is the fewest steps a batched pass runs while any of its
-// streams has that many left: each pass packs the recurrent weights once
-// (see packRec), which a pass of one or two steps does not repay.
-const minPass = 16
+// streams has that many left. A row that ends inside a pass reads padding
+// to the pass's end: for the demo log's lines (144 characters on average,
+// in calls of 256) 4.7% of the steps computed at 16, 1.0% at 4 (counted by
+// replaying the passes on the line lengths). Each pass also pays its start
+// (states carried, rows refilled); the recurrent weights are packed once
+// per call (holdPacks).
+const minPass = 4
 
 // Carry is the carried state of one scored stream: the recurrent state
 // after every token it has been given but the last, and that last token,
@@ -94,6 +100,7 @@ type BatchScorer[T Float] struct {
 	in      []int
 	tg      []int
 	lp      []float64
+	table   []T // the first layer's input pre-activations of every token (see useTable)
 }
 
 // NewBatchScorer returns a scorer of up to streams sequences per pass,
@@ -115,12 +122,19 @@ func (m *Model[T]) NewBatchScorer(streams int) *BatchScorer[T] {
 // LogProbs writes for each sequence alone (with the default exact
 // scoring), computed up to BatchStreams sequences at a time as the
 // parallel streams of one forward pass. len(dst[i]) must equal
-// len(seqs[i]).
+// len(seqs[i]). Concurrent calls are safe; the model keeps the scorers
+// of finished calls for later ones, so that a caller scoring batch after
+// batch does not allocate a pass's buffers each time.
 func (m *Model[T]) LogProbsBatch(ctx context.Context, dst [][]float64, seqs [][]int) error {
 	if len(seqs) == 0 {
 		return nil
 	}
-	return m.NewBatchScorer(min(len(seqs), BatchStreams)).LogProbs(ctx, dst, seqs, nil)
+	s, _ := m.scorers.Get().(*BatchScorer[T])
+	if s == nil {
+		s = m.NewBatchScorer(BatchStreams)
+	}
+	defer m.scorers.Put(s)
+	return s.LogProbs(ctx, dst, seqs, nil)
 }
 
 // LogProbs writes to dst[i][j] the natural logarithm of
@@ -198,6 +212,14 @@ func (s *BatchScorer[T]) score(ctx context.Context, dst [][]float64, seqs [][]in
 		}
 	}
 	slices.SortStableFunc(s.order, func(a, b int) int { return steps[b] - steps[a] })
+	total := 0
+	for _, i := range s.order {
+		total += steps[i]
+	}
+	w.inTable = nil
+	if s.useTable(total) {
+		w.inTable = s.inputTable()
+	}
 	// read is the token stream i reads at step t; target the position of
 	// seqs[i] predicted at step t.
 	read := func(i, t int) int {
@@ -217,7 +239,10 @@ func (s *BatchScorer[T]) score(ctx context.Context, dst [][]float64, seqs [][]in
 	}
 	queue := s.order
 	s.rows, s.done = s.rows[:0], s.done[:0]
-	defer func() { w.B = s.streams }()
+	defer func() {
+		w.B, w.inTable = s.streams, nil
+		s.holdPacks(false)
+	}()
 	// take puts the next waiting sequence in row b (appending a row when b
 	// is len(s.rows)), loading its state into row block 0.
 	take := func(b int) {
@@ -256,6 +281,7 @@ func (s *BatchScorer[T]) score(ctx context.Context, dst [][]float64, seqs [][]in
 			}
 		}
 		w.forward(m.pool, s.in, c, false)
+		s.holdPacks(true)
 		if w.cls != nil {
 			for t := 0; t < c; t++ {
 				for b, i := range s.rows {
@@ -278,7 +304,7 @@ func (s *BatchScorer[T]) score(ctx context.Context, dst [][]float64, seqs [][]in
 					dst[i][pos] = s.lp[r]
 				} else {
 					row := w.logits[r*V : (r+1)*V]
-					dst[i][pos] = float64(row[seqs[i][pos]]) - logSumExpCmp(row)
+					dst[i][pos] = logSoftmaxAt(row, seqs[i][pos])
 				}
 			}
 		}
@@ -375,21 +401,59 @@ func (s *BatchScorer[T]) save(c *Carry[T], k, b int, seq []int) {
 	c.last = seq[len(seq)-1]
 }
 
-// logSumExpCmp is logSumExp with the maximum found by comparisons rather
-// than math.Max: the same bits for every input (a maximum of ±0 differs at
-// most in its sign, which changes neither v − max, nor exp of it, nor
-// max + ln Σ with the sum at least 1; a NaN makes both NaN), at a fraction
-// of the cost, which matters when every scored token pays it.
-func logSumExpCmp[T Float](row []T) float64 {
-	mx := math.Inf(-1)
-	for _, v := range row {
-		if f := float64(v); f > mx {
-			mx = f
+// useTable says whether the passes of a call with steps forward steps in
+// all read the first layer's input pre-activations from a table of every
+// token (inputTable) rather than computing them position by position: when
+// the steps are at least twice the vocabulary, so that the table's V rows
+// cost at most half the rows they replace, and the table is no larger than
+// the pre-activation buffer of one pass. The table is made afresh for each
+// call, so it always holds the model's current weights.
+func (s *BatchScorer[T]) useTable(steps int) bool {
+	V := s.m.vocab
+	return steps >= 2*V && V <= s.streams*scoreChunk
+}
+
+// inputTable computes into s.table the first layer's input pre-activations
+// of every token id v, row v of
+//
+//	W_ih e_v + b   (embedding input: e_v row v of the embedding)
+//	W_ih[:, v] + b (one-hot input),
+//
+// with the operations forward runs for a position that reads v: the same
+// linalg.Gemm (which gives a row the same bits whichever row of a product
+// it is and however many rows there are) and the same bias addition, so a
+// pass that copies row v gives every number a pass computing it gives.
+func (s *BatchScorer[T]) inputTable() []T {
+	m := s.m
+	lp := &m.layers[0]
+	V, G := m.vocab, lp.g
+	if cap(s.table) < V*G {
+		s.table = make([]T, V*G)
+	}
+	tb := s.table[:V*G]
+	if E := m.cfg.EmbeddingSize; E > 0 {
+		linalg.Gemm(m.pool, false, true, V, G, lp.in, 1, m.emb, lp.in, lp.wIn, lp.in, 0, tb, G)
+		addRowsPool(m.pool, &s.w.layers[0].cw.mat, tb, lp.bias, V, G, G)
+		return tb
+	}
+	for v := 0; v < V; v++ {
+		row := tb[v*G : (v+1)*G]
+		for j := range row {
+			row[j] = lp.wIn[j*V+v] + lp.bias[j]
 		}
 	}
-	var s float64
-	for _, v := range row {
-		s += math.Exp(float64(v) - mx)
+	return tb
+}
+
+// holdPacks keeps (on) the recurrent weights the passes of this call have
+// packed for the passes after, or lets the next pass pack them again (off,
+// at the end of a call: the weights may change before the next). A packed
+// product gives the bits of the unpacked one (mulRec), so which passes
+// pack changes no number.
+func (s *BatchScorer[T]) holdPacks(on bool) {
+	for l := range s.w.layers {
+		for k := range s.w.layers[l].cw.pack {
+			s.w.layers[l].cw.pack[k].held = on
+		}
 	}
-	return mx + math.Log(s)
 }

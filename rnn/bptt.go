@@ -55,6 +55,11 @@ type work[T Float] struct {
 
 	cls  *classWork[T] // class layer buffers, nil for the full softmax
 	full bool          // class layer: also compute the whole distribution into logits (Streams)
+
+	// inTable, when set (by a BatchScorer, for passes without dropout), is
+	// the first layer's input pre-activations of every token id, V×G:
+	// forward copies a token's row instead of computing it.
+	inTable []T
 }
 
 // newWork sizes buffers for B streams and up to maxSteps steps. With train
@@ -170,7 +175,11 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 	w.dropping = dropout && w.train && m.cfg.Dropout > 0
 	t0 := w.times.start()
 	var in []T
-	if E > 0 {
+	table := w.inTable
+	if w.dropping {
+		table = nil
+	}
+	if E > 0 && table == nil {
 		x := w.x[:R*E]
 		for r, tok := range inputs[:R] {
 			copy(x[r*E:(r+1)*E], m.emb[tok*E:(tok+1)*E])
@@ -185,7 +194,11 @@ func (w *work[T]) forward(p *linalg.Pool, inputs []int, steps int, dropout bool)
 		G := lp.g
 		xg := lw.xg[:R*G]
 		lw.in = in
-		if in != nil {
+		if l == 0 && table != nil {
+			for r, tok := range inputs[:R] {
+				copy(xg[r*G:(r+1)*G], table[tok*G:(tok+1)*G])
+			}
+		} else if in != nil {
 			linalg.Gemm(p, false, true, R, G, lp.in, 1, in, lp.in, lp.wIn, lp.in, 0, xg, G)
 			addRowsPool(p, &lw.cw.mat, xg, lp.bias, R, G, G)
 		} else {

@@ -65,10 +65,13 @@ type cellWork[T Float] struct {
 
 // recPacked is op(U) packed by linalg.PackB for the float32 kernels; ok is
 // false when the product goes through linalg.Gemm instead (float64, the
-// openblas build).
+// openblas build). held says that a packed op(U) stays valid across
+// passes (a BatchScorer sets it for the rest of a call, during which the
+// weights do not change): packRec then leaves it as it is.
 type recPacked struct {
-	pb linalg.PackedB
-	ok bool
+	pb   linalg.PackedB
+	ok   bool
+	held bool
 }
 
 // packedKernels says whether linalg.GemmPacked runs the same kernel as
@@ -84,6 +87,9 @@ var packedKernels = linalg.KernelName() != "openblas"
 // packs each panel into L1 just before it uses it, which beats writing the
 // whole packed matrix out and reading it back once.
 func packRec[T Float](rp *recPacked, steps int, tU bool, k, n int, u []T, ldu int) {
+	if rp.held && rp.ok {
+		return
+	}
 	rp.ok = false
 	if steps < 2 || !packedKernels || !isF32[T]() {
 		return

@@ -58,17 +58,11 @@ func lstmForwardRows[T Float](r *rowLoop[T], lo, hi int) {
 		off := b * H
 		cp := lw.c[t*n+off : t*n+off+H]
 		cn := lw.c[(t+1)*n+off : (t+1)*n+off+H]
-		i, f, g, cp = i[:len(cn)], f[:len(cn)], g[:len(cn)], cp[:len(cn)]
-		for j := range cn {
-			cn[j] = f[j]*cp[j] + i[j]*g[j]
-		}
+		linalg.MulAddMul(cn, f, cp, i, g) // c_t = f⊙c_{t−1} + i⊙g
 		tcb := lw.aux[t*n+off : t*n+off+H]
 		linalg.Tanh(tcb, cn)
 		hb := lw.h[(t+1)*n+off : (t+1)*n+off+H]
-		o, tcb = o[:len(hb)], tcb[:len(hb)]
-		for j := range hb {
-			hb[j] = o[j] * tcb[j]
-		}
+		linalg.Mul(hb, o, tcb) // h_t = o⊙tanh(c_t)
 	}
 }
 

@@ -231,6 +231,14 @@
 // token at a time for sampling and beam search (Feed, LogProbs, Select,
 // Clone), allocating nothing per token.
 //
+// A BatchScorer (and LogProbsBatch) scores many sequences side by side,
+// each with its own state and length, with LogProbs' numbers bit for bit.
+// Every path computes ln softmax(row)[j] as row[j] − linalg.LogSumExp(row):
+// float64, maximum first, the exponentials math.Exp's and added in order.
+// A batched call also reads the first layer's input pre-activations from a
+// table of every token and packs the recurrent weights once; both give the
+// bits of the position-by-position products.
+//
 // # Memory
 //
 // Training one window of R = B·T positions stores, in scalars (4 bytes each

@@ -3,7 +3,8 @@ package rnn
 import (
 	"context"
 	"fmt"
-	"math"
+
+	"weft/rnn/linalg"
 )
 
 // scoreChunk is the number of steps LogProbs runs per forward pass.
@@ -206,14 +207,8 @@ func logSoftmaxAt[T Float](row []T, j int) float64 {
 	return float64(row[j]) - logSumExp(row)
 }
 
-func logSumExp[T Float](row []T) float64 {
-	mx := math.Inf(-1)
-	for _, v := range row {
-		mx = math.Max(mx, float64(v))
-	}
-	var s float64
-	for _, v := range row {
-		s += math.Exp(float64(v) - mx)
-	}
-	return mx + math.Log(s)
-}
+// logSumExp is linalg.LogSumExp: ln Σ exp(row) in float64, the maximum
+// subtracted first, every term math.Exp's and added in order, so that
+// every scoring path (LogProbs, the batched scorer, the class layer, the
+// streams) gets the same bits from it.
+func logSumExp[T Float](row []T) float64 { return linalg.LogSumExp(row) }

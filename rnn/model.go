@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"sync"
 
 	"weft/rnn/linalg"
 )
@@ -68,6 +69,8 @@ type Model[T Float] struct {
 	classB, gClassB []T     // C
 	classStart      []int   // C+1 class boundaries (FrequencyClasses)
 	classOf         []int32 // V: class of each id
+
+	scorers sync.Pool // idle *BatchScorer[T] of BatchStreams streams, for LogProbsBatch
 }
 
 // NewModel builds a model of the given shape for token ids 0..vocabSize-1

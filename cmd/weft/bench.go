@@ -32,13 +32,17 @@ type benchOptions struct {
 
 	Sweep        bool  // --threads-sweep (bench_sweep.go)
 	SweepThreads []int // --sweep-threads; implies Sweep
+
+	Score    string // --score FILE: training against weft score side by side (bench_score.go)
+	Rounds   int    // --rounds, with --score
+	vocabSet bool   // --vocab was given
 }
 
 func newBenchCmd(d *deps, runF func(*benchOptions) error) *cobra.Command {
 	opts := &benchOptions{}
 	cmd := &cobra.Command{
-		Use:     "bench [CONFIG] [--set key=value]... [--vocab N] [--windows N] [--threads N | --threads-sweep] [--json]",
-		Example: "  bin/weft bench --threads-sweep",
+		Use:     "bench [CONFIG] [--set key=value]... [--vocab N] [--windows N] [--threads N | --threads-sweep] [--score FILE [--rounds N]] [--json]",
+		Example: "  bin/weft bench --threads-sweep\n  bin/weft bench --threads 1 --score app.log",
 		Short:   "Measure training speed on synthetic tokens: tokens/s, GFLOP/s, time per phase, peak memory",
 		Long: `Build the model a run file describes (without CONFIG, the defaults: a
 1-layer LSTM with hidden_size 256, embedding_size 64, batch_size 32 and
@@ -56,7 +60,16 @@ one JSON object.
 --threads-sweep runs the same measurement at 1, 2, 4, ... threads up to the
 number of cores (or at the counts --sweep-threads lists) and prints tokens
 per second at each with the speed-up over the first count, the fastest
-setting, and the count training.threads = 0 would pick.`,
+setting, and the count training.threads = 0 would pick.
+
+--score FILE sets training beside scoring on the same model and threads:
+the model gets the vocabulary of FILE (learnt with the run file's data
+settings) and trains on synthetic ids below it; each of --rounds rounds
+times --windows training windows and one scoring of FILE line by line, as
+'weft score --threads N FILE' scores it (the rows formatted and discarded),
+the two in alternating order. It prints both speeds per round, the ratio
+scoring tokens/s over training tokens/s, its median and range, and the
+load average.`,
 		Args: rangeArgs(0, 1, "at most one run file"),
 		RunE: func(cmd *cobra.Command, args []string) error {
 			opts.cmdContext = cmdContext{cmd.Context(), d}
@@ -66,6 +79,7 @@ setting, and the count training.threads = 0 would pick.`,
 			if !cmd.Flags().Changed("threads") {
 				opts.Threads = -1
 			}
+			opts.vocabSet = cmd.Flags().Changed("vocab")
 			if runF != nil {
 				return runF(opts)
 			}
@@ -81,6 +95,8 @@ setting, and the count training.threads = 0 would pick.`,
 	f.BoolVar(&opts.JSON, "json", false, "print the measurements as JSON")
 	f.BoolVar(&opts.Sweep, "threads-sweep", false, "measure at 1, 2, 4, ... threads up to the core count")
 	f.IntSliceVar(&opts.SweepThreads, "sweep-threads", nil, "thread counts for --threads-sweep, comma-separated (implies it)")
+	f.StringVar(&opts.Score, "score", "", "also score this text file line by line as weft score does, in rounds alternating with the training windows, and print scoring tokens/s over training tokens/s")
+	f.IntVar(&opts.Rounds, "rounds", 5, "rounds of training windows and scoring, with --score")
 	return cmd
 }
 
@@ -133,6 +149,12 @@ func runBench(opts *benchOptions) error {
 		return usagef("--warmup must be 0 or more, got %d", opts.Warmup)
 	case opts.Threads < -1:
 		return usagef("--threads must be 0 (one per core) or more, got %d", opts.Threads)
+	case opts.Rounds < 1:
+		return usagef("--rounds must be at least 1, got %d", opts.Rounds)
+	case opts.Score != "" && (opts.Sweep || len(opts.SweepThreads) > 0):
+		return usagef("--score measures one thread count; give --threads N, not --threads-sweep")
+	case opts.Score != "" && opts.vocabSet:
+		return usagef("--vocab sizes the synthetic tokens; with --score the vocabulary is that of the scored file")
 	}
 	r, err := benchRun(opts.Config, opts.Set)
 	if err != nil {
@@ -146,6 +168,9 @@ func runBench(opts *benchOptions) error {
 	}
 	if r.Training.Threads == 0 { // as weft train chooses
 		r.Training.Threads = rnn.ChooseThreads(r.Model, r.Training.BatchSize, runtime.NumCPU())
+	}
+	if opts.Score != "" {
+		return runBenchScore(opts, r)
 	}
 	rep, err := bench(opts, r)
 	if err != nil {
