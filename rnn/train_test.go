@@ -278,11 +278,19 @@ func TestSteadyStateAllocs(t *testing.T) {
 						t.Fatal(err)
 					}
 				}
-				if allocs := testing.AllocsPerRun(5, func() {
-					if _, err := tr.Step(ctx, w); err != nil {
-						t.Fatal(err)
-					}
-				}); allocs != 0 {
+				// The fewest of three measurements: on a loaded machine
+				// the runtime may allocate for its own scheduling (a new
+				// thread's wait records) during one of them, while an
+				// allocation of the step itself recurs in every one.
+				allocs := math.Inf(1)
+				for try := 0; try < 3 && allocs != 0; try++ {
+					allocs = min(allocs, testing.AllocsPerRun(5, func() {
+						if _, err := tr.Step(ctx, w); err != nil {
+							t.Fatal(err)
+						}
+					}))
+				}
+				if allocs != 0 {
 					t.Errorf("Trainer.Step on %d threads: %v allocations per window, want 0", pool.Threads(), allocs)
 				}
 			}
