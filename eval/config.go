@@ -64,7 +64,8 @@ type Config struct {
 
 	// HMMMaxTokens trains each hidden Markov model on at most this many
 	// training tokens (the first ones), since one iteration costs about
-	// 8·N² floating-point operations per token. Zero means all of them.
+	// 8·N² floating-point operations per token. These tokens are held in
+	// memory, 8 bytes each, while the models train. Zero means all of them.
 	// Default 1000000.
 	HMMMaxTokens int `toml:"hmm_max_tokens"`
 

@@ -123,6 +123,10 @@ const (
 	eventBytes   = 16
 )
 
+// initialHint is the most tokens the hash tables of counts under a memory
+// budget are first sized for.
+const initialHint = 1 << 22
+
 // errBudget stops a walk over the windows of a split when the memory
 // budget is reached.
 var errBudget = errors.New("memory budget reached")
@@ -171,8 +175,11 @@ func CountNGramsOf(train TokenReader, vocab, order, boundary int, opts CountOpti
 	}
 	hint := n
 	if opts.Memory > 0 {
-		// The tables of newCounts(hint) take at most 24·hint bytes.
-		hint = int(min(int64(n), opts.Memory/32))
+		// The tables of newCounts(hint) take at most 24·hint bytes, and
+		// a long split has far fewer distinct n-grams than tokens: start
+		// them smaller and let them grow. Table sizes change no count
+		// and no id (ids are given in order of first sight).
+		hint = int(min(int64(n), opts.Memory/32, initialHint))
 	}
 	stage := fmt.Sprintf("count %d-grams", order)
 	k := newCounter(newCounts(vocab, order, boundary, hint), opts.Memory)
@@ -191,10 +198,21 @@ func CountNGramsOf(train TokenReader, vocab, order, boundary int, opts CountOpti
 	}
 	opts.Progress.report(stage, n, n)
 
-	// Drop the counts of the split's beginning before counting the subset.
+	// Drop the counts of the split's beginning before counting the subset,
+	// whose tables and arrays start at the sizes those reached within the
+	// budget, so that they seldom grow (a growing table holds its old and
+	// new slots at once).
+	ctxSlots, evSlots := len(k.c.ctxIndex.keys), len(k.c.evIndex.keys)
+	nctx, nev := len(k.c.ctxParent), len(k.c.evCount)
 	k.c = nil
 	runtime.GC()
-	k.c = newCounts(vocab, order, boundary, hint)
+	c := &Counts{order: order, vocab: vocab, boundary: boundary, ctxIndex: &table{}, evIndex: &table{}}
+	c.ctxIndex.init(ctxSlots)
+	c.evIndex.init(evSlots)
+	c.ctxParent = append(make([]int32, 0, nctx), -1)
+	c.ctxDepth = append(make([]uint8, 0, nctx), 0)
+	c.evCtx, c.evWord, c.evCount = make([]int32, 0, nev), make([]int32, 0, nev), make([]uint32, 0, nev)
+	k.c = c
 	piece := opts.piece
 	if piece <= 0 {
 		piece = SubsetPieceTokens
@@ -283,6 +301,7 @@ func (k *counter) count(off int, ids []int) error {
 		if k.memory > 0 && (c.tokens >= math.MaxUint32-1 || !c.fits(k.memory)) {
 			return errBudget
 		}
+		slots := len(c.evIndex.keys) + len(c.ctxIndex.keys)
 		c.addEvent(uint64(w), 0, w)
 		ctx := int32(0)
 		for d, x := range hist {
@@ -303,6 +322,12 @@ func (k *counter) count(off int, ids []int) error {
 			}
 		}
 		c.tokens++
+		if k.memory > 0 && len(c.evIndex.keys)+len(c.ctxIndex.keys) != slots {
+			// Under a budget, free the table's old slots at once rather
+			// than at the collector's pace, which lets the heap reach
+			// twice what is live.
+			runtime.GC()
+		}
 	}
 	return nil
 }
