@@ -147,8 +147,8 @@ var errBudget = errors.New("memory budget reached")
 // before a token: the subset is the pieces counted whole plus the
 // beginning of the piece counting stopped in. Each piece starts a
 // document: the contexts of its first tokens are padded as at the start
-// of the split, so no n-gram crosses from one piece into a piece that did
-// not precede it in the split. The same split, seed and budget always
+// of the split, so no n-gram spans two pieces (a boundary token inside a
+// piece starts a document as usual). The same split, seed and budget always
 // give the same subset; Tokens says how many tokens it holds and
 // SplitTokens how many the split does. A split of 2^32-1 tokens or more is
 // counted on a subset of fewer (counts are 32-bit); without a budget it
