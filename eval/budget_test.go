@@ -296,3 +296,58 @@ func TestParseSize(t *testing.T) {
 		}
 	}
 }
+
+// TestCountSubsetByHand works the budget rule through by hand on ten
+// tokens over V = 3 (padding symbol 3), order 2, pieces of 4 tokens:
+// p0 = 0 1 0 1, p1 = 2 2 2 2, p2 = 1 0. The store starts with two hash
+// tables of 16 slots (384 bytes) and the empty context; before each token
+// the test is 384 + 45·(C+1) + 16·(E+2) <= 700 for C contexts and E
+// events so far (Counts.Bytes: 12 bytes a slot, 45 a context, 16 an
+// event; no table reaches 12 entries, 3/4 of 16, so none grows).
+//
+// In split order, tokens 0, 1, 0 test 506, 583, 660 and leave C = 4,
+// E = 5; the fourth tests 721 > 700: the split does not fit. For seed 5
+// the keys splitmix64(5 + (i+1)·0x9E3779B97F4A7C15) of pieces 0, 1, 2 are
+// 7134611160154358618, 13877614986023876344 and 4292726422858613063
+// (computed with a few lines of Python from the mix TestSplitmix64
+// checks), so the pieces go p2, p0, p1. The subset counts p2: "1" (506),
+// "0" (583); then p0 from fresh padding: "0" (660), "1" (676); the next
+// "0" tests 384 + 45·5 + 16·8 = 737 > 700 and stops. So 4 of 10 tokens, the
+// unigrams 0 and 1 twice each, the bigrams (3 1), (1 0), (3 0), (0 1) once
+// each: E = 6, C = 4 (the empty context, "3", "1", "0"), Bytes = 384 +
+// 180 + 96 = 660.
+func TestCountSubsetByHand(t *testing.T) {
+	seq := []int{0, 1, 0, 1, 2, 2, 2, 2, 1, 0}
+	if got := subsetPieces(len(seq), 4, 5); fmt.Sprint(got) != "[2 0 1]" {
+		t.Fatalf("pieces for seed 5: got %v, want [2 0 1]", got)
+	}
+	c, err := CountNGramsOf(IntTokens(seq), 3, 2, NoBoundary, CountOptions{Memory: 700, Seed: 5, piece: 4})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Tokens() != 4 || c.SplitTokens() != 10 || c.Events() != 6 || c.Contexts() != 4 || c.Bytes() != 660 {
+		t.Errorf("got %d of %d tokens, %d events, %d contexts, %d bytes; want 4 of 10, 6, 4, 660",
+			c.Tokens(), c.SplitTokens(), c.Events(), c.Contexts(), c.Bytes())
+	}
+	if c.TrainingNote() != "counts from 4 of 10 training tokens" {
+		t.Errorf("note %q", c.TrainingNote())
+	}
+	for _, g := range []struct {
+		gram []int
+		want int
+	}{{[]int{0}, 2}, {[]int{1}, 2}, {[]int{2}, 0}, {[]int{3, 1}, 1}, {[]int{1, 0}, 1}, {[]int{3, 0}, 1}, {[]int{0, 1}, 1}, {[]int{2, 2}, 0}} {
+		ctx := int32(0)
+		if len(g.gram) == 2 {
+			ctx = c.child(0, g.gram[0])
+		}
+		got := 0
+		if ctx >= 0 {
+			if e := c.event(ctx, g.gram[len(g.gram)-1]); e >= 0 {
+				got = int(c.evCount[e])
+			}
+		}
+		if got != g.want {
+			t.Errorf("count of %v: got %d, want %d", g.gram, got, g.want)
+		}
+	}
+}
