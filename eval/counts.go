@@ -294,11 +294,14 @@ func (k *counter) count(off int, ids []int) error {
 	vocab := c.vocab
 	V := uint64(vocab)
 	V1 := uint64(vocab + 1)
+	// The test before each token can only fail when the whole window,
+	// every token of it new at every order, might not fit.
+	check := k.memory > 0 && (c.tokens+len(ids) >= math.MaxUint32-1 || !c.fits(k.memory, len(ids)))
 	for j, w := range ids {
 		if w < 0 || w >= vocab {
 			return fmt.Errorf("count n-grams: token %d at position %d outside 0..%d", w, off+j, vocab-1)
 		}
-		if k.memory > 0 && (c.tokens >= math.MaxUint32-1 || !c.fits(k.memory)) {
+		if check && (c.tokens >= math.MaxUint32-1 || !c.fits(k.memory, 1)) {
 			return errBudget
 		}
 		slots := len(c.evIndex.keys) + len(c.ctxIndex.keys)
@@ -332,12 +335,12 @@ func (k *counter) count(off int, ids []int) error {
 	return nil
 }
 
-// fits reports whether Bytes stays within memory whatever the next token
-// adds: order new events and order-1 new contexts, with the hash tables
-// grown as they would be.
-func (c *Counts) fits(memory int64) bool {
-	e := len(c.evCount) + c.order
-	x := len(c.ctxParent) + c.order - 1
+// fits reports whether Bytes stays within memory whatever the next m
+// tokens add: order new events and order-1 new contexts each, with the
+// hash tables grown as they would be.
+func (c *Counts) fits(memory int64, m int) bool {
+	e := len(c.evCount) + c.order*m
+	x := len(c.ctxParent) + (c.order-1)*m
 	return c.evIndex.bytesWith(e)+c.ctxIndex.bytesWith(x)+int64(x)*contextBytes+int64(e)*eventBytes <= memory
 }
 
