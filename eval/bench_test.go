@@ -200,3 +200,28 @@ func BenchmarkBaumWelch(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkCountBudget counts the 8-grams of Moby-Dick's 1.19 M
+// characters without a memory budget and under one they fit (1 GiB, the
+// default of evaluation.ngram_memory), so the cost of the budget's check
+// before each token shows as the ratio of the two.
+func BenchmarkCountBudget(b *testing.B) {
+	seq, V := mobyDick(b)
+	for _, m := range []struct {
+		name   string
+		memory int64
+	}{{"none", 0}, {"1GiB", 1 << 30}} {
+		b.Run("memory="+m.name, func(b *testing.B) {
+			var c *Counts
+			for b.Loop() {
+				var err error
+				c, err = CountNGramsOf(IntTokens(seq), V, 8, NoBoundary, CountOptions{Memory: m.memory})
+				if err != nil {
+					b.Fatal(err)
+				}
+			}
+			sinkCounts = c
+			b.ReportMetric(float64(len(seq))*float64(b.N)/b.Elapsed().Seconds(), "tokens/s")
+		})
+	}
+}

@@ -203,6 +203,7 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 	type cand struct {
 		name, kind string
 		stateBits  float64
+		note       string
 		val, rep   []float64
 	}
 	cands := make([]*cand, len(in.Models))
@@ -212,6 +213,9 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 		c := &cand{name: e.label(), kind: e.kind()}
 		if s, ok := e.Model.(StateBitser); ok {
 			c.stateBits = s.StateBits()
+		}
+		if n, ok := e.Model.(TrainingNoter); ok {
+			c.note = n.TrainingNote()
 		}
 		c.val = make([]float64, len(val.Tokens))
 		if err := e.Model.LogProbs(ctx, c.val, val.Tokens); err != nil {
@@ -281,6 +285,7 @@ func Compare(ctx context.Context, cfg Config, in CompareInput) (*Comparison, err
 		r := NewResult(c.name, c.kind, in.Split, c.rep, repChars)
 		in.setComparable(&r, rep.Tokens)
 		r.StateBits = c.stateBits
+		r.TrainingNote = c.note
 		results[i] = r
 		series[i] = Series{LogProbs: c.rep, Chars: rep.Chars}
 	}

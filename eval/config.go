@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"math"
 	"slices"
+	"strconv"
+	"strings"
 )
 
 // Config is the [evaluation] section of a run file: how often training
@@ -62,12 +64,28 @@ type Config struct {
 
 	// HMMMaxTokens trains each hidden Markov model on at most this many
 	// training tokens (the first ones), since one iteration costs about
-	// 8·N² floating-point operations per token. Zero means all of them.
+	// 8·N² floating-point operations per token. These tokens are held in
+	// memory, 8 bytes each, while the models train. Zero means all of them.
 	// Default 1000000.
 	HMMMaxTokens int `toml:"hmm_max_tokens"`
 
-	// Seed seeds the hidden Markov models' initial parameters and the
-	// bootstrap resampling. Zero is a valid seed. Default 1.
+	// NgramMemory caps the memory of the n-gram counts that the n-gram
+	// and Markov chain baselines share, as a size: a number and a unit,
+	// "B", "kB", "MB", "GB", "TB" (powers of 1000) or "KiB", "MiB",
+	// "GiB", "TiB" (powers of 1024), such as "1GiB" or "500 MB". The counts
+	// take about 90 bytes a distinct n-gram on natural text (16 to 32 bytes
+	// of hash table and 16 of arrays for each n-gram, 16 to 32 and 45 for
+	// each context); when the counts of the whole training split would
+	// exceed the cap, they are taken on a seeded subset of it instead
+	// (eval.CountNGramsOf: pieces of 1,048,576 tokens in an order drawn
+	// from seed, counted until the cap), and every row counted so says how
+	// many tokens it counted. At least 1MiB; "0" means no cap.
+	// Default "1GiB".
+	NgramMemory string `toml:"ngram_memory"`
+
+	// Seed seeds the hidden Markov models' initial parameters, the
+	// bootstrap resampling and the pieces of the training split counted
+	// under ngram_memory. Zero is a valid seed. Default 1.
 	Seed uint64 `toml:"seed"`
 
 	// BootstrapSamples is the number of bootstrap resamples behind each
@@ -112,6 +130,7 @@ func DefaultConfig() Config {
 		HMMMaxIterations:    30,
 		HMMTolerance:        1e-4,
 		HMMMaxTokens:        1000000,
+		NgramMemory:         "1GiB",
 		Seed:                1,
 		BootstrapSamples:    1000,
 		BootstrapBlockChars: 2000,
@@ -169,6 +188,11 @@ func (c Config) Validate() error {
 	if c.HeldOutTokens < 0 {
 		bad("heldout_tokens", "%d is negative", c.HeldOutTokens)
 	}
+	if m, err := ParseSize(c.NgramMemory); err != nil {
+		bad("ngram_memory", "%v", err)
+	} else if m > 0 && m < minNgramMemory {
+		bad("ngram_memory", "%q is below the least cap, 1MiB (\"0\" means no cap)", c.NgramMemory)
+	}
 	if c.BootstrapSamples < 0 {
 		bad("bootstrap_samples", "%d is negative", c.BootstrapSamples)
 	}
@@ -204,4 +228,46 @@ func (c Config) Bootstrap() BootstrapConfig {
 		Level:      c.ConfidenceLevel,
 		Seed:       c.Seed,
 	}
+}
+
+// minNgramMemory is the least ngram_memory other than 0.
+const minNgramMemory = 1 << 20
+
+// NgramMemoryBytes is NgramMemory in bytes, 0 for no cap (and for a value
+// Validate refuses).
+func (c Config) NgramMemoryBytes() int64 {
+	m, err := ParseSize(c.NgramMemory)
+	if err != nil {
+		return 0
+	}
+	return m
+}
+
+// sizeUnits are the units ParseSize knows, by their exact spelling.
+var sizeUnits = map[string]float64{
+	"": 1, "B": 1,
+	"kB": 1e3, "KB": 1e3, "MB": 1e6, "GB": 1e9, "TB": 1e12,
+	"KiB": 1 << 10, "MiB": 1 << 20, "GiB": 1 << 30, "TiB": 1 << 40,
+}
+
+// ParseSize reads a size such as "1GiB", "500 MB", "1.5GB" or "0": a
+// number from 0 up, optional spaces, and a unit of sizeUnits (none means
+// bytes); the result is rounded down to whole bytes.
+func ParseSize(s string) (int64, error) {
+	t := strings.TrimSpace(s)
+	i := strings.IndexFunc(t, func(r rune) bool { return (r < '0' || r > '9') && r != '.' })
+	if i < 0 {
+		i = len(t)
+	}
+	num, unit := t[:i], strings.TrimSpace(t[i:])
+	mult, ok := sizeUnits[unit]
+	v, err := strconv.ParseFloat(num, 64)
+	if !ok || err != nil || num == "" {
+		return 0, fmt.Errorf("%q is not a size such as \"1GiB\" or \"500MB\"", s)
+	}
+	b := v * mult
+	if b >= math.MaxInt64 {
+		return 0, fmt.Errorf("%q is too large", s)
+	}
+	return int64(b), nil
 }

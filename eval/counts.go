@@ -4,6 +4,9 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
+	"sort"
+	"strconv"
 )
 
 // MaxOrder is the largest n-gram order the counts and models accept.
@@ -61,6 +64,8 @@ type Counts struct {
 	evCount []uint32
 	evCont  []uint32
 
+	split int // the tokens of the split counted from; above tokens for a subset
+
 	raw, cont ctxStats
 	// coc[k][d][r] is the number of events at depth d whose raw (k = 0) or
 	// continuation (k = 1) count is r, for r = 1..4 (index 0 unused).
@@ -85,8 +90,70 @@ func (s *ctxStats) resize(n int) {
 // document (a line, a sentence, a file), or NoBoundary: the token itself is
 // counted and predicted like any other, and the context after it starts
 // afresh, as at the start of train. progress, if not nil, hears about the
-// counting.
+// counting. It is CountNGramsOf without a memory budget.
 func CountNGrams(train []int, vocab, order, boundary int, progress ProgressFunc) (*Counts, error) {
+	return CountNGramsOf(IntTokens(train), vocab, order, boundary, CountOptions{Progress: progress})
+}
+
+// CountOptions sets up CountNGramsOf.
+type CountOptions struct {
+	// Memory caps the memory of the counts, as Counts.Bytes measures it,
+	// in bytes; zero means no cap. When the counts of the whole training
+	// split would take more, they are taken on a seeded subset of it
+	// (CountNGramsOf says which).
+	Memory int64
+	// Seed chooses the subset's pieces.
+	Seed uint64
+	// Progress, if not nil, hears about the counting.
+	Progress ProgressFunc
+
+	piece int // the subset's piece length in tokens; 0 means SubsetPieceTokens (tests shorten it)
+}
+
+// SubsetPieceTokens is the length in tokens of the pieces a memory budget
+// draws its subset of the training split from (CountNGramsOf).
+const SubsetPieceTokens = 1 << 20
+
+// Bytes the counts hold for each context and each event beyond the slots
+// of their hash tables (Counts.Bytes): a context's parent (4) and depth (1)
+// and its raw and continuation summaries (2·5·4); an event's context,
+// token, raw count and continuation count (4 each).
+const (
+	contextBytes = 4 + 1 + 2*5*4
+	eventBytes   = 16
+)
+
+// initialHint is the most tokens the hash tables of counts under a memory
+// budget are first sized for.
+const initialHint = 1 << 22
+
+// errBudget stops a walk over the windows of a split when the memory
+// budget is reached.
+var errBudget = errors.New("memory budget reached")
+
+// CountNGramsOf counts the n-grams of the training split train as
+// CountNGrams does, reading it window by window, within the memory budget
+// opts.Memory.
+//
+// The budget rule. The whole split is counted first, in order. If, before
+// some token, counting it could take Counts.Bytes past the budget (its
+// order events and order-1 contexts all new, with the hash tables grown
+// if they would be), those counts are dropped and the counts are taken
+// afresh on a subset instead: the split is cut into pieces of
+// SubsetPieceTokens tokens (the last one shorter), the pieces are ordered
+// by a hash of their index and opts.Seed (splitmix64 of seed + (index+1)·
+// 0x9E3779B97F4A7C15, ties by index), and they are counted in that order,
+// each from its start to its end, until the same test stops the counting
+// before a token: the subset is the pieces counted whole plus the
+// beginning of the piece counting stopped in. Each piece starts a
+// document: the contexts of its first tokens are padded as at the start
+// of the split, so no n-gram spans two pieces (a boundary token inside a
+// piece starts a document as usual). The same split, seed and budget always
+// give the same subset; Tokens says how many tokens it holds and
+// SplitTokens how many the split does. A split of 2^32-1 tokens or more is
+// counted on a subset of fewer (counts are 32-bit); without a budget it
+// is an error.
+func CountNGramsOf(train TokenReader, vocab, order, boundary int, opts CountOptions) (*Counts, error) {
 	if vocab < 1 {
 		return nil, fmt.Errorf("count n-grams: vocabulary size %d is below 1", vocab)
 	}
@@ -96,28 +163,148 @@ func CountNGrams(train []int, vocab, order, boundary int, progress ProgressFunc)
 	if boundary < NoBoundary || boundary >= vocab {
 		return nil, fmt.Errorf("count n-grams: boundary token %d outside 0..%d", boundary, vocab-1)
 	}
-	if len(train) == 0 {
+	if opts.Memory < 0 {
+		return nil, fmt.Errorf("count n-grams: memory budget %d is negative", opts.Memory)
+	}
+	n := train.Len()
+	if n == 0 {
 		return nil, errors.New("count n-grams: no training tokens")
 	}
-	if len(train) >= math.MaxUint32 {
-		return nil, fmt.Errorf("count n-grams: %d training tokens, more than %d", len(train), math.MaxUint32-1)
+	if opts.Memory == 0 && n >= math.MaxUint32 {
+		return nil, fmt.Errorf("count n-grams: %d training tokens, more than %d", n, math.MaxUint32-1)
 	}
-	c := newCounts(vocab, order, boundary, len(train))
+	hint := n
+	if opts.Memory > 0 {
+		// The tables of newCounts(hint) take at most 24·hint bytes, and
+		// a long split has far fewer distinct n-grams than tokens: start
+		// them smaller and let them grow. Table sizes change no count
+		// and no id (ids are given in order of first sight).
+		hint = int(min(int64(n), opts.Memory/32, initialHint))
+	}
 	stage := fmt.Sprintf("count %d-grams", order)
+	k := newCounter(newCounts(vocab, order, boundary, hint), opts.Memory)
+	err := eachWindow(train, 0, n, func(off int, ids []int) error {
+		opts.Progress.report(stage, off, n)
+		return k.count(off, ids)
+	})
+	switch {
+	case err == nil:
+		k.c.split = n
+		opts.Progress.report(stage, n, n)
+		k.c.finish()
+		return k.c, nil
+	case err != errBudget:
+		return nil, err
+	}
+	opts.Progress.report(stage, n, n)
+
+	// Drop the counts of the split's beginning before counting the subset,
+	// whose tables and arrays start at the sizes those reached within the
+	// budget, so that they seldom grow (a growing table holds its old and
+	// new slots at once).
+	ctxSlots, evSlots := len(k.c.ctxIndex.keys), len(k.c.evIndex.keys)
+	nctx, nev := len(k.c.ctxParent), len(k.c.evCount)
+	k.c = nil
+	runtime.GC()
+	c := &Counts{order: order, vocab: vocab, boundary: boundary, ctxIndex: &table{}, evIndex: &table{}}
+	c.ctxIndex.init(ctxSlots)
+	c.evIndex.init(evSlots)
+	c.ctxParent = append(make([]int32, 0, nctx), -1)
+	c.ctxDepth = append(make([]uint8, 0, nctx), 0)
+	c.evCtx, c.evWord, c.evCount = make([]int32, 0, nev), make([]int32, 0, nev), make([]uint32, 0, nev)
+	k.c = c
+	piece := opts.piece
+	if piece <= 0 {
+		piece = SubsetPieceTokens
+	}
+	pieces := subsetPieces(n, piece, opts.Seed)
+	stage += " on a subset"
+	for i, p := range pieces {
+		opts.Progress.report(stage, i, len(pieces))
+		k.reset()
+		from := p * piece
+		err = eachWindow(train, from, min(from+piece, n), k.count)
+		if err != nil {
+			break
+		}
+	}
+	if err != nil && err != errBudget {
+		return nil, err
+	}
+	opts.Progress.report(stage, len(pieces), len(pieces))
+	if k.c.tokens == 0 {
+		return nil, fmt.Errorf("count n-grams: a memory budget of %d bytes holds no %d-gram counts (an empty store takes %d)", opts.Memory, order, k.c.Bytes())
+	}
+	k.c.split = n
+	k.c.finish()
+	return k.c, nil
+}
+
+// subsetPieces returns the indices of the pieces of piece tokens of a
+// split of n tokens in the order CountNGramsOf counts them.
+func subsetPieces(n, piece int, seed uint64) []int {
+	count := (n + piece - 1) / piece
+	keys := make([]uint64, count)
+	idx := make([]int, count)
+	for i := range idx {
+		idx[i] = i
+		keys[i] = splitmix64(seed + uint64(i+1)*0x9E3779B97F4A7C15)
+	}
+	sort.Slice(idx, func(a, b int) bool {
+		ka, kb := keys[idx[a]], keys[idx[b]]
+		return ka < kb || ka == kb && idx[a] < idx[b]
+	})
+	return idx
+}
+
+// splitmix64 is the output function of the SplitMix64 generator (Steele,
+// Lea & Flood 2014): a bijective mix of the bits of z.
+func splitmix64(z uint64) uint64 {
+	z = (z ^ z>>30) * 0xBF58476D1CE4E5B9
+	z = (z ^ z>>27) * 0x94D049BB133111EB
+	return z ^ z>>31
+}
+
+// counter adds tokens to counts, keeping the history of the document it
+// is in.
+type counter struct {
+	c      *Counts
+	hist   []int // hist[0] is the latest token; vocab pads
+	memory int64 // the budget of c.Bytes(); 0 for none
+}
+
+func newCounter(c *Counts, memory int64) *counter {
+	k := &counter{c: c, hist: make([]int, c.order-1), memory: memory}
+	k.reset()
+	return k
+}
+
+// reset starts a document: every context is the padding.
+func (k *counter) reset() {
+	for i := range k.hist {
+		k.hist[i] = k.c.vocab
+	}
+}
+
+// count counts the tokens ids, the first at position off of the split. It
+// returns errBudget, counting nothing more, before a token that could take
+// the counts past the memory budget or their 32-bit limit.
+func (k *counter) count(off int, ids []int) error {
+	c, hist := k.c, k.hist
+	vocab := c.vocab
 	V := uint64(vocab)
 	V1 := uint64(vocab + 1)
-	hist := make([]int, order-1) // hist[0] is the latest token
-	for i := range hist {
-		hist[i] = vocab
-	}
-	const every = 1 << 16
-	for i, w := range train {
+	// The test before each token can only fail when the whole window,
+	// every token of it new at every order, might not fit.
+	check := k.memory > 0 && (c.tokens+len(ids) >= math.MaxUint32-1 || !c.fits(k.memory, len(ids)))
+	for j, w := range ids {
 		if w < 0 || w >= vocab {
-			return nil, fmt.Errorf("count n-grams: token %d at position %d outside 0..%d", w, i, vocab-1)
+			return fmt.Errorf("count n-grams: token %d at position %d outside 0..%d", w, off+j, vocab-1)
 		}
-		if i%every == 0 {
-			progress.report(stage, i, len(train))
+		if check && (c.tokens >= math.MaxUint32-1 || !c.fits(k.memory, 1)) {
+			return errBudget
 		}
+		slots := len(c.evIndex.keys) + len(c.ctxIndex.keys)
 		c.addEvent(uint64(w), 0, w)
 		ctx := int32(0)
 		for d, x := range hist {
@@ -130,20 +317,31 @@ func CountNGrams(train []int, vocab, order, boundary int, progress ProgressFunc)
 			c.addEvent(uint64(ctx)*V+uint64(w), ctx, w)
 		}
 		if len(hist) > 0 {
-			if w == boundary {
-				for j := range hist {
-					hist[j] = vocab
-				}
+			if w == c.boundary {
+				k.reset()
 			} else {
 				copy(hist[1:], hist[:len(hist)-1])
 				hist[0] = w
 			}
 		}
+		c.tokens++
+		if k.memory > 0 && len(c.evIndex.keys)+len(c.ctxIndex.keys) != slots {
+			// Under a budget, free the table's old slots at once rather
+			// than at the collector's pace, which lets the heap reach
+			// twice what is live.
+			runtime.GC()
+		}
 	}
-	c.tokens = len(train)
-	progress.report(stage, len(train), len(train))
-	c.finish()
-	return c, nil
+	return nil
+}
+
+// fits reports whether Bytes stays within memory whatever the next m
+// tokens add: order new events and order-1 new contexts each, with the
+// hash tables grown as they would be.
+func (c *Counts) fits(memory int64, m int) bool {
+	e := len(c.evCount) + c.order*m
+	x := len(c.ctxParent) + (c.order-1)*m
+	return c.evIndex.bytesWith(e)+c.ctxIndex.bytesWith(x)+int64(x)*contextBytes+int64(e)*eventBytes <= memory
 }
 
 func newCounts(vocab, order, boundary, hint int) *Counts {
@@ -184,6 +382,7 @@ func (c *Counts) addGram(gram []int) {
 	c.addEvent(uint64(ctx)*uint64(c.vocab)+uint64(w), ctx, w)
 	if len(gram) == 1 {
 		c.tokens++
+		c.split++
 	}
 }
 
@@ -243,6 +442,43 @@ func (c *Counts) Boundary() int { return c.boundary }
 // Tokens is the number of training tokens counted.
 func (c *Counts) Tokens() int { return c.tokens }
 
+// SplitTokens is the number of tokens of the training split the counts were
+// taken from: Tokens when they were taken on all of it, more when a memory
+// budget limited them to a subset (CountNGramsOf).
+func (c *Counts) SplitTokens() int { return c.split }
+
+// TrainingNote says, when the counts were taken on a subset of the
+// training split, how much of it: "counts from 200 M of 900 M training
+// tokens"; it is "" for counts of the whole split.
+func (c *Counts) TrainingNote() string {
+	if c.split <= c.tokens {
+		return ""
+	}
+	return fmt.Sprintf("counts from %s of %s training tokens", tokenAmount(c.tokens), tokenAmount(c.split))
+}
+
+// tokenAmount writes a number of tokens for a note: in full with
+// thousands separators below a million, else in millions with three
+// significant figures or more ("4.19 M", "200 M", "1250 M").
+func tokenAmount(n int) string {
+	if n < 1_000_000 {
+		s := strconv.Itoa(n)
+		for i := len(s) - 3; i > 0; i -= 3 {
+			s = s[:i] + "," + s[i:]
+		}
+		return s
+	}
+	m := float64(n) / 1e6
+	prec := 0
+	switch {
+	case m < 10:
+		prec = 2
+	case m < 100:
+		prec = 1
+	}
+	return strconv.FormatFloat(m, 'f', prec, 64) + " M"
+}
+
 // Events is the number of distinct n-grams of all orders.
 func (c *Counts) Events() int { return len(c.evCount) }
 
@@ -250,10 +486,13 @@ func (c *Counts) Events() int { return len(c.evCount) }
 // included.
 func (c *Counts) Contexts() int { return len(c.ctxParent) }
 
-// Bytes estimates the memory the counts hold.
+// Bytes estimates the memory the counts hold: 12 bytes a slot of their two
+// hash tables (each kept at most 3/4 full, so 16 to 32 bytes an entry),
+// 45 bytes a context and 16 bytes an event besides. The slack of the
+// arrays' capacity is not counted.
 func (c *Counts) Bytes() int64 {
 	return c.ctxIndex.bytes() + c.evIndex.bytes() +
-		int64(len(c.ctxParent))*(4+1+2*5*4) + int64(len(c.evCount))*16
+		int64(len(c.ctxParent))*contextBytes + int64(len(c.evCount))*eventBytes
 }
 
 // CountOfCounts returns n1..n4, the numbers of distinct n-grams of the given

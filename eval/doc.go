@@ -52,7 +52,11 @@
 // # n-gram smoothers
 //
 // CountNGrams counts once, at the largest order wanted; NewNGram builds a
-// model of any order up to it with one of these methods. Below, h is the
+// model of any order up to it with one of these methods. CountNGramsOf
+// reads the training split through a TokenReader, window by window, and
+// keeps the counts within a memory budget (Config.NgramMemory): past it
+// they are taken on a seeded subset of the split, and every model built
+// from them says so (TrainingNoter, Result.TrainingNote). Below, h is the
 // context (the n-1 tokens before w), h' is h without its earliest token,
 // c(h w) the count of h followed by w, c(h •) = Σ_w c(h w), N1+(h •) the
 // number of distinct tokens seen after h, and V the vocabulary size.

@@ -89,3 +89,13 @@ func (t *table) grow() {
 }
 
 func (t *table) bytes() int64 { return int64(len(t.keys)) * 12 }
+
+// bytesWith is bytes once the table holds n entries, grown as getOrPut
+// grows it.
+func (t *table) bytesWith(n int) int64 {
+	size := len(t.keys)
+	for n*4 > size*3 {
+		size *= 2
+	}
+	return int64(size) * 12
+}

@@ -457,7 +457,7 @@ func TestHMMFloorFromWholeTrainingSplit(t *testing.T) {
 	cfg := DefaultConfig()
 	cfg.NgramOrders, cfg.MarkovOrders = nil, nil
 	cfg.HMMStates, cfg.HMMMaxIterations, cfg.HMMMaxTokens = []int{3}, 5, half
-	l, err := FitLadder(context.Background(), train, V, NoBoundary, cfg, nil)
+	l, err := FitLadder(context.Background(), IntTokens(train), V, NoBoundary, cfg, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

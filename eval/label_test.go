@@ -62,7 +62,7 @@ func TestBaselineLabels(t *testing.T) {
 	dir := t.TempDir()
 	cfg := DefaultConfig()
 	cfg.NgramOrders, cfg.MarkovOrders, cfg.HMMStates, cfg.HMMMaxIterations = []int{3}, []int{1}, []int{2}, 2
-	l, err := FitLadder(t.Context(), train, c.vocab, NoBoundary, cfg, nil)
+	l, err := FitLadder(t.Context(), IntTokens(train), c.vocab, NoBoundary, cfg, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -19,12 +19,15 @@ type Ladder struct {
 	HMMs   []*HMM
 }
 
-// FitLadder fits the baselines of cfg on the training token ids train
-// (below vocab; boundary as for CountNGrams). The counts are taken once at
-// the largest order any model needs; HMMs train on the first
-// cfg.HMMMaxTokens tokens, their emission floor drawn from the unigram
-// counts of all of train (TrainHMM). progress, if not nil, hears about each stage.
-func FitLadder(ctx context.Context, train []int, vocab, boundary int, cfg Config, progress ProgressFunc) (*Ladder, error) {
+// FitLadder fits the baselines of cfg on the training split train (token
+// ids below vocab; boundary as for CountNGrams), reading it window by
+// window. The counts are taken once at the largest order any model needs,
+// within cfg's ngram_memory (CountNGramsOf; Counts.TrainingNote says when
+// they cover a subset); HMMs train on the first cfg.HMMMaxTokens tokens,
+// the one part of the split held in memory as a whole (8 bytes a token),
+// their emission floor drawn from the unigram counts of all of train
+// (TrainHMM). progress, if not nil, hears about each stage.
+func FitLadder(ctx context.Context, train TokenReader, vocab, boundary int, cfg Config, progress ProgressFunc) (*Ladder, error) {
 	if err := cfg.Validate(); err != nil {
 		return nil, fmt.Errorf("fit baselines: %w", err)
 	}
@@ -32,13 +35,13 @@ func FitLadder(ctx context.Context, train []int, vocab, boundary int, cfg Config
 	if err := l.fitCounts(train, vocab, boundary, cfg, progress); err != nil {
 		return nil, err
 	}
-	hmmTrain := train
-	if cfg.HMMMaxTokens > 0 && len(hmmTrain) > cfg.HMMMaxTokens {
-		hmmTrain = hmmTrain[:cfg.HMMMaxTokens]
+	if len(cfg.HMMStates) == 0 {
+		return l, nil
 	}
+	hmmTrain := readPrefix(train, cfg.HMMMaxTokens)
 	// The emission floor of an HMM trained on the first HMMMaxTokens
 	// tokens comes from the whole training split's unigram counts.
-	unigram := TokenCounts(train, vocab)
+	unigram := TokenCountsOf(train, vocab)
 	for _, n := range cfg.HMMStates {
 		h, err := TrainHMM(ctx, hmmTrain, vocab, HMMOptions{
 			States: n, MaxIterations: cfg.HMMMaxIterations, Tolerance: cfg.HMMTolerance,
@@ -66,13 +69,14 @@ func maxOrder(cfg Config) int {
 	return order
 }
 
-func (l *Ladder) fitCounts(train []int, vocab, boundary int, cfg Config, progress ProgressFunc) error {
+func (l *Ladder) fitCounts(train TokenReader, vocab, boundary int, cfg Config, progress ProgressFunc) error {
 	order := maxOrder(cfg)
 	if order == 0 {
 		return nil
 	}
 	if l.Counts == nil {
-		c, err := CountNGrams(train, vocab, order, boundary, progress)
+		c, err := CountNGramsOf(train, vocab, order, boundary, CountOptions{
+			Memory: cfg.NgramMemoryBytes(), Seed: cfg.Seed, Progress: progress})
 		if err != nil {
 			return fmt.Errorf("fit baselines: %w", err)
 		}

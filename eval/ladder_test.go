@@ -24,7 +24,7 @@ func TestLadder(t *testing.T) {
 	cfg.HMMStates = []int{3}
 	cfg.HMMMaxIterations = 3
 	var stages []string
-	l, err := FitLadder(context.Background(), seq[:2500], 6, NoBoundary, cfg, func(stage string, done, total int) {
+	l, err := FitLadder(context.Background(), IntTokens(seq[:2500]), 6, NoBoundary, cfg, func(stage string, done, total int) {
 		if len(stages) == 0 || stages[len(stages)-1] != stage {
 			stages = append(stages, stage)
 		}

@@ -66,6 +66,18 @@ type Result struct {
 	// StateBits is the memory a hidden Markov model's state can hold,
 	// log2 N bits for N states; zero for other models.
 	StateBits float64 `json:"state_bits,omitempty"`
+	// TrainingNote says how much of the training split the model was
+	// fitted on when it was not all of it, as TrainingNoter gives it
+	// ("counts from 200 M of 900 M training tokens"); empty otherwise.
+	TrainingNote string `json:"training_note,omitempty"`
+}
+
+// SetTrainingNote sets r.TrainingNote from the model m of the row, when
+// m is a TrainingNoter.
+func (r *Result) SetTrainingNote(m LanguageModel) {
+	if n, ok := m.(TrainingNoter); ok {
+		r.TrainingNote = n.TrainingNote()
+	}
 }
 
 // NewResult summarises the per-token natural-log probabilities logp of a
@@ -228,6 +240,7 @@ type resultJSON struct {
 	Comparable       bool      `json:"comparable"`
 	NotComparable    string    `json:"not_comparable,omitempty"`
 	StateBits        jsonFloat `json:"state_bits,omitempty"`
+	TrainingNote     string    `json:"training_note,omitempty"`
 }
 
 // MarshalJSON writes the row with the keys of the field tags, values that
@@ -239,7 +252,7 @@ func (r Result) MarshalJSON() ([]byte, error) {
 		jsonFloat(r.Perplexity), jsonFloat(r.BitsPerChar), jsonFloat(r.CILow), jsonFloat(r.CIHigh),
 		r.Reference, jsonFloat(r.DiffBitsPerChar), jsonFloat(r.DiffCILow), jsonFloat(r.DiffCIHigh),
 		r.ZeroProbTokens, r.UnknownTokens, jsonFloat(r.UnknownRate), r.Comparable, r.NotComparable,
-		jsonFloat(r.StateBits),
+		jsonFloat(r.StateBits), r.TrainingNote,
 	})
 }
 
@@ -257,7 +270,7 @@ func (r *Result) UnmarshalJSON(b []byte) error {
 		float64(j.Perplexity), float64(j.BitsPerChar), float64(j.CILow), float64(j.CIHigh),
 		j.Reference, float64(j.DiffBitsPerChar), float64(j.DiffCILow), float64(j.DiffCIHigh),
 		j.ZeroProbTokens, j.UnknownTokens, float64(j.UnknownRate), j.Comparable, j.NotComparable,
-		float64(j.StateBits),
+		float64(j.StateBits), j.TrainingNote,
 	}
 	if r.ZeroProbTokens > 0 {
 		for _, f := range []*float64{&r.CrossEntropyNats, &r.CrossEntropyBits, &r.BitsPerToken, &r.Perplexity, &r.BitsPerChar} {

@@ -40,6 +40,15 @@ type StateBitser interface {
 	StateBits() float64
 }
 
+// TrainingNoter is implemented by models that may be fitted on a part of
+// the training split (the n-gram models and Markov chains, whose counts a
+// memory budget may limit to a subset): TrainingNote says how much of it,
+// as in "counts from 200 M of 900 M training tokens", or is "" when they
+// were fitted on all of it.
+type TrainingNoter interface {
+	TrainingNote() string
+}
+
 // ProgressScorer is implemented by models that report progress while
 // scoring, as ProgressFunc describes.
 type ProgressScorer interface {
@@ -78,5 +87,6 @@ func Score(ctx context.Context, m LanguageModel, split string, seq []int, charac
 	if s, ok := m.(StateBitser); ok {
 		r.StateBits = s.StateBits()
 	}
+	r.SetTrainingNote(m)
 	return r, lp, nil
 }

@@ -93,6 +93,10 @@ type NGram struct {
 	disc [MaxOrder][4]float64
 }
 
+// TrainingNote is the note of the counts the model reads
+// (Counts.TrainingNote): "" when they cover the whole training split.
+func (m *NGram) TrainingNote() string { return m.counts.TrainingNote() }
+
 // NewNGram returns the n-gram model of the given order (1..c.Order())
 // smoothed by s.
 func NewNGram(c *Counts, order int, s Smoothing) (*NGram, error) {

@@ -29,8 +29,10 @@ import (
 // number of contexts C and of events E; then for contexts 1..C-1 (0 is the
 // empty context) its parent context and symbol (V for the start padding),
 // each parent earlier than its child; then for each event its context,
-// token and raw count. Continuation counts and summaries are derived on
-// loading. Smoothing parameters are not stored: every n-gram model of the
+// token and raw count; then, from version 3 on and only when the counts
+// were taken on a subset of the training split (CountNGramsOf), the number
+// of tokens of the whole split. Continuation counts and summaries are
+// derived on loading. Smoothing parameters are not stored: every n-gram model of the
 // ladder is rebuilt from one counts file with NewNGram.
 //
 // The HMM payload is varints N, V, boundary+1 and the number I of
@@ -40,8 +42,11 @@ import (
 //
 // Versions: 1 had no q (the floor was uniform, ε/V for every symbol); its
 // n-gram counts files read as version 2's, and its HMM files are refused
-// with ErrStaleHMM, so that a cache of them is fitted again.
-const FormatVersion = 2
+// with ErrStaleHMM, so that a cache of them is fitted again. 3 added the
+// split's tokens after the events of counts taken on a subset; counts of
+// a whole split are written as version 2 wrote them, and HMM files did not
+// change.
+const FormatVersion = 3
 
 // ErrStaleHMM is wrapped by the error of reading a hidden Markov model
 // saved by format version 1, whose uniform emission floor charged symbols
@@ -81,13 +86,16 @@ func WriteCounts(w io.Writer, c *Counts) error {
 		p = binary.AppendUvarint(p, uint64(c.evWord[e]))
 		p = binary.AppendUvarint(p, uint64(c.evCount[e]))
 	}
+	if c.split > c.tokens {
+		p = binary.AppendUvarint(p, uint64(c.split))
+	}
 	return writeFile(w, kindCounts, p)
 }
 
 // ReadCounts reads counts written by WriteCounts. Damage gives an error
 // wrapping ErrCorrupt, never a panic.
 func ReadCounts(r io.Reader) (*Counts, error) {
-	p, _, err := readFile(r, kindCounts)
+	p, version, err := readFile(r, kindCounts)
 	if err != nil {
 		return nil, err
 	}
@@ -138,6 +146,16 @@ func ReadCounts(r io.Reader) (*Counts, error) {
 		c.evCtx = append(c.evCtx, int32(ctx))
 		c.evWord = append(c.evWord, int32(w))
 		c.evCount = append(c.evCount, uint32(n))
+	}
+	c.split = tokens
+	if version >= 3 && len(d.buf) != 0 {
+		c.split = d.int(math.MaxInt64)
+		if d.err != nil {
+			return nil, d.err
+		}
+		if c.split <= tokens {
+			return nil, fmt.Errorf("%w: a subset of %d tokens from a split of %d", ErrCorrupt, tokens, c.split)
+		}
 	}
 	if len(d.buf) != 0 {
 		return nil, fmt.Errorf("%w: %d bytes after the events", ErrCorrupt, len(d.buf))

@@ -147,6 +147,10 @@ func FuzzReadPayload(f *testing.F) {
 	var b bytes.Buffer
 	WriteCounts(&b, c)
 	f.Add(b.Bytes()[headerSize:b.Len()-32], uint8(kindCounts))
+	sub, _ := CountNGramsOf(IntTokens(seq), 4, 3, NoBoundary, CountOptions{Memory: 900, piece: 16}) // counts of a subset: the split's size follows the events
+	b.Reset()
+	WriteCounts(&b, sub)
+	f.Add(b.Bytes()[headerSize:b.Len()-32], uint8(kindCounts))
 	h, _ := NewHMM([]float64{.5, .5}, []float64{.9, .1, .2, .8}, []float64{.3, .7, .6, .4}, 2, 2)
 	b.Reset()
 	WriteHMM(&b, h)

@@ -36,7 +36,7 @@ type Manifest struct {
 
 // newManifest describes the ladder cfg gives on ds's training split.
 func newManifest(cfg eval.Config, ds *data.Dataset) Manifest {
-	return Manifest{FileHeader: manifestHeader, TrainSHA256: tokensSHA256(ds.Train.Tokens.Ints()),
+	return Manifest{FileHeader: manifestHeader, TrainSHA256: tokensSHA256(ds.Train.Tokens),
 		VocabSize: ds.Vocab.Len(), Boundary: ds.Vocab.Boundary(), Settings: fitSettings(cfg)}
 }
 
@@ -62,8 +62,8 @@ func ReadManifest(dir string) (Manifest, error) {
 // trusted; note, when non-nil, hears why. progress reports the fit's
 // stages.
 func FitBaselines(ctx context.Context, cfg eval.Config, ds *data.Dataset, dir string, progress eval.ProgressFunc, note func(string)) (*eval.Ladder, error) {
-	train := ds.Train.Tokens.Ints()
-	if len(train) == 0 {
+	train := ds.Train.Tokens
+	if train.Len() == 0 {
 		return nil, errors.New("the training split is empty")
 	}
 	man := newManifest(cfg, ds)
@@ -101,7 +101,8 @@ func FitBaselines(ctx context.Context, cfg eval.Config, ds *data.Dataset, dir st
 	return l, nil
 }
 
-// fitSettings are the [evaluation] keys a fitted ladder depends on.
+// fitSettings are the [evaluation] keys a fitted ladder depends on; the
+// n-gram memory cap in bytes, so that "1GiB" and "1024MiB" are one setting.
 func fitSettings(cfg eval.Config) string {
 	b, _ := json.Marshal(struct {
 		Orders, Markov, HMM []int
@@ -109,17 +110,26 @@ func fitSettings(cfg eval.Config) string {
 		AddK, Tol           float64
 		Iter, Tokens        int
 		Seed                uint64
+		NgramMemory         int64
 	}{cfg.NgramOrders, cfg.MarkovOrders, cfg.HMMStates, cfg.NgramSmoothers, cfg.AddK, cfg.HMMTolerance,
-		cfg.HMMMaxIterations, cfg.HMMMaxTokens, cfg.Seed})
+		cfg.HMMMaxIterations, cfg.HMMMaxTokens, cfg.Seed, cfg.NgramMemoryBytes()})
 	return string(b)
 }
 
-func tokensSHA256(tokens []int) string {
+// tokensSHA256 is the SHA-256 of the ids of tokens, 8 bytes little-endian
+// each, read window by window.
+func tokensSHA256(tokens eval.TokenReader) string {
+	const window = 1 << 16
 	h := sha256.New()
-	var buf [8]byte
-	for _, t := range tokens {
-		binary.LittleEndian.PutUint64(buf[:], uint64(t))
-		h.Write(buf[:])
+	ids := make([]int, min(window, tokens.Len()))
+	buf := make([]byte, 8*len(ids))
+	for off := 0; off < tokens.Len(); off += window {
+		w := ids[:min(window, tokens.Len()-off)]
+		tokens.Read(w, off)
+		for i, t := range w {
+			binary.LittleEndian.PutUint64(buf[8*i:], uint64(t))
+		}
+		h.Write(buf[:8*len(w)])
 	}
 	return hex.EncodeToString(h.Sum(nil))
 }

@@ -118,6 +118,11 @@ func runBaselines(opts *baselinesOptions) error {
 		return err
 	}
 	prog.finish()
+	noted := false
+	for i := range rows { // in the order of models, before sorting
+		rows[i].SetTrainingNote(models[i].Model)
+		noted = noted || rows[i].TrainingNote != ""
+	}
 	eval.SortBestFirst(rows)
 	if opts.JSON {
 		enc := json.NewEncoder(opts.Out)
@@ -129,10 +134,21 @@ func runBaselines(opts *baselinesOptions) error {
 		scored = fmt.Sprintf("the first %s of %s validation tokens (evaluation.heldout_tokens)", thousands(int64(rows[0].Tokens)), thousands(int64(n)))
 	}
 	fmt.Fprintf(opts.Out, "baselines fitted on %s training tokens; %s, best first\n\n", thousands(int64(ds.Train.Tokens.Len())), scored)
+	if noted {
+		fmt.Fprintf(opts.Out, "the n-gram counts stop at evaluation.ngram_memory = %q: the rows noted so counted a seeded subset of the training split\n\n", r.Evaluation.NgramMemory)
+	}
 	tw := tabwriter.NewWriter(opts.Out, 0, 0, 2, ' ', 0)
-	fmt.Fprintln(tw, "model\tkind\tbits/char\tbits/token\tperplexity")
+	header := "model\tkind\tbits/char\tbits/token\tperplexity"
+	if noted {
+		header += "\tnote"
+	}
+	fmt.Fprintln(tw, header)
 	for _, res := range rows {
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%s\n", res.Model, res.Kind, num(res.BitsPerChar, 3), num(res.BitsPerToken, 3), num(res.Perplexity, 2))
+		line := fmt.Sprintf("%s\t%s\t%s\t%s\t%s", res.Model, res.Kind, num(res.BitsPerChar, 3), num(res.BitsPerToken, 3), num(res.Perplexity, 2))
+		if noted {
+			line += "\t" + res.TrainingNote
+		}
+		fmt.Fprintln(tw, line)
 	}
 	tw.Flush()
 	if rd != nil {

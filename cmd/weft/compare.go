@@ -80,6 +80,9 @@ func printComparison(w io.Writer, cmp *comparison, rows []eval.Result) {
 		if r.StateBits > 0 {
 			notes = append(notes, fmt.Sprintf("state holds %.0f bits", r.StateBits))
 		}
+		if r.TrainingNote != "" {
+			notes = append(notes, r.TrainingNote)
+		}
 		note := strings.Join(notes, "; ")
 		diff := "-"
 		if r.Reference != "" && r.Model != r.Reference && !math.IsNaN(r.DiffBitsPerChar) {

@@ -9,6 +9,7 @@ import (
 	"math"
 	"os"
 	"path/filepath"
+	"regexp"
 	"strings"
 	"testing"
 	"time"
@@ -190,6 +191,44 @@ func TestBaselinesReuseCache(t *testing.T) {
 	}
 	if out1 != out2 {
 		t.Errorf("refitted baselines score differently:\n%s\nvs\n%s", out1, out2)
+	}
+}
+
+// TestBaselinesNgramMemory: counts that pass evaluation.ngram_memory are
+// taken on a subset, which the table and every n-gram and Markov row of
+// the JSON say (issue 18); a changed cap refits the cached counts.
+func TestBaselinesNgramMemory(t *testing.T) {
+	dir := t.TempDir()
+	runFile := writeTinyRun(t, dir, 200000)
+	runDir := filepath.Join(dir, "r")
+	args := func(memory string, more ...string) []string {
+		return append([]string{"baselines", runFile, "--run", runDir, "--set", "evaluation.hmm_states=[]",
+			"--set", "evaluation.ngram_memory=" + memory}, more...)
+	}
+	code, out, stderr := runCmd(t, "", args("1MiB")...)
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	note := regexp.MustCompile(`counts from [0-9,]+ of [0-9,]+ training tokens`)
+	if !strings.Contains(out, `evaluation.ngram_memory = "1MiB"`) || !note.MatchString(out) {
+		t.Errorf("the table does not report the subset:\n%s", out)
+	}
+	code, js, stderr := runCmd(t, "", args("1MiB", "--json")...)
+	if code != exitOK {
+		t.Fatalf("--json: exit %d: %s", code, stderr)
+	}
+	var rows []eval.Result
+	if err := json.Unmarshal([]byte(js), &rows); err != nil || len(rows) == 0 {
+		t.Fatalf("--json: %v\n%s", err, js)
+	}
+	for _, r := range rows {
+		if !note.MatchString(r.TrainingNote) {
+			t.Errorf("row %s (%s): training note %q", r.Model, r.Kind, r.TrainingNote)
+		}
+	}
+	code, out, stderr = runCmd(t, "", args("0")...)
+	if code != exitOK || strings.Contains(out, "counts from") {
+		t.Errorf("without a cap: exit %d, stderr %q, table:\n%s", code, stderr, out)
 	}
 }
 
