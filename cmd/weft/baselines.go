@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"fmt"
 	"os"
 	"path/filepath"
@@ -125,9 +124,7 @@ func runBaselines(opts *baselinesOptions) error {
 	}
 	eval.SortBestFirst(rows)
 	if opts.JSON {
-		enc := json.NewEncoder(opts.Out)
-		enc.SetIndent("", "  ")
-		return enc.Encode(rows)
+		return writeJSON(opts.Out, rows)
 	}
 	scored := "validation split"
 	if n := ds.Validation.Tokens.Len(); len(rows) > 0 && rows[0].Tokens < n {

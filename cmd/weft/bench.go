@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -177,9 +176,7 @@ func runBench(opts *benchOptions) error {
 		return err
 	}
 	if opts.JSON {
-		enc := json.NewEncoder(opts.Out)
-		enc.SetIndent("", "  ")
-		return enc.Encode(rep)
+		return writeJSON(opts.Out, rep)
 	}
 	printBench(opts.Out, rep)
 	return nil

@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
 	"os"
@@ -226,9 +225,7 @@ func runBenchScore(opts *benchOptions, r *configs.Run) error {
 		return err
 	}
 	if opts.JSON {
-		enc := json.NewEncoder(opts.Out)
-		enc.SetIndent("", "  ")
-		return enc.Encode(rep)
+		return writeJSON(opts.Out, rep)
 	}
 	printBenchScore(opts.Out, rep)
 	return nil

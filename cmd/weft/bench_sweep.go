@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
 	"runtime"
@@ -84,9 +83,7 @@ func runBenchSweep(opts *benchOptions, r *configs.Run) error {
 	}
 	sw.FastestThreads = sw.Points[best].Threads
 	if opts.JSON {
-		enc := json.NewEncoder(opts.Out)
-		enc.SetIndent("", "  ")
-		return enc.Encode(sw)
+		return writeJSON(opts.Out, sw)
 	}
 	printBenchSweep(opts.Out, sw)
 	return nil

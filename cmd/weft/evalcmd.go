@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"errors"
 	"fmt"
 	"path/filepath"
@@ -99,9 +98,7 @@ func runEval(opts *evalOptions) error {
 		return err
 	}
 	if opts.JSON {
-		enc := json.NewEncoder(opts.Out)
-		enc.SetIndent("", "  ")
-		return enc.Encode(cmp) // the eval report format, eval.ReportVersion
+		return writeJSON(opts.Out, cmp) // the eval report format, eval.ReportVersion
 	}
 	if opts.Top < 0 {
 		return usagef("--top must be 1 or more, got %d", opts.Top)

@@ -1,7 +1,6 @@
 package main
 
 import (
-	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -76,9 +75,7 @@ func runPrepare(opts *prepareOptions) error {
 		}
 	}
 	if opts.JSON {
-		enc := json.NewEncoder(opts.Out)
-		enc.SetIndent("", "  ")
-		return enc.Encode(prepareJSON{ds.Report, speed})
+		return writeJSON(opts.Out, prepareJSON{ds.Report, speed})
 	}
 	printSplitReport(opts.Out, ds)
 	speed.print(opts.Out)

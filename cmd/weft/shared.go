@@ -63,6 +63,14 @@ type cmdContext struct {
 	*deps
 }
 
+// writeJSON writes v to w as JSON indented by two spaces, the form of
+// every --json output.
+func writeJSON(w io.Writer, v any) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(v)
+}
+
 // thousands formats n with commas between groups of three digits.
 func thousands(n int64) string {
 	s := fmt.Sprint(n)
