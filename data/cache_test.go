@@ -1,6 +1,7 @@
 package data
 
 import (
+	"context"
 	"flag"
 	"os"
 	"path/filepath"
@@ -49,5 +50,49 @@ func TestCacheFixture(t *testing.T) {
 	}
 	if string(frozen) != string(b) {
 		t.Errorf("the cache written today differs from the frozen version-1 bytes; bump cacheVersion if the format changed")
+	}
+}
+
+// TestSpooledCacheBytes: the cache Prepare writes through its spool files
+// (a corpus larger than memory) is byte for byte what the in-memory
+// encoder writes for the same dataset, and the splits it maps read back
+// the same ids, for a tokenizer with character records (lower-cased word
+// pieces, unknown words) and the line split.
+func TestSpooledCacheBytes(t *testing.T) {
+	dir := writeFiles(t, map[string]string{"c.txt": numberedCorpus(400, 30) + "Über Straße ÆON\n"})
+	cfg := testConfig("c.txt")
+	cfg.Tokenizer, cfg.Lowercase, cfg.MinCount = "word", true, 2
+	cfg.Split, cfg.ValidationFraction, cfg.TestFraction = "line", 0.1, 0.1
+	mem, err := prepare(t, cfg, dir)
+	if err != nil {
+		t.Fatal(err)
+	}
+	cache := t.TempDir()
+	ds, err := PrepareEnv(context.Background(), cfg, Env{BaseDir: dir, CacheDir: cache})
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer ds.Close()
+	written, err := os.ReadFile(filepath.Join(cache, TokenCacheFile))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var key [32]byte
+	copy(key[:], written[12:44])
+	want, err := encodeCache(key, mem)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if string(written) != string(want) {
+		t.Errorf("the spooled cache (%d bytes) differs from the in-memory encoding (%d bytes)", len(written), len(want))
+	}
+	for i, s := range ds.Splits() {
+		m := mem.Splits()[i]
+		if !slices.Equal(s.Tokens.Ints(), m.Tokens.Ints()) || !slices.Equal(s.TokenChars(nil), m.TokenChars(nil)) || len(m.odd) == 0 && i == 0 {
+			t.Errorf("%s split: the mapped ids or characters differ (or the test has no character records)", s.Name)
+		}
+	}
+	if ents, _ := os.ReadDir(cache); len(ents) != 1 {
+		t.Errorf("the cache folder holds %d files, want only %s (the spool files removed)", len(ents), TokenCacheFile)
 	}
 }
