@@ -100,6 +100,11 @@ func Prepare(ctx context.Context, r *configs.Run, d *Dir, stdin io.Reader) (*dat
 	cacheDir := ""
 	if d != nil {
 		cacheDir = d.Path()
+		// Spool files of an encoding that a crash interrupted (they can
+		// be as large as the cache); the lock says no one else writes here.
+		if _, err := atomicfile.CleanTemp(cacheDir); err != nil {
+			return nil, err
+		}
 	}
 	ds, err := data.PrepareEnv(ctx, r.Data, data.Env{CacheDir: cacheDir, Stdin: stdin})
 	if err != nil {

@@ -159,3 +159,31 @@ func groupDigitsTest(n int) string {
 	}
 	return s
 }
+
+// TestPrepareCleansSpool: the spool file an interrupted encoding left in a
+// run directory (as large as the token cache) is removed when the
+// directory is next prepared under its lock; the cache is written anew.
+func TestPrepareCleansSpool(t *testing.T) {
+	dir := t.TempDir()
+	r := tinyRun(t, dir)
+	d, err := Open(filepath.Join(dir, "run"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer d.Close()
+	stale := filepath.Join(d.Path(), ".tmp-encoding-1234")
+	if err := os.WriteFile(stale, make([]byte, 4096), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	ds, err := Prepare(context.Background(), r, d, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer ds.Close()
+	if _, err := os.Stat(stale); !os.IsNotExist(err) {
+		t.Errorf("the stale spool file is still there (%v)", err)
+	}
+	if ds.Train.Tokens.Len() == 0 {
+		t.Error("no training tokens")
+	}
+}
