@@ -13,6 +13,7 @@ import (
 // ru_maxrss (exec_mmap in the kernel's fs/exec.c calls
 // setmax_mm_hiwater_rss on the old mm).
 func TestRunBigParent(t *testing.T) {
+	skipUnderRace(t)
 	if runtime.GOOS != "linux" {
 		t.Skip("the inherited high-water mark is a Linux matter")
 	}

@@ -70,6 +70,7 @@ func childCmd(t *testing.T, what, arg string) *exec.Cmd {
 // set and (on Linux) a peak of anonymous memory of at least 200 MB, and not
 // much more (the Go runtime and the test binary: under 64 MB).
 func TestRunAnon(t *testing.T) {
+	skipUnderRace(t)
 	if runtime.GOOS != "linux" && runtime.GOOS != "darwin" {
 		t.Skip("getrusage's maximum resident set is read on Linux and macOS")
 	}
@@ -102,6 +103,7 @@ func TestRunAnon(t *testing.T) {
 // it in its maximum resident set but not in its anonymous memory: the
 // distinction the bounded-memory checks rest on.
 func TestRunMapped(t *testing.T) {
+	skipUnderRace(t)
 	if runtime.GOOS != "linux" {
 		t.Skip("RssAnon is read from Linux's /proc")
 	}
@@ -126,6 +128,7 @@ func TestRunMapped(t *testing.T) {
 // TestRunKill: a child that keeps growing is killed once it passes the
 // limit, and Run says so.
 func TestRunKill(t *testing.T) {
+	skipUnderRace(t)
 	if runtime.GOOS != "linux" {
 		t.Skip("the limit is checked on Linux's /proc samples")
 	}

@@ -1,0 +1,5 @@
+//go:build !race
+
+package memcheck
+
+const raceEnabled = false
