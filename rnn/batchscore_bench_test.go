@@ -10,7 +10,7 @@ import (
 )
 
 // BenchmarkScoreVsTrain measures, side by side for the reference character
-// shape (ENGINE.md's 1×256 LSTM, V=96, E=64), tokens per second of a
+// shape (the reference 1×256 LSTM, V=96, E=64), tokens per second of a
 // training window (B=32, T=64, forward and backward), of scoring lines one
 // at a time (LogProbs, a batch of one) and of scoring them 64 at a time
 // (LogProbsBatch), on one thread and on two. The lines are 256 random

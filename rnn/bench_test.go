@@ -19,12 +19,12 @@ type trainShape struct {
 }
 
 var benchShapes = []trainShape{
-	{"char", 96, 64, 256, 32, 64},     // the reference workload of ENGINE.md
+	{"char", 96, 64, 256, 32, 64},     // the project's reference workload
 	{"word", 10000, 256, 256, 32, 35}, // a word-level shape
 }
 
 // newBenchTrainer builds a 1-layer model of the given cell and shape with
-// SGD (as in ENGINE.md's reference workload) and a window of random tokens.
+// SGD (as in the project's reference workload) and a window of random tokens.
 func newBenchTrainer(tb testing.TB, cell string, s trainShape, opt string, pool *linalg.Pool) (*Trainer[float32], Window) {
 	cfg := DefaultConfig()
 	cfg.Cell, cfg.HiddenSize, cfg.EmbeddingSize = cell, s.H, s.E

@@ -10,15 +10,15 @@ import (
 
 // gorgoniaTol is the agreement between weft's hand-written BPTT and
 // gorgonia's symbolic gradients of the same graph in float64: both compute
-// the same sums in different orders, so they agree to rounding (ENGINE.md
-// measured 3e-16 on a tiny LSTM).
+// the same sums in different orders, so they agree to rounding (about
+// 3e-16 on a tiny LSTM when the engine was designed).
 const gorgoniaTol = 1e-12
 
 // gorgoniaGraph builds the model's window as a gorgonia expression graph:
 // the same embedding, cells, projection, output layer and mean
 // cross-entropy, unrolled over T steps from the carried state h0 (c0), with
 // every weight passed in as an explicit value (gorgonia's initialisers draw
-// from the global generator; ENGINE.md "Known traps").
+// from the global generator, which would tie the values to test order).
 func gorgoniaGraph(t *testing.T, m *Model[float64], h0, c0 [][]float64, inputs, targets []int, B, T int) (float64, map[string][]float64) {
 	t.Helper()
 	g := G.NewGraph()

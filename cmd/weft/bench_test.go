@@ -134,9 +134,9 @@ func TestBenchJSON(t *testing.T) {
 	}
 }
 
-// TestBenchFLOPs checks the operation count against the reference LSTM of
-// the engine notes (ENGINE.md: 6 × (E·4H + H·4H + H·V) = 6 × 352,256 per
-// token for V=96, E=64, H=256) and against counts worked out by hand.
+// TestBenchFLOPs checks the operation count against the project's
+// reference LSTM (6 × (E·4H + H·4H + H·V) = 6 × 352,256 per token for
+// V=96, E=64, H=256) and against counts worked out by hand.
 func TestBenchFLOPs(t *testing.T) {
 	tests := []struct {
 		name string

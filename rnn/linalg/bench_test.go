@@ -7,7 +7,7 @@ import (
 	"testing"
 )
 
-// benchShapes are the products of the reference LSTM of ENGINE.md (H=256,
+// benchShapes are the products of the project's reference LSTM (H=256,
 // 4H=1024, V=96, B=32, T·B=2048), with the transposes package rnn uses
 // (weights stored out×in: forward products are ABᵀ), the same shapes
 // untransposed, and a large square for the ceiling.
@@ -15,7 +15,7 @@ var benchShapes = []struct {
 	op      string // NN, NT (ABᵀ) or TN (AᵀB)
 	m, n, k int
 }{
-	{"NN", 32, 1024, 256},    // recurrent step, as in ENGINE.md
+	{"NN", 32, 1024, 256},    // recurrent step, as in the reference workload
 	{"NT", 32, 1024, 256},    // recurrent step as rnn calls it: h·W_hhᵀ
 	{"NN", 2048, 1024, 256},  // input projection of a window
 	{"NT", 2048, 1024, 256},  // same, as rnn calls it
@@ -125,7 +125,7 @@ func BenchmarkElementwise(b *testing.B) {
 			sinkF32 = dst[0]
 		})
 	}
-	// Softmax cross-entropy over the output layer of ENGINE.md's model:
+	// Softmax cross-entropy over the output layer of the reference model:
 	// 32 rows of V=96, and a large vocabulary, V=10000.
 	for _, v := range []int{96, 10000} {
 		const rows = 32
