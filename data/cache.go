@@ -130,11 +130,7 @@ func writeCacheTo(w io.Writer, key [32]byte, ds *Dataset) error {
 		s.Tokens.Each(tokenReadChunk, func(_ int, ids []int) error {
 			pack = pack[:0]
 			for _, id := range ids {
-				if width == 2 {
-					pack = binary.LittleEndian.AppendUint16(pack, uint16(id))
-				} else {
-					pack = binary.LittleEndian.AppendUint32(pack, uint32(id))
-				}
+				pack = appendID(pack, id, width)
 			}
 			out.Write(pack)
 			return nil
@@ -275,6 +271,7 @@ func scanCache(r io.Reader, checkIDs bool) (*Dataset, [32]byte, cacheLayout, err
 	var splits [3]*Split
 	var num [12]byte
 	buf := make([]byte, width*tokenReadChunk)
+	ids := make([]int, tokenReadChunk)
 	for i, name := range []string{SplitTrain, SplitValidation, SplitTest} {
 		m := meta.Splits[i]
 		s := &Split{Name: name, vocab: v, Characters: m.Characters, Lines: m.Lines, OOV: m.OOV, Offset: m.Offset}
@@ -293,13 +290,8 @@ func scanCache(r io.Reader, checkIDs bool) (*Dataset, [32]byte, cacheLayout, err
 				return bad("%s split: %d tokens past the end", name, n)
 			}
 			if checkIDs {
-				for q := 0; q < int(k); q++ {
-					var id int
-					if width == 2 {
-						id = int(binary.LittleEndian.Uint16(p[q*2:]))
-					} else {
-						id = int(binary.LittleEndian.Uint32(p[q*4:]))
-					}
+				decodeIDs(ids[:k], p, width)
+				for q, id := range ids[:k] {
 					if id >= v.Len() {
 						return bad("%s split: token %d has id %d outside the vocabulary of %d", name, j+uint64(q), id, v.Len())
 					}

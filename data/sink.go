@@ -2,7 +2,6 @@ package data
 
 import (
 	"bufio"
-	"encoding/binary"
 	"fmt"
 	"os"
 
@@ -38,16 +37,11 @@ func newFileSink(dir string, width int) (*tokenSink, error) {
 // reported by finish.
 func (k *tokenSink) add(id int) {
 	k.n++
-	if k.width == 2 {
-		binary.LittleEndian.PutUint16(k.buf[:], uint16(id))
-	} else {
-		binary.LittleEndian.PutUint32(k.buf[:], uint32(id))
-	}
 	if k.f == nil {
-		k.mem = append(k.mem, k.buf[:k.width]...)
+		k.mem = appendID(k.mem, id, k.width)
 		return
 	}
-	k.w.Write(k.buf[:k.width])
+	k.w.Write(appendID(k.buf[:0], id, k.width))
 }
 
 // finish flushes the sink and returns its ids as Tokens: a view of the

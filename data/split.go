@@ -1,6 +1,9 @@
 package data
 
-import "fmt"
+import (
+	"fmt"
+	"sort"
+)
 
 // Split names, in the order of Dataset.Splits.
 const (
@@ -76,15 +79,7 @@ func (s *Split) WindowChars(dst, ids []int, off int) []int {
 		dst[j] = int(s.vocab.chars[id])
 	}
 	// The records are in position order: find the window's first.
-	lo, hi := 0, len(s.odd)
-	for lo < hi {
-		m := int(uint(lo+hi) >> 1)
-		if s.odd[m].Pos < int64(off) {
-			lo = m + 1
-		} else {
-			hi = m
-		}
-	}
+	lo := sort.Search(len(s.odd), func(m int) bool { return s.odd[m].Pos >= int64(off) })
 	for _, o := range s.odd[lo:] {
 		if o.Pos >= int64(off+len(dst)) {
 			break

@@ -53,16 +53,15 @@ func (t *Tokens) At(i int) int {
 	if uint(i) >= uint(t.Len()) {
 		panic(fmt.Sprintf("data.Tokens: index %d out of range [0,%d)", i, t.Len()))
 	}
-	switch {
-	case t.ints != nil:
+	if t.ints != nil {
 		return t.ints[i]
-	case t.b != nil && t.width == 2:
-		return int(binary.LittleEndian.Uint16(t.b[2*i:]))
-	case t.b != nil:
-		return int(binary.LittleEndian.Uint32(t.b[4*i:]))
 	}
 	var buf [1]int
-	t.Read(buf[:], i)
+	if t.b != nil {
+		decodeIDs(buf[:], t.b[i*t.width:], t.width) // no page accounting for one id
+	} else {
+		t.Read(buf[:], i)
+	}
 	return buf[0]
 }
 
@@ -88,8 +87,8 @@ func (t *Tokens) Read(dst []int, off int) {
 		}
 		return
 	}
-	var buf [tokenReadChunk]byte
 	per := tokenReadChunk / t.width
+	buf := make([]byte, min(len(dst), per)*t.width)
 	for len(dst) > 0 {
 		k := min(len(dst), per)
 		p := buf[:k*t.width]
@@ -101,6 +100,8 @@ func (t *Tokens) Read(dst []int, off int) {
 	}
 }
 
+// decodeIDs sets dst to the ids packed in b, width bytes each
+// (little-endian, as the cache stores them).
 func decodeIDs(dst []int, b []byte, width int) {
 	if width == 2 {
 		for j := range dst {
@@ -111,6 +112,14 @@ func decodeIDs(dst []int, b []byte, width int) {
 	for j := range dst {
 		dst[j] = int(binary.LittleEndian.Uint32(b[4*j:]))
 	}
+}
+
+// appendID appends id packed in width bytes, as decodeIDs reads it.
+func appendID(b []byte, id, width int) []byte {
+	if width == 2 {
+		return binary.LittleEndian.AppendUint16(b, uint16(id))
+	}
+	return binary.LittleEndian.AppendUint32(b, uint32(id))
 }
 
 // Slice returns the tokens [from, to) as a Tokens sharing t's storage.
