@@ -182,23 +182,31 @@ func readCache(path string, key [32]byte) (*Dataset, error) {
 		}
 		return nil, fmt.Errorf("token cache %q: %w: %v", path, ErrCorrupt, err)
 	}
-	ds, gotKey, lay, err := scanCache(bufio.NewReaderSize(f, 1<<20), true)
+	ds, gotKey, err := mapCache(f, path, true)
 	if err != nil {
-		f.Close()
-		if errors.Is(err, errStale) {
-			return nil, err
-		}
-		return nil, fmt.Errorf("token cache %q: %w", path, err)
+		return nil, err
 	}
 	if gotKey != key {
-		f.Close()
+		ds.Close()
 		return nil, errStale
 	}
-	if err := lay.attach(ds, f, path); err != nil {
-		f.Close()
-		return nil, fmt.Errorf("token cache %q: %w", path, err)
-	}
 	return ds, nil
+}
+
+// mapCache checks the cache file open in f in one streaming pass (each id
+// against the vocabulary too when checkIDs), then maps it so that the
+// splits' Tokens view it, and returns the key it holds. On error it closes
+// f; every error names path.
+func mapCache(f *os.File, path string, checkIDs bool) (*Dataset, [32]byte, error) {
+	ds, key, lay, err := scanCache(bufio.NewReaderSize(f, 1<<20), checkIDs)
+	if err == nil {
+		err = lay.attach(ds, f, path)
+	}
+	if err != nil {
+		f.Close()
+		return nil, key, fmt.Errorf("token cache %q: %w", path, err)
+	}
+	return ds, key, nil
 }
 
 // cacheLayout is where each split's packed ids lie in a cache file.

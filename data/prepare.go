@@ -1,7 +1,6 @@
 package data
 
 import (
-	"bufio"
 	"context"
 	"crypto/sha256"
 	"errors"
@@ -193,15 +192,8 @@ func openWritten(path string) (*Dataset, error) {
 	if err != nil {
 		return nil, fmt.Errorf("token cache %q: %w", path, err)
 	}
-	ds, _, lay, err := scanCache(bufio.NewReaderSize(f, 1<<20), false)
-	if err == nil {
-		err = lay.attach(ds, f, path)
-	}
-	if err != nil {
-		f.Close()
-		return nil, fmt.Errorf("token cache %q: %w", path, err)
-	}
-	return ds, nil
+	ds, _, err := mapCache(f, path, false)
+	return ds, err
 }
 
 // spoolStdin copies standard input to a temporary file, so the passes can
