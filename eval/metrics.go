@@ -356,15 +356,7 @@ func MarkIndices(n int, positions []int) ([]bool, error) {
 
 // TokenCounts returns how often each token id 0..vocab-1 occurs in train;
 // ids outside the range are ignored.
-func TokenCounts(train []int, vocab int) []int {
-	c := make([]int, vocab)
-	for _, w := range train {
-		if w >= 0 && w < vocab {
-			c[w]++
-		}
-	}
-	return c
-}
+func TokenCounts(train []int, vocab int) []int { return TokenCountsOf(IntTokens(train), vocab) }
 
 // FrequencyBands groups the held-out tokens seq by how often each was seen
 // in training (trainCounts, from TokenCounts) into decades: "unseen" (0),

@@ -83,10 +83,7 @@ func (s *session) plan(timed int, secPerStep, tokPerSec float64) error {
 	now := s.o.Now()
 	step := s.tr.Steps()
 	left := s.deadline.Sub(now)
-	valTokens := s.ds.Validation.Tokens.Len()
-	if max := s.r.Evaluation.HeldOutTokens; max > 0 {
-		valTokens = min(valTokens, max) // what a validation scores
-	}
+	valTokens := scoredTokens(s.ds.Validation.Tokens.Len(), s.r.Evaluation.HeldOutTokens) // what a validation scores
 	valSec := float64(valTokens) / (3 * tokPerSec)
 	tokPerStep := tokPerSec * secPerStep
 	var over float64

@@ -153,10 +153,19 @@ func CompareDataset(ctx context.Context, cfg eval.Config, ds *data.Dataset, spli
 		Unknown:       ds.Vocab.Unknown(),
 		Lowercased:    ds.Vocab.Lowercase(),
 		CharacterUnit: characterUnit(ds.Vocab.Kind()),
-		TrainCounts:   trainCounts(ds),
+		TrainCounts:   eval.TokenCountsOf(ds.Train.Tokens, ds.Vocab.Len()),
 		Marks:         marks,
 		Progress:      progress,
 	})
+}
+
+// scoredTokens is how many of a held-out split's n tokens are scored under
+// evaluation.heldout_tokens = max: the first max of them, all when max is 0.
+func scoredTokens(n, max int) int {
+	if max > 0 {
+		return min(n, max)
+	}
+	return n
 }
 
 // HeldOut is the split as eval.Compare scores it: its ids and the
@@ -164,28 +173,15 @@ func CompareDataset(ctx context.Context, cfg eval.Config, ds *data.Dataset, spli
 // the split is longer (evaluation.heldout_tokens; HeldOut.Of then says how
 // long the split is). It costs 16 bytes a token it holds.
 func HeldOut(s *data.Split, max int) eval.HeldOut {
-	n := s.Tokens.Len()
 	var h eval.HeldOut
-	if max > 0 && n > max {
-		h.Of, n = n, max
+	n := scoredTokens(s.Tokens.Len(), max)
+	if n < s.Tokens.Len() {
+		h.Of = s.Tokens.Len()
 	}
 	h.Tokens = make([]int, n)
 	s.Tokens.Read(h.Tokens, 0)
 	h.Chars = s.WindowChars(make([]int, n), h.Tokens, 0)
 	return h
-}
-
-// trainCounts is eval.TokenCounts of the training split, counted window
-// by window instead of over a copy of the split.
-func trainCounts(ds *data.Dataset) []int {
-	c := make([]int, ds.Vocab.Len())
-	ds.Train.Tokens.Each(1<<16, func(_ int, ids []int) error {
-		for _, w := range ids {
-			c[w]++
-		}
-		return nil
-	})
-	return c
 }
 
 // characterUnit says what a character of Split.TokenChars is for the

@@ -717,10 +717,10 @@ func (s *session) validate() error {
 		// The tokens eval.Compare scores on validation, and its
 		// denominator: the characters they cover (for symbols, without
 		// the whitespace between them).
-		s.valTokens = v.Tokens
-		if max := s.r.Evaluation.HeldOutTokens; max > 0 && v.Tokens.Len() > max {
-			s.valTokens = v.Tokens.Slice(0, max)
-			s.info("validation scores the first %d of the %d validation tokens (evaluation.heldout_tokens)", max, v.Tokens.Len())
+		n := scoredTokens(v.Tokens.Len(), s.r.Evaluation.HeldOutTokens)
+		s.valTokens = v.Tokens.Slice(0, n)
+		if n < v.Tokens.Len() {
+			s.info("validation scores the first %d of the %d validation tokens (evaluation.heldout_tokens)", n, v.Tokens.Len())
 		}
 		s.valChars = v.PrefixCharacters(s.valTokens.Len())
 	}
