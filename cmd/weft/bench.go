@@ -117,6 +117,21 @@ type benchShape struct {
 	Parameters int    `json:"parameters"`
 }
 
+// newBenchShape describes net as r configures it, over vocab entries, in
+// windows of batch streams × unroll steps on threads threads.
+func newBenchShape(net *rnn.Model[float32], r *configs.Run, vocab, batch, unroll, threads int) benchShape {
+	sh := benchShape{
+		Cell: net.Cell().Name(), Layers: r.Model.Layers, Vocab: vocab,
+		Embedding: r.Model.EmbeddingSize, Hidden: r.Model.HiddenSize, Projection: r.Model.ProjectionSize,
+		Batch: batch, Unroll: unroll, Threads: threads, Optimizer: r.Training.Optimizer, DType: "float32",
+		Parameters: net.NumParams(), Output: "full",
+	}
+	if cs := net.OutputClasses(); cs != nil {
+		sh.Output, sh.Classes = "class", len(cs)-1
+	}
+	return sh
+}
+
 // benchReport is what bench measured; its JSON form is for scripts.
 type benchReport struct {
 	Model               benchShape         `json:"model"`
@@ -249,12 +264,7 @@ func bench(opts *benchOptions, r *configs.Run) (*benchReport, error) {
 	positions := benchPositions(tc, opts.Warmup, opts.Windows)
 	sec := total.Seconds()
 	rep := &benchReport{
-		Model: benchShape{
-			Cell: net.Cell().Name(), Layers: r.Model.Layers, Vocab: opts.Vocab,
-			Embedding: r.Model.EmbeddingSize, Hidden: r.Model.HiddenSize, Projection: r.Model.ProjectionSize,
-			Batch: B, Unroll: U, Threads: pool.Threads(), Optimizer: tc.Optimizer, DType: "float32",
-			Parameters: net.NumParams(), Output: "full",
-		},
+		Model:               newBenchShape(net, r, opts.Vocab, B, U, pool.Threads()),
 		WarmupWindows:       opts.Warmup,
 		Windows:             opts.Windows,
 		Tokens:              tokens,
@@ -270,9 +280,6 @@ func bench(opts *benchOptions, r *configs.Run) (*benchReport, error) {
 		HeapSysBytes:        after.HeapSys,
 		AllocBytesPerWindow: float64(after.TotalAlloc-before.TotalAlloc) / float64(opts.Windows),
 		AllocsPerWindow:     float64(after.Mallocs-before.Mallocs) / float64(opts.Windows),
-	}
-	if cs := net.OutputClasses(); cs != nil {
-		rep.Model.Output, rep.Model.Classes = "class", len(cs)-1
 	}
 	for p := range rnn.NumPhases {
 		rep.PhaseSeconds[p.String()] = pt[p].Seconds()
@@ -358,8 +365,10 @@ func benchPositions(tc rnn.TrainConfig, warmup, windows int) int64 {
 	return n
 }
 
-func median(ds []time.Duration) time.Duration {
-	s := slices.Clone(ds)
+// median is the middle of xs (the mean of the two middle ones for an even
+// count); xs is left as it is.
+func median[T ~int64 | ~float64](xs []T) T {
+	s := slices.Clone(xs)
 	slices.Sort(s)
 	m := len(s) / 2
 	if len(s)%2 == 1 {

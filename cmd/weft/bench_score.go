@@ -99,17 +99,9 @@ func benchScore(opts *benchOptions, r *configs.Run) (*benchScoreReport, error) {
 	wins = wins[opts.Warmup:]
 
 	rep := &benchScoreReport{
-		Model: benchShape{
-			Cell: net.Cell().Name(), Layers: r.Model.Layers, Vocab: V,
-			Embedding: r.Model.EmbeddingSize, Hidden: r.Model.HiddenSize, Projection: r.Model.ProjectionSize,
-			Batch: tc.BatchSize, Unroll: tc.UnrollSteps, Threads: tc.Threads, Optimizer: tc.Optimizer, DType: "float32",
-			Parameters: net.NumParams(), Output: "full",
-		},
-		File: opts.Score, WarmupWindows: opts.Warmup, Windows: opts.Windows,
+		Model: newBenchShape(net, r, V, tc.BatchSize, tc.UnrollSteps, tc.Threads),
+		File:  opts.Score, WarmupWindows: opts.Warmup, Windows: opts.Windows,
 		LoadStart: loadAverage(),
-	}
-	if cs := net.OutputClasses(); cs != nil {
-		rep.Model.Output, rep.Model.Classes = "class", len(cs)-1
 	}
 	train := func(round *benchScoreRound, ws []rnn.Window) error {
 		net.SetPool(pool)
@@ -193,12 +185,8 @@ func benchScore(opts *benchOptions, r *configs.Run) (*benchScoreReport, error) {
 	for i, round := range rep.Rounds {
 		ratios[i] = round.Ratio
 	}
-	slices.Sort(ratios)
-	rep.RatioMin, rep.RatioMax = ratios[0], ratios[len(ratios)-1]
-	rep.RatioMedian = ratios[len(ratios)/2]
-	if len(ratios)%2 == 0 {
-		rep.RatioMedian = (ratios[len(ratios)/2-1] + ratios[len(ratios)/2]) / 2
-	}
+	rep.RatioMin, rep.RatioMax = slices.Min(ratios), slices.Max(ratios)
+	rep.RatioMedian = median(ratios)
 	return rep, nil
 }
 
