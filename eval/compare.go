@@ -74,7 +74,7 @@ func scoredNote(in CompareInput) string {
 	var parts []string
 	part := func(h HeldOut, name string) {
 		if h.Of > len(h.Tokens) {
-			parts = append(parts, fmt.Sprintf("the first %s of %s %s tokens", groupDigits(len(h.Tokens)), groupDigits(h.Of), name))
+			parts = append(parts, fmt.Sprintf("the first %s of %s %s tokens", Thousands(int64(len(h.Tokens))), Thousands(int64(h.Of)), name))
 		}
 	}
 	if in.Split == "validation" {
@@ -89,11 +89,17 @@ func scoredNote(in CompareInput) string {
 	return "scored on " + strings.Join(parts, " and ") + " (evaluation.heldout_tokens)"
 }
 
-// groupDigits writes n with commas between groups of three digits.
-func groupDigits(n int) string {
-	s := strconv.Itoa(n)
+// Thousands writes n with commas between groups of three digits, as every
+// table of weft writes counts.
+func Thousands(n int64) string {
+	s := strconv.FormatInt(n, 10)
+	neg := strings.HasPrefix(s, "-")
+	s = strings.TrimPrefix(s, "-")
 	for i := len(s) - 3; i > 0; i -= 3 {
 		s = s[:i] + "," + s[i:]
+	}
+	if neg {
+		s = "-" + s
 	}
 	return s
 }

@@ -17,6 +17,7 @@ import (
 	"weft/configs"
 	"weft/data"
 	"weft/data/atomicfile"
+	"weft/eval"
 	"weft/rnn/linalg"
 
 	"github.com/spf13/cobra"
@@ -72,17 +73,7 @@ func writeJSON(w io.Writer, v any) error {
 }
 
 // thousands formats n with commas between groups of three digits.
-func thousands(n int64) string {
-	s := fmt.Sprint(n)
-	neg := ""
-	if n < 0 {
-		neg, s = "-", s[1:]
-	}
-	for i := len(s) - 3; i > 0; i -= 3 {
-		s = s[:i] + "," + s[i:]
-	}
-	return neg + s
-}
+func thousands(n int64) string { return eval.Thousands(n) }
 
 // addThreadsFlag adds --threads with its one meaning on every verb that
 // computes: the threads the command computes with (def when not given).

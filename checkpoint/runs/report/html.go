@@ -17,6 +17,7 @@ import (
 
 	"weft/checkpoint/runs"
 	"weft/data/atomicfile"
+	"weft/eval"
 )
 
 // PageFile is the page's name inside the run's report folder.
@@ -265,15 +266,4 @@ func colorAt(m palette.ColorMap, v float64) string {
 }
 
 // thousands writes n with commas between groups of three digits.
-func thousands(n int64) string {
-	s := fmt.Sprint(n)
-	neg := strings.HasPrefix(s, "-")
-	s = strings.TrimPrefix(s, "-")
-	for i := len(s) - 3; i > 0; i -= 3 {
-		s = s[:i] + "," + s[i:]
-	}
-	if neg {
-		s = "-" + s
-	}
-	return s
-}
+func thousands(n int64) string { return eval.Thousands(n) }
