@@ -462,11 +462,7 @@ func (c *Counts) TrainingNote() string {
 // significant figures or more ("4.19 M", "200 M", "1250 M").
 func tokenAmount(n int) string {
 	if n < 1_000_000 {
-		s := strconv.Itoa(n)
-		for i := len(s) - 3; i > 0; i -= 3 {
-			s = s[:i] + "," + s[i:]
-		}
-		return s
+		return Thousands(int64(n))
 	}
 	m := float64(n) / 1e6
 	prec := 0
