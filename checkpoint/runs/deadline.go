@@ -109,27 +109,14 @@ func (s *session) plan(timed int, secPerStep, tokPerSec float64) error {
 		planned = w + 1
 	}
 	old := s.prog.PlannedSteps
-	s.prog.PlannedSteps, s.decaySteps = planned, planned
-	f, err := s.file()
-	if err != nil {
-		return err
-	}
-	tr, err := rnn.NewTrainer(s.net, s.trainConfig(s.prog.LearningRateScale), s.pool)
-	if err != nil {
-		return err
-	}
-	if err := checkpoint.RestoreTrainer(f, tr); err != nil {
-		return fmt.Errorf("deadline plan: %w", err)
-	}
-	s.tr = tr
 	p := Plan{Schedule: tc.Schedule, PlannedSteps: planned, MadeAtStep: step, MadeAt: now, Deadline: s.deadline,
 		TimedWindows: timed, SecondsPerStep: secPerStep, TokensPerSecond: tokPerSec,
 		ValidationSecondsPerStep: over, ValidationSeconds: valSec, Margin: PlanMargin}
 	if prev, err := ReadPlan(s.d.Path()); err == nil && s.replanning {
-		p.Replans, p.PreviousSteps = prev.Replans+1, old
+		p.Replans, p.PreviousSteps, p.CatchUps = prev.Replans+1, old, prev.CatchUps
 	}
-	if err := s.d.writePlan(p); err != nil {
-		s.warn("%s", oneLine(err.Error()))
+	if err := s.adopt(p); err != nil {
+		return err
 	}
 	end := now.Add(time.Duration(float64(planned-step) * (secPerStep + over) * float64(time.Second)))
 	if s.replanning {
@@ -145,5 +132,93 @@ func (s *session) plan(timed int, secPerStep, tokPerSec float64) error {
 	s.planning = false
 	s.info("deadline plan: %.0f tokens/s measured over %d windows; the %s schedule reaches its floor and the run ends at step %d, about %s, keeping %.0f%% of the time left as margin before the deadline %s",
 		tokPerSec, timed, tc.Schedule, planned, end.Format("15:04:05"), PlanMargin*100, s.deadline.Format("15:04:05"))
+	return nil
+}
+
+// adopt makes p the run's plan: the schedule's length from now on, in the
+// progress the next checkpoint records and in the plan file.
+func (s *session) adopt(p Plan) error {
+	s.prog.PlannedSteps, s.decaySteps = p.PlannedSteps, p.PlannedSteps
+	f, err := s.file()
+	if err != nil {
+		return err
+	}
+	tr, err := rnn.NewTrainer(s.net, s.trainConfig(s.prog.LearningRateScale), s.pool)
+	if err != nil {
+		return err
+	}
+	if err := checkpoint.RestoreTrainer(f, tr); err != nil {
+		return fmt.Errorf("deadline plan: %w", err)
+	}
+	s.tr = tr
+	if err := s.d.writePlan(p); err != nil {
+		s.warn("%s", oneLine(err.Error()))
+	}
+	return nil
+}
+
+// keepUp checks, stretch by stretch, that a run annealing to its deadline
+// still reaches its planned step before the deadline, and plans again
+// when it does not (the machine slowed down after the plan was made: other
+// work started, the clock of a shared core fell). A stretch is at least
+// planTimedWindows steps and at least planTimedFraction of the time left
+// (at most planTimedMax), timed in wall time, validations and saves
+// included. When the planned step, at the stretch's speed, would come
+// after the deadline, less the final validation, the run plans again
+// from the time left with the margin kept, as it planned at its start
+// (PlanSteps, the stretch's time per step taking the place of the first
+// measurement's), records the new plan (CatchUps, PreviousSteps) and
+// saves a checkpoint, so that a resumed run follows it. The plan only
+// ever moves earlier here: the schedule jumps forward, its rate drops at
+// once to where the shorter schedule has it, and from there it anneals
+// to the floor at the new planned step. A run ahead of its plan keeps it
+// and ends early (--replan on a resumed run plans the spare time too).
+func (s *session) keepUp() error {
+	if s.deadline.IsZero() || s.prog.PlannedSteps == 0 || s.decaySteps != s.prog.PlannedSteps || s.planning || s.replanning {
+		return nil
+	}
+	now, step := s.o.Now(), s.tr.Steps()
+	m := s.stretch
+	if m == nil {
+		s.stretch = &measurement{t0: now, step0: step, tokens0: s.tokens}
+		return nil
+	}
+	if step-m.step0 < planTimedWindows || now.Sub(m.t0) < min(planTimedMax, time.Duration(planTimedFraction*float64(s.deadline.Sub(m.t0)))) {
+		return nil
+	}
+	s.stretch = &measurement{t0: now, step0: step, tokens0: s.tokens}
+	el := now.Sub(m.t0).Seconds()
+	n := step - m.step0
+	secPerStep := el / float64(n)
+	tokPerSec := float64(s.tokens-m.tokens0) / max(el, 1e-9)
+	valSec := float64(scoredTokens(s.ds.Validation.Tokens.Len(), s.r.Evaluation.HeldOutTokens)) / (3 * tokPerSec)
+	old := s.prog.PlannedSteps
+	end := now.Add(time.Duration((float64(old-step)*secPerStep + valSec) * float64(time.Second)))
+	if !end.After(s.deadline) || old <= step+1 {
+		return nil
+	}
+	planned := PlanSteps(step, s.deadline.Sub(now), secPerStep, 0, valSec, PlanMargin)
+	if planned >= old {
+		return nil
+	}
+	tc := s.r.Training.TrainConfig
+	if w := int64(tc.WarmupSteps); planned <= w {
+		planned = min(w+1, old)
+	}
+	p := Plan{Schedule: tc.Schedule, PlannedSteps: planned, MadeAtStep: step, MadeAt: now, Deadline: s.deadline,
+		TimedWindows: int(n), SecondsPerStep: secPerStep, TokensPerSecond: tokPerSec,
+		ValidationSeconds: valSec, Margin: PlanMargin, PreviousSteps: old, CatchUps: 1}
+	if prev, err := ReadPlan(s.d.Path()); err == nil {
+		p.Replans, p.CatchUps = prev.Replans, prev.CatchUps+1
+	}
+	if err := s.adopt(p); err != nil {
+		return err
+	}
+	s.warn("behind the deadline plan: at %.0f tokens/s over the last %d windows the %s schedule would end at step %d about %s, after the deadline %s; it now ends at step %d, about %s (its rate drops to where the shorter schedule has it)",
+		tokPerSec, n, tc.Schedule, old, end.Format("15:04:05"), s.deadline.Format("15:04:05"), planned,
+		now.Add(time.Duration((float64(planned-step)*secPerStep+valSec)*float64(time.Second))).Format("15:04:05"))
+	if _, err := s.saveStep(false); err != nil {
+		return err
+	}
 	return nil
 }

@@ -182,6 +182,59 @@ func TestDeadlineReplan(t *testing.T) {
 	}
 }
 
+// TestDeadlineCatchUp: a deadline run whose steps take three times as
+// long after its plan was made (the machine got busy) falls behind, plans
+// again from the time left, and still ends at its (new) planned step at
+// the floor rate before the deadline, where the first plan would have
+// been cut off by the deadline far from it.
+func TestDeadlineCatchUp(t *testing.T) {
+	dir := t.TempDir()
+	r := deadlineRun(t, dir, "cosine")
+	run := filepath.Join(dir, "run")
+	c := newStepClock()
+	start := c.Now()
+	const budget = 120 * time.Second
+	res, rec := trainFor(t, context.Background(), r, run, c, budget, TrainOptions{AfterStep: func(step int64, _ *rnn.Model[float32]) {
+		if step > 40 {
+			c.tick() // 3 s a step from here on
+			c.tick()
+		}
+	}})
+	if !strings.HasPrefix(res.Reason, "planned end reached") || res.Steps != res.PlannedSteps {
+		t.Fatalf("ended at step %d (planned %d): %q; want the planned end", res.Steps, res.PlannedSteps, res.Reason)
+	}
+	if end := c.Now(); end.After(start.Add(budget)) {
+		t.Errorf("ended at %v, after the deadline %v", end.Sub(start), budget)
+	}
+	p, err := ReadPlan(run)
+	if err != nil {
+		t.Fatal(err)
+	}
+	// The first plan (50 to 109 steps at 1 s a step, as in
+	// TestDeadlineScheduleEndsAtPlan; 83 here) could not be kept: at 3 s
+	// a step from step 40 the 80 s left hold at most 26 more, so the new
+	// plan lies between step 41 and 66.
+	if p.CatchUps < 1 || p.PreviousSteps <= p.PlannedSteps || p.PlannedSteps != res.PlannedSteps || p.PreviousSteps < 67 || p.PlannedSteps < 41 || p.PlannedSteps > 66 {
+		t.Errorf("plan file: %d catch-ups, planned %d, previously %d; want at least one, to a step from 41 to 66 from one past 66", p.CatchUps, p.PlannedSteps, p.PreviousSteps)
+	}
+	last := rec.validations[len(rec.validations)-1]
+	if last.Step != res.Steps || last.LearningRate != r.Training.MinLearningRate {
+		t.Errorf("last validation at step %d with rate %v, want step %d at the floor %v", last.Step, last.LearningRate, res.Steps, r.Training.MinLearningRate)
+	}
+	if !strings.Contains(noticeText(rec), "behind the deadline plan") {
+		t.Errorf("no notice of the catch-up in %q", noticeText(rec))
+	}
+	// The checkpoint saved at the catch-up and the last one record the new
+	// plan, so that a resumed run keeps it.
+	f, err := checkpoint.Load(res.LatestPath)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if prog, err := checkpoint.ReadProgress(f); err != nil || prog.PlannedSteps != res.PlannedSteps {
+		t.Errorf("checkpoint progress planned %d (%v), want %d", prog.PlannedSteps, err, res.PlannedSteps)
+	}
+}
+
 // TestAnnealingNeedsALength: an annealing schedule with no length, no
 // step budget and no time budget is refused, naming the keys.
 func TestAnnealingNeedsALength(t *testing.T) {

@@ -72,9 +72,11 @@ type Plan struct {
 	ValidationSecondsPerStep float64 `json:"validation_seconds_per_step"`
 	ValidationSeconds        float64 `json:"validation_seconds"`
 	Margin                   float64 `json:"margin"`
-	// Replans counts the --replan measurements; PreviousSteps is the
-	// planned step before the last one.
+	// Replans counts the --replan measurements, CatchUps the plans made
+	// again because the run fell behind (see keepUp); PreviousSteps is
+	// the planned step before the last one.
 	Replans       int   `json:"replans,omitempty"`
+	CatchUps      int   `json:"catch_ups,omitempty"`
 	PreviousSteps int64 `json:"previous_planned_steps,omitempty"`
 }
 

@@ -138,11 +138,13 @@ type session struct {
 	// The deadline plan: decaySteps is the schedule length in force (the
 	// plan, or provisionalDecaySteps while planning; 0: the run file's);
 	// meas the speed measurement under way (nil: none); planning and
-	// replanning say what the measurement is for.
+	// replanning say what the measurement is for; stretch the timing of
+	// the steps since the last check that the plan is kept (keepUp).
 	decaySteps int64
 	meas       *measurement
 	planning   bool
 	replanning bool
+	stretch    *measurement
 
 	res Result
 }
@@ -613,6 +615,8 @@ func (s *session) loop() (string, error) {
 			if err := s.measure(); err != nil {
 				return "", err
 			}
+		} else if err := s.keepUp(); err != nil {
+			return "", err
 		}
 
 		if every := r.Evaluation.EverySteps; (every > 0 && info.Step%int64(every) == 0) || s.validationTimeDue() {
