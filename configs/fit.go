@@ -14,14 +14,17 @@ import (
 const (
 	// refTokensPerCore is the training speed of the reference model
 	// (lstm 1×256, embedding 64, 84 characters: 355,668 parameters), in
-	// tokens per second per core: 30,897 tokens/s measured on 2 shared
-	// cores (fitgrid/table.tsv, first row), halved.
-	refTokensPerCore = 15000
+	// tokens per second per core, used only when the speed was not
+	// measured: 72,162 tokens/s measured on one thread of an idle machine
+	// (fitgrid/speeds.tsv; 146,070 on two).
+	refTokensPerCore = 72000
 	// refParams is the parameter count of the reference model.
 	refParams = 355668
-	// fixedCostShare is the part of the reference model's time per token
-	// that does not grow with the model (see costShare).
-	fixedCostShare = 0.38
+	// fixedCostShare and vocabCostShare are the parts of the reference
+	// model's time per token that do not grow with the parameters (see
+	// costShare): a fixed part, and a part per output entry.
+	fixedCostShare = 0.12
+	vocabCostShare = 0.000164
 
 	// minTokensPerParam: the largest model of the ladder is taken that
 	// still trains on at least this many tokens per parameter in the
@@ -116,22 +119,25 @@ func LSTMParams(layers, h, e, v int) int64 {
 }
 
 // costShare is the time per token of a model relative to the reference:
-// a fixed part (the per-token work that does not grow with the model: the
-// window bookkeeping, the elementwise gate work, the memory traffic of
-// small products) plus a part that grows with the parameters the products
-// touch (all but the embedding table, a lookup):
+// a fixed part (the window bookkeeping, the elementwise gate work), a part
+// per output entry (the softmax's exponentials and its memory traffic) and
+// a part that grows with the parameters the products touch (all but the
+// embedding table, a lookup):
 //
-//	share = f + (1 − f) · P′/P′_ref,   f = fixedCostShare
+//	share = f + g·V + (1 − f − g·V_ref) · P′/P′_ref
 //
-// f comes from the grid's 1 M-token runs of lstm 1×256 (30,897 tokens/s,
-// P′ = 350,292) and 1×512 (12,079 tokens/s, P′ = 1,224,788): solving
-// 30,897/12,079 = f + (1 − f)·3.4965 gives f = 0.38. Pure proportion to
-// the parameters (f = 0) would make 1×512 3.5 times slower where it was
-// 2.6 times slower.
+// f = 0.12 and g = 0.000164 come from a least-squares fit of the time per
+// token, a + b·P′ + c·V, to the one-thread speeds of eight models in
+// fitgrid/speeds.tsv (lstm 1×128 to 2×512 over 84 characters, 1×128 to
+// 1×512 over 10,000 words), measured on an idle machine. Scaled from the
+// measured 1×256 it is within 15% of every one of them (the furthest is
+// 1×128 over characters, 14% faster than predicted; fit_test.go checks). Pure proportion to the parameters
+// would make 2×512 9.5 times slower than 1×256 where it was 7.8 times
+// slower, and a 10,000-word 1×128 3.2 times faster than it was.
 func costShare(layers, h, e, v int) float64 {
 	ref := float64(refParams - 84*64)
 	p := float64(LSTMParams(layers, h, e, v) - int64(v)*int64(e))
-	return fixedCostShare + (1-fixedCostShare)*p/ref
+	return fixedCostShare + vocabCostShare*float64(v) + (1-fixedCostShare-vocabCostShare*84)*p/ref
 }
 
 type candidate struct{ layers, hidden int }

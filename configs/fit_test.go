@@ -1,6 +1,10 @@
 package configs
 
 import (
+	"fmt"
+	"math"
+	"os"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -40,11 +44,12 @@ func TestLSTMParams(t *testing.T) {
 
 // TestSize runs the sizing rule on a table of nights. The expected sizes
 // are worked out by hand from the rule (Size's doc comment): the reference
-// speed is 15,000 tokens/s per core for lstm 1×256 (355,668 parameters,
+// speed is 72,000 tokens/s per core for lstm 1×256 (355,668 parameters,
 // 350,292 without the embedding), a model's speed that divided by
-// 0.38 + 0.62·P′/350,292 (P′: its parameters without the embedding; 1.658
-// for 1×384, 2.548 for 1×512, 6.263 for 2×512), and the budget is counted
-// less the 10% plan margin.
+// 0.12 + 0.000164·V + 0.866224·P′/350,292 (P′: its parameters without the
+// embedding; over 84 characters 1.919 for 1×384, 3.163 for 1×512, 8.354
+// for 2×512, 18.30 for 2×768), and the budget is counted less the 10%
+// plan margin.
 func TestSize(t *testing.T) {
 	const moby = 1071285 // Moby-Dick's training split, char tokenizer, default held-out fractions (as weft config new --fit counted it)
 	tests := []struct {
@@ -54,26 +59,28 @@ func TestSize(t *testing.T) {
 		hidden  int
 		dropout float64
 	}{
-		// 54 s: 1×256 at 30,000 tokens/s sees 1.62 M tokens, 4.6 per
-		// parameter (≥ 4); 1×384 (727,380 parameters) at 18,095
-		// tokens/s sees 0.98 M, 1.3 per parameter: too few. 1.5 passes
-		// over the corpus: no dropout; under 5 M tokens: constant rate.
-		{"moby 1m", FitInput{Budget: time.Minute, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2}, 1, 256, 0},
-		// 540 s: 1×512 (1,230,164) at 11,775 tokens/s sees 6.36 M, 5.2
-		// per parameter; 2×512 (3,329,364) at 4,790 tokens/s sees
-		// 2.59 M, 0.8 per parameter: too few. 5.9 passes: dropout 0.1.
-		{"moby 10m", FitInput{Budget: 10 * time.Minute, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2}, 1, 512, 0.1},
-		// 1620 s: 1×512 sees 19.1 M, 15.5 per parameter; 2×512 sees
-		// 7.8 M, 2.3 per parameter: too few. 17.8 passes: dropout 0.25.
-		{"moby 30m", FitInput{Budget: 30 * time.Minute, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2}, 1, 512, 0.25},
-		// 25,920 s: 2×512 sees 124 M, 37 per parameter, and has 3.1
-		// parameters per corpus token (≤ 4); 2×768 (7.35 M) would have
-		// 6.9: over the cap.
+		// 54 s at 144,000 tokens/s for 1×256: 1×384 (727,380
+		// parameters) at 75,032 tokens/s sees 4.05 M tokens, 5.6 per
+		// parameter (≥ 4); 1×512 (1,230,164) at 45,533 tokens/s sees
+		// 2.46 M, 2.0 per parameter: too few. 3.8 passes over the
+		// corpus: dropout 0.1; under 5 M tokens: constant rate.
+		{"moby 1m", FitInput{Budget: time.Minute, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2}, 1, 384, 0.1},
+		// 540 s: 1×512 sees 24.6 M, 20 per parameter; 2×512 (3,329,364)
+		// at 17,238 tokens/s sees 9.3 M, 2.8 per parameter: too few.
+		// 23 passes: dropout 0.25.
+		{"moby 10m", FitInput{Budget: 10 * time.Minute, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2}, 1, 512, 0.25},
+		// 1620 s: 2×512 sees 27.9 M, 8.4 per parameter, and has 3.1
+		// parameters per corpus token (≤ 4); 2×768 (7,350,612) at 7,870
+		// tokens/s sees 12.7 M, 1.7 per parameter: too few. 26 passes:
+		// dropout 0.25.
+		{"moby 30m", FitInput{Budget: 30 * time.Minute, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2}, 2, 512, 0.25},
+		// 25,920 s: 2×512 sees 447 M, 134 per parameter; 2×768 would
+		// have 6.9 parameters per corpus token: over the cap.
 		{"moby 8h", FitInput{Budget: 8 * time.Hour, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2}, 2, 512, 0.25},
-		// The 10-minute night measured at twice the estimated speed:
-		// 1×512 sees 12.7 M, 10.3 per parameter; 2×512 5.2 M, 1.6 per
-		// parameter. 11.9 passes: dropout 0.25.
-		{"moby 10m fast", FitInput{Budget: 10 * time.Minute, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2, TokensPerSecond: 60000}, 1, 512, 0.25},
+		// The 10-minute night measured at 60,000 tokens/s, well under
+		// the estimate: 1×512 sees 10.3 M, 8.3 per parameter; 2×512
+		// 3.9 M, 1.2 per parameter. 9.6 passes: dropout 0.1.
+		{"moby 10m slow", FitInput{Budget: 10 * time.Minute, CorpusTokens: moby, VocabSize: 84, Tokenizer: "char", Cores: 2, TokensPerSecond: 60000}, 1, 512, 0.1},
 		// A 10,000-token corpus allows 40,000 parameters: below the
 		// smallest size, which is taken anyway; thousands of passes.
 		{"tiny corpus 8h", FitInput{Budget: 8 * time.Hour, CorpusTokens: 10000, VocabSize: 40, Tokenizer: "char", Cores: 4}, 1, 128, 0.25},
@@ -88,7 +95,7 @@ func TestSize(t *testing.T) {
 				t.Errorf("got lstm %d×%d dropout %g, want %d×%d dropout %g", f.Layers, f.Hidden, f.Dropout, tt.layers, tt.hidden, tt.dropout)
 			}
 			// Annealing from 5 M expected tokens (annealTokens); the 1-minute
-			// night expects 1.62 M.
+			// night expects 4.05 M.
 			wantSched := "cosine"
 			if f.ExpectedTokens < 5000000 {
 				wantSched = "constant"
@@ -179,6 +186,54 @@ func TestCheckProportion(t *testing.T) {
 		w := strings.Join(CheckProportion(tt.expect, tt.train, tt.params, time.Hour), "\n")
 		if (tt.want == "") != (w == "") || !strings.Contains(w, tt.want) {
 			t.Errorf("%s: got %q, want %q", tt.name, w, tt.want)
+		}
+	}
+}
+
+// TestCostShareMatchesSpeeds: the speed model, scaled from the measured
+// 1×256, is within 15% of every
+// one-thread speed in fitgrid/speeds.tsv, the measurements it was fitted
+// to (weft bench on an idle machine, speeds.sh).
+func TestCostShareMatchesSpeeds(t *testing.T) {
+	b, err := os.ReadFile("testdata/fitgrid/speeds.tsv")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var ref float64
+	type row struct {
+		name            string
+		layers, h, e, v int
+		tps             float64
+	}
+	var rows []row
+	for _, line := range strings.Split(string(b), "\n") {
+		f := strings.Split(line, "\t")
+		if len(f) != 7 || f[4] != "1" || strings.HasPrefix(f[0], "#") || f[0] == "vocab" {
+			continue
+		}
+		var r row
+		r.name = f[3]
+		if _, err := fmt.Sscanf(f[3], "lstm-%dx%d", &r.layers, &r.h); err != nil {
+			t.Fatalf("%q: %v", line, err)
+		}
+		r.v, _ = strconv.Atoi(f[0])
+		r.e, _ = strconv.Atoi(f[1])
+		r.tps, _ = strconv.ParseFloat(f[6], 64)
+		if params, _ := strconv.ParseInt(f[5], 10, 64); params != LSTMParams(r.layers, r.h, r.e, r.v) {
+			t.Errorf("%s over %d: speeds.tsv has %d parameters, LSTMParams %d", r.name, r.v, params, LSTMParams(r.layers, r.h, r.e, r.v))
+		}
+		if r.name == "lstm-1x256" && r.v == 84 {
+			ref = r.tps
+		}
+		rows = append(rows, r)
+	}
+	if ref == 0 || len(rows) < 8 {
+		t.Fatalf("speeds.tsv: %d one-thread rows, reference speed %v", len(rows), ref)
+	}
+	for _, r := range rows {
+		pred := ref / costShare(r.layers, r.h, r.e, r.v)
+		if d := math.Abs(pred/r.tps - 1); d > 0.15 {
+			t.Errorf("%s over %d: predicted %.0f tokens/s, measured %.0f (%.0f%% off)", r.name, r.v, pred, r.tps, 100*d)
 		}
 	}
 }

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"path/filepath"
 	"runtime"
@@ -59,12 +60,14 @@ func newConfigNewCmd(d *deps, runF func(*configNewOptions) error) *cobra.Command
 			strings.Join(names, "\n") + "\n\nWithout PRESET, " + configs.DefaultPreset + " is written.\n\n" +
 			"With --fit DURATION --corpus FILES, the run file is sized for that time budget,\n" +
 			"that corpus and this machine instead: the largest LSTM that trains on at least 4\n" +
-			"tokens per parameter in the budget and has at most one parameter per corpus\n" +
+			"tokens per parameter in the budget and has at most 4 parameters per corpus\n" +
 			"token, dropout by the expected passes over the corpus, and a cosine schedule\n" +
-			"annealing to the deadline. Each value says why in a comment; tokens per\n" +
-			"parameter, expected passes and speed are printed on standard error. The speed\n" +
-			"is estimated from --cores unless --speed gives the tokens/s 'weft bench'\n" +
-			"measured for the default model (lstm 1x256).",
+			"annealing to the deadline (a constant rate under 5 M expected tokens). Each\n" +
+			"value says why in a comment; tokens per parameter, expected passes and speed\n" +
+			"are printed on standard error. The speeds are scaled from the reference model\n" +
+			"(lstm 1x256), which --fit times here on --cores threads for about a second, as\n" +
+			"weft bench does; --speed gives its tokens/s instead (time it on the machine\n" +
+			"and load the run will have).",
 		Example: "  weft config new char-small > night.toml\n" +
 			"  weft config new --fit 8h --corpus books/ > night.toml",
 		Args:              rangeArgs(0, 1, "at most one preset name"),
@@ -87,7 +90,7 @@ func newConfigNewCmd(d *deps, runF func(*configNewOptions) error) *cobra.Command
 	f.StringArrayVar(&opts.Corpus, "corpus", nil, "with --fit: the corpus files, folders or globs (repeatable)")
 	f.IntVar(&opts.Cores, "cores", runtime.NumCPU(), "with --fit: cores the run will train on")
 	f.StringVar(&opts.Tokenizer, "tokenizer", "char", "with --fit: \"char\" or \"word\"")
-	f.Float64Var(&opts.Speed, "speed", 0, "with --fit: measured tokens/s of the default model on this machine (0: estimate from --cores)")
+	f.Float64Var(&opts.Speed, "speed", 0, "with --fit: tokens/s of the reference model (lstm 1x256) on the run's cores, as weft bench measures it (0: time it here, about a second)")
 	return cmd
 }
 
@@ -124,8 +127,8 @@ func runConfigFit(opts *configNewOptions) error {
 		return usagef("--cores must be at least 1, got %d", opts.Cores)
 	case opts.Tokenizer != "char" && opts.Tokenizer != "word":
 		return usagef("--tokenizer must be \"char\" or \"word\" with --fit, got %q", opts.Tokenizer)
-	case opts.Speed < 0:
-		return usagef("--speed must be 0 (estimate) or a positive number of tokens/s, got %v", opts.Speed)
+	case opts.Speed < 0 || math.IsNaN(opts.Speed) || math.IsInf(opts.Speed, 0):
+		return usagef("--speed must be 0 (measure it here) or a positive number of tokens/s, got %v", opts.Speed)
 	}
 	files := make([]string, len(opts.Corpus))
 	for i, f := range opts.Corpus {
@@ -156,8 +159,16 @@ func runConfigFit(opts *configNewOptions) error {
 		return err
 	}
 	defer ds.Close()
+	speed := opts.Speed
+	if speed == 0 {
+		if speed, err = referenceSpeed(ctx, opts.Cores); err != nil {
+			return fmt.Errorf("--fit: timing the reference model: %w", err)
+		}
+		fmt.Fprintf(opts.Err, "measured the reference model (lstm 1×256, as weft bench trains it) at %s tokens/s on %s; --speed skips this\n",
+			thousands(int64(speed)), threadCount(opts.Cores))
+	}
 	fit, err := configs.Size(configs.FitInput{Budget: opts.Fit, CorpusTokens: int64(ds.Train.Tokens.Len()), VocabSize: ds.Vocab.Len(),
-		Tokenizer: opts.Tokenizer, Cores: opts.Cores, TokensPerSecond: opts.Speed})
+		Tokenizer: opts.Tokenizer, Cores: opts.Cores, TokensPerSecond: speed})
 	if err != nil {
 		return usagef("--fit: %v", err)
 	}
@@ -206,4 +217,12 @@ func runConfigShow(opts *configShowOptions) error {
 // addSetFlag adds the repeatable --set section.key=value override.
 func addSetFlag(cmd *cobra.Command, dst *[]string) {
 	cmd.Flags().StringArrayVar(dst, "set", nil, "override a run-file key, as section.key=value (repeatable)")
+}
+
+// threadCount writes n threads, singular for one.
+func threadCount(n int) string {
+	if n == 1 {
+		return "1 thread"
+	}
+	return fmt.Sprintf("%d threads", n)
 }

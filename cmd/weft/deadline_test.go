@@ -95,12 +95,30 @@ func TestConfigNewFit(t *testing.T) {
 	if err != nil {
 		t.Fatalf("the run file does not load: %v\n%s", err, out)
 	}
-	if r.Training.Schedule != "cosine" || r.Data.Files[0] != corpus {
-		t.Errorf("schedule %q, files %v; want cosine on %s", r.Training.Schedule, r.Data.Files, corpus)
+	if r.Data.Files[0] != corpus || r.Model.Cell != "lstm" {
+		t.Errorf("cell %q, files %v; want an LSTM on %s", r.Model.Cell, r.Data.Files, corpus)
 	}
-	for _, want := range []string{"tokens per parameter", "passes over the", "tokens/s", "sized for 10m0s on 2 cores"} {
+	for _, want := range []string{"tokens per parameter", "passes over the", "tokens/s", "sized for 10m0s on 2 cores", "measured the reference model"} {
 		if !strings.Contains(stderr, want) {
 			t.Errorf("stderr %q lacks %q", stderr, want)
+		}
+	}
+	// With --speed nothing is timed, and the rule follows that speed (the
+	// measured one above depends on the machine and its load). The corpus
+	// allows fewer parameters than the smallest size has, so 1×128 it is;
+	// it runs about a third of the reference model's time per token, so at
+	// 100,000 tokens/s it expects about 150 M tokens in the budget less
+	// the margin (annealing), at 1,000 tokens/s about 1.5 M (a constant
+	// rate: under configs' 5 M).
+	for speed, sched := range map[string]string{"100000": "cosine", "1000": "constant"} {
+		code, out, stderr := weftIn(t, nil, "config", "new", "--fit", "10m", "--corpus", corpus, "--cores", "2", "--speed", speed)
+		r, err := configs.Parse(filepath.Join(dir, "fit.toml"), []byte(out), nil)
+		if err != nil {
+			t.Errorf("--speed %s: exit %d, %q: the run file does not load: %v", speed, code, stderr, err)
+			continue
+		}
+		if code != 0 || strings.Contains(stderr, "measured") || !strings.Contains(stderr, "lstm 1×128") || r.Training.Schedule != sched {
+			t.Errorf("--speed %s: exit %d, %q, schedule %q; want lstm 1×128 with schedule %q, and no timing", speed, code, stderr, r.Training.Schedule, sched)
 		}
 	}
 	for _, tt := range []struct {
@@ -111,6 +129,8 @@ func TestConfigNewFit(t *testing.T) {
 		{[]string{"config", "new", "char-small", "--fit", "10m", "--corpus", corpus}, "no preset"},
 		{[]string{"config", "new", "--fit", "10m", "--corpus", corpus, "--cores", "0"}, "--cores"},
 		{[]string{"config", "new", "--fit", "10m", "--corpus", corpus, "--tokenizer", "bpe"}, "--tokenizer"},
+		{[]string{"config", "new", "--fit", "10m", "--corpus", corpus, "--speed", "-5"}, "--speed"},
+		{[]string{"config", "new", "--fit", "10m", "--corpus", corpus, "--speed", "NaN"}, "--speed"},
 	} {
 		code, _, stderr := weftIn(t, nil, tt.args...)
 		if code != 2 || !strings.Contains(stderr, tt.want) {
