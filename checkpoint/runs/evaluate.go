@@ -66,6 +66,9 @@ func Evaluate(ctx context.Context, r *configs.Run, d *Dir, o EvalOptions) (*eval
 		return nil, err
 	}
 	defer ds.Close()
+	if ds.Cache.Damaged != nil && o.Note != nil {
+		o.Note(DamagedCache(ds.Cache.Damaged))
+	}
 	ladder, err := FitBaselines(ctx, r.Evaluation.Config, ds, d.Baselines(), o.Progress, o.Note)
 	if err != nil {
 		return nil, err

@@ -314,6 +314,9 @@ func (s *session) run() (*Result, error) {
 		return nil, err
 	}
 	s.ds = ds
+	if ds.Cache.Damaged != nil {
+		s.warn("%s", DamagedCache(ds.Cache.Damaged))
+	}
 	if s.vocabJS, err = ds.Vocab.MarshalJSON(); err != nil {
 		return nil, err
 	}

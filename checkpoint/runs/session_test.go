@@ -521,3 +521,42 @@ func TestValidationEveryMinutes(t *testing.T) {
 		t.Errorf("validated at steps %v, want %v", steps, want)
 	}
 }
+
+// TestDamagedCacheSaid: a run whose token cache was damaged between two
+// invocations rebuilds it from the corpus, says so in one warning, and
+// resumes with the same state as a run that was never damaged.
+func TestDamagedCacheSaid(t *testing.T) {
+	dir := t.TempDir()
+	r := tinyRun(t, dir)
+	straight, damaged := filepath.Join(dir, "straight"), filepath.Join(dir, "damaged")
+	want, _, err := train(t, context.Background(), r, straight, 20, TrainOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := train(t, context.Background(), r, damaged, 10, TrainOptions{}); err != nil {
+		t.Fatal(err)
+	}
+	cache := Layout(damaged).TokenCache()
+	b, err := os.ReadFile(cache)
+	if err != nil {
+		t.Fatal(err)
+	}
+	b[len(b)/2] ^= 0xff // one flipped byte: the checksum no longer matches
+	if err := os.WriteFile(cache, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	got, rec, err := train(t, context.Background(), r, damaged, 20, TrainOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var said []string
+	for _, n := range rec.notices {
+		if strings.Contains(n.Text, "token cache was damaged and has been rebuilt") {
+			said = append(said, n.Text)
+		}
+	}
+	if len(said) != 1 || strings.Contains(said[0], "\n") {
+		t.Errorf("notices %q: want one line saying the cache was rebuilt", noticeText(rec))
+	}
+	modeltest.SameTrainingState(t, got.LatestPath, want.LatestPath)
+}

@@ -139,7 +139,7 @@ func printSplitReport(w io.Writer, ds *data.Dataset) {
 	}
 	fmt.Fprintln(w)
 	if ds.Cache.Damaged != nil {
-		fmt.Fprintf(w, "token cache was damaged and has been rebuilt: %v\n", ds.Cache.Damaged)
+		fmt.Fprintln(w, runs.DamagedCache(ds.Cache.Damaged))
 	} else if ds.Cache.Hit {
 		fmt.Fprintln(w, "token cache: reused (inputs and settings unchanged)")
 	}
