@@ -16,6 +16,7 @@ type measurement struct {
 	t0      time.Time
 	step0   int64
 	tokens0 int64
+	off0    time.Duration // the session's offTime at t0 (keepUp)
 }
 
 // decidePlan sets how the schedule's length is known: from the run file,
@@ -58,7 +59,7 @@ func (s *session) measure() error {
 	step := s.tr.Steps()
 	if !m.started {
 		if step-m.from >= planSkipWindows {
-			m.started, m.t0, m.step0, m.tokens0 = true, s.o.Now(), step, s.tokens
+			m.started, m.t0, m.step0, m.tokens0, m.off0 = true, s.o.Now(), step, s.tokens, s.offTime
 		}
 		return nil
 	}
@@ -66,7 +67,7 @@ func (s *session) measure() error {
 		return nil
 	}
 	s.meas = nil
-	el := s.o.Now().Sub(m.t0).Seconds()
+	el := (s.o.Now().Sub(m.t0) - (s.offTime - m.off0)).Seconds() // validations and saves apart: the plan adds its estimate of them
 	if el <= 0 {
 		el = 1e-9 // a clock that did not move: as fast as can be
 	}
@@ -83,16 +84,8 @@ func (s *session) plan(timed int, secPerStep, tokPerSec float64) error {
 	now := s.o.Now()
 	step := s.tr.Steps()
 	left := s.deadline.Sub(now)
-	valTokens := scoredTokens(s.ds.Validation.Tokens.Len(), s.r.Evaluation.HeldOutTokens) // what a validation scores
-	valSec := float64(valTokens) / (3 * tokPerSec)
 	tokPerStep := tokPerSec * secPerStep
-	var over float64
-	if every := s.r.Evaluation.EverySteps; every > 0 {
-		over += valSec / float64(every)
-	}
-	if train := float64(s.ds.Train.Tokens.Len()); tokPerStep > 0 && train > 0 {
-		over += valSec / (train / tokPerStep) // one validation per epoch
-	}
+	over, valSec := s.validationCost(tokPerSec, tokPerStep)
 	planned := PlanSteps(step, left, secPerStep, over, valSec, PlanMargin)
 
 	// Out of proportion: judged on the tokens this invocation will train.
@@ -135,6 +128,22 @@ func (s *session) plan(timed int, secPerStep, tokPerSec float64) error {
 	return nil
 }
 
+// validationCost estimates the time of one validation at tokPerSec
+// training tokens a second (see PlanSteps) and that time spread over the
+// steps of tokPerStep tokens: one every evaluation.every_steps and one per
+// epoch.
+func (s *session) validationCost(tokPerSec, tokPerStep float64) (perStep, one float64) {
+	valTokens := scoredTokens(s.ds.Validation.Tokens.Len(), s.r.Evaluation.HeldOutTokens) // what a validation scores
+	one = float64(valTokens) / (3 * tokPerSec)
+	if every := s.r.Evaluation.EverySteps; every > 0 {
+		perStep += one / float64(every)
+	}
+	if train := float64(s.ds.Train.Tokens.Len()); tokPerStep > 0 && train > 0 {
+		perStep += one / (train / tokPerStep) // one validation per epoch
+	}
+	return perStep, one
+}
+
 // adopt makes p the run's plan: the schedule's length from now on, in the
 // progress the next checkpoint records and in the plan file.
 func (s *session) adopt(p Plan) error {
@@ -161,43 +170,53 @@ func (s *session) adopt(p Plan) error {
 // still reaches its planned step before the deadline, and plans again
 // when it does not (the machine slowed down after the plan was made: other
 // work started, the clock of a shared core fell). A stretch is at least
-// planTimedWindows steps and at least planTimedFraction of the time left
-// (at most planTimedMax), timed in wall time, validations and saves
-// included. When the planned step, at the stretch's speed, would come
-// after the deadline, less the final validation, the run plans again
-// from the time left with the margin kept, as it planned at its start
-// (PlanSteps, the stretch's time per step taking the place of the first
-// measurement's), records the new plan (CatchUps, PreviousSteps) and
-// saves a checkpoint, so that a resumed run follows it. The plan only
-// ever moves earlier here: the schedule jumps forward, its rate drops at
-// once to where the shorter schedule has it, and from there it anneals
-// to the floor at the new planned step. A run ahead of its plan keeps it
-// and ends early (--replan on a resumed run plans the spare time too).
+// planTimedWindows steps and at least a tenth of the time left (at most
+// planTimedMax). Its time per step counts training alone: the time spent
+// validating and saving (offTime) is left out of it and counted instead
+// as an overhead per step averaged over every step since the first check
+// of this invocation, or the plan's estimate of it where that is larger,
+// so that a stretch holding a validation does not look slow. When the
+// planned step, at that speed and overhead, would come after the
+// deadline, less the final validation, the run plans again from the time
+// left with the margin kept, as it planned at its start (PlanSteps),
+// records the new plan (CatchUps, PreviousSteps) and saves a checkpoint,
+// so that a resumed run follows it. The plan only ever moves earlier
+// here: the schedule jumps forward, its rate drops at once to where the
+// shorter schedule has it, and from there it anneals to the floor at the
+// new planned step. A run ahead of its plan keeps it and ends early
+// (--replan on a resumed run plans the spare time too).
 func (s *session) keepUp() error {
 	if s.deadline.IsZero() || s.prog.PlannedSteps == 0 || s.decaySteps != s.prog.PlannedSteps || s.planning || s.replanning {
 		return nil
 	}
 	now, step := s.o.Now(), s.tr.Steps()
+	mark := &measurement{t0: now, step0: step, tokens0: s.tokens, off0: s.offTime}
+	if s.stretch == nil {
+		s.stretch, s.sincePlan = mark, mark
+		return nil
+	}
 	m := s.stretch
-	if m == nil {
-		s.stretch = &measurement{t0: now, step0: step, tokens0: s.tokens}
+	if step-m.step0 < planTimedWindows || now.Sub(m.t0) < min(planTimedMax, s.deadline.Sub(m.t0)/10) {
 		return nil
 	}
-	if step-m.step0 < planTimedWindows || now.Sub(m.t0) < min(planTimedMax, time.Duration(planTimedFraction*float64(s.deadline.Sub(m.t0)))) {
-		return nil
-	}
-	s.stretch = &measurement{t0: now, step0: step, tokens0: s.tokens}
-	el := now.Sub(m.t0).Seconds()
+	s.stretch = mark
 	n := step - m.step0
-	secPerStep := el / float64(n)
-	tokPerSec := float64(s.tokens-m.tokens0) / max(el, 1e-9)
-	valSec := float64(scoredTokens(s.ds.Validation.Tokens.Len(), s.r.Evaluation.HeldOutTokens)) / (3 * tokPerSec)
+	train := now.Sub(m.t0) - (s.offTime - m.off0)
+	if train <= 0 || n <= 0 {
+		return nil
+	}
+	secPerStep := train.Seconds() / float64(n)
+	tokPerSec := float64(s.tokens-m.tokens0) / train.Seconds()
+	over, valSec := s.validationCost(tokPerSec, tokPerSec*secPerStep)
+	if b := s.sincePlan; step > b.step0 {
+		over = max(over, (s.offTime-b.off0).Seconds()/float64(step-b.step0))
+	}
 	old := s.prog.PlannedSteps
-	end := now.Add(time.Duration((float64(old-step)*secPerStep + valSec) * float64(time.Second)))
+	end := now.Add(time.Duration((float64(old-step)*(secPerStep+over) + valSec) * float64(time.Second)))
 	if !end.After(s.deadline) || old <= step+1 {
 		return nil
 	}
-	planned := PlanSteps(step, s.deadline.Sub(now), secPerStep, 0, valSec, PlanMargin)
+	planned := PlanSteps(step, s.deadline.Sub(now), secPerStep, over, valSec, PlanMargin)
 	if planned >= old {
 		return nil
 	}
@@ -207,16 +226,16 @@ func (s *session) keepUp() error {
 	}
 	p := Plan{Schedule: tc.Schedule, PlannedSteps: planned, MadeAtStep: step, MadeAt: now, Deadline: s.deadline,
 		TimedWindows: int(n), SecondsPerStep: secPerStep, TokensPerSecond: tokPerSec,
-		ValidationSeconds: valSec, Margin: PlanMargin, PreviousSteps: old, CatchUps: 1}
+		ValidationSecondsPerStep: over, ValidationSeconds: valSec, Margin: PlanMargin, PreviousSteps: old, CatchUps: 1}
 	if prev, err := ReadPlan(s.d.Path()); err == nil {
 		p.Replans, p.CatchUps = prev.Replans, prev.CatchUps+1
 	}
 	if err := s.adopt(p); err != nil {
 		return err
 	}
-	s.warn("behind the deadline plan: at %.0f tokens/s over the last %d windows the %s schedule would end at step %d about %s, after the deadline %s; it now ends at step %d, about %s (its rate drops to where the shorter schedule has it)",
+	s.warn("behind the deadline plan: at %.0f tokens/s over the last %d windows (validations and saves apart) the %s schedule would end at step %d about %s, after the deadline %s; it now ends at step %d, about %s (its rate drops to where the shorter schedule has it)",
 		tokPerSec, n, tc.Schedule, old, end.Format("15:04:05"), s.deadline.Format("15:04:05"), planned,
-		now.Add(time.Duration((float64(planned-step)*secPerStep+valSec)*float64(time.Second))).Format("15:04:05"))
+		now.Add(time.Duration((float64(planned-step)*(secPerStep+over)+valSec)*float64(time.Second))).Format("15:04:05"))
 	if _, err := s.saveStep(false); err != nil {
 		return err
 	}

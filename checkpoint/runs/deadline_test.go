@@ -235,6 +235,52 @@ func TestDeadlineCatchUp(t *testing.T) {
 	}
 }
 
+// TestDeadlineSlowSaveNoCatchUp: a periodic save that takes 20 s (a
+// large model on a slow disk) makes the stretch that holds it slow, but
+// the run is not behind: the plan (200 steps at 1 s a step, with the
+// margin of a 300 s budget and an estimate for validations that take no
+// time on this clock) has room for it. The catch-up counts saves and
+// validations as an overhead spread over all steps, so it leaves the plan
+// alone and the run ends at the step it first planned. Timed with the
+// save inside it, the stretch (at least 12 steps and a tenth of the time
+// left, about 20 s here) would look twice as slow, and the run would be
+// planned again.
+func TestDeadlineSlowSaveNoCatchUp(t *testing.T) {
+	dir := t.TempDir()
+	r := deadlineRun(t, dir, "cosine")
+	r.Checkpoint.EverySteps = 100
+	run := filepath.Join(dir, "run")
+	c := newStepClock()
+	start := c.Now()
+	const budget = 300 * time.Second
+	var slow int
+	res, rec := trainFor(t, context.Background(), r, run, c, budget, TrainOptions{Save: func(path string, f *checkpoint.File) error {
+		if strings.HasPrefix(filepath.Base(path), "step-") && !strings.HasSuffix(path, "0200.safetensors") { // the periodic save at step 100 (not the final one at the plan's end)
+			slow++
+			for range 20 {
+				c.tick()
+			}
+		}
+		return checkpoint.Save(path, f)
+	}})
+	p, err := ReadPlan(run)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if slow == 0 {
+		t.Fatal("no slow save: the test tests nothing")
+	}
+	if p.CatchUps != 0 || strings.Contains(noticeText(rec), "behind the deadline plan") {
+		t.Errorf("planned again %d times (%q); the saves fit in the margin", p.CatchUps, noticeText(rec))
+	}
+	if !strings.HasPrefix(res.Reason, "planned end reached") || res.Steps != p.PlannedSteps || p.MadeAtStep != planSkipWindows+planTimedWindows {
+		t.Errorf("ended at step %d (%q), plan %+v; want the first plan's end", res.Steps, res.Reason, p)
+	}
+	if end := c.Now(); end.After(start.Add(budget)) {
+		t.Errorf("ended %v after the start, after the budget %v", end.Sub(start), budget)
+	}
+}
+
 // TestAnnealingNeedsALength: an annealing schedule with no length, no
 // step budget and no time budget is refused, naming the keys.
 func TestAnnealingNeedsALength(t *testing.T) {

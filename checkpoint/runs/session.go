@@ -145,6 +145,10 @@ type session struct {
 	planning   bool
 	replanning bool
 	stretch    *measurement
+	sincePlan  *measurement
+	// offTime is the time this invocation spent validating and saving,
+	// which keepUp leaves out of the training speed.
+	offTime time.Duration
 
 	res Result
 }
@@ -641,6 +645,9 @@ func (s *session) loop() (string, error) {
 	}
 }
 
+// offClock adds the time since t0 to the time spent away from training.
+func (s *session) offClock(t0 time.Time) { s.offTime += s.o.Now().Sub(t0) }
+
 // validationTimeDue says evaluation.every_minutes have passed since the
 // last validation (or the start of this invocation).
 func (s *session) validationTimeDue() bool {
@@ -712,6 +719,7 @@ func (e *gaveUpError) Unwrap() error { return ErrGaveUp }
 // copy and counts the early-stopping patience. A cancellation abandons it,
 // marking it due for the resumed run.
 func (s *session) validate() error {
+	defer s.offClock(s.o.Now())
 	step := s.tr.Steps()
 	if s.prog.LastValidationStep == step && !s.prog.ValidationDue {
 		return nil
@@ -782,6 +790,7 @@ func (s *session) validate() error {
 // the old ones. final marks the save at the end of the run, whose failure
 // always stops it; a periodic failure follows checkpoint.on_save_error.
 func (s *session) saveStep(final bool) (string, error) {
+	defer s.offClock(s.o.Now())
 	step := s.tr.Steps()
 	path := checkpoint.StepPath(s.ckdir, step)
 	if !final && s.lastSavedStep == step {
