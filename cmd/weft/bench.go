@@ -5,19 +5,15 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"math/rand/v2"
 	"runtime"
-	"slices"
 	"strconv"
-	"strings"
 	"text/tabwriter"
-	"time"
 
 	"github.com/spf13/cobra"
 
 	"weft/configs"
 	"weft/rnn"
-	"weft/rnn/linalg"
+	"weft/rnn/bench"
 )
 
 type benchOptions struct {
@@ -100,60 +96,6 @@ load average.`,
 	return cmd
 }
 
-// benchShape is the resolved model and window shape of a bench run.
-type benchShape struct {
-	Cell       string `json:"cell"`
-	Layers     int    `json:"layers"`
-	Vocab      int    `json:"vocab"`
-	Embedding  int    `json:"embedding"`
-	Hidden     int    `json:"hidden"`
-	Projection int    `json:"projection"`
-	Output     string `json:"output_layer"`             // "full" or "class"
-	Classes    int    `json:"output_classes,omitempty"` // classes of the "class" layer
-	Batch      int    `json:"batch"`
-	Unroll     int    `json:"unroll"`
-	Threads    int    `json:"threads"`
-	Optimizer  string `json:"optimizer"`
-	DType      string `json:"dtype"`
-	Parameters int    `json:"parameters"`
-}
-
-// newBenchShape describes net as r configures it, over vocab entries, in
-// windows of batch streams × unroll steps on threads threads.
-func newBenchShape(net *rnn.Model[float32], r *configs.Run, vocab, batch, unroll, threads int) benchShape {
-	sh := benchShape{
-		Cell: net.Cell().Name(), Layers: r.Model.Layers, Vocab: vocab,
-		Embedding: r.Model.EmbeddingSize, Hidden: r.Model.HiddenSize, Projection: r.Model.ProjectionSize,
-		Batch: batch, Unroll: unroll, Threads: threads, Optimizer: r.Training.Optimizer, DType: "float32",
-		Parameters: net.NumParams(), Output: "full",
-	}
-	if cs := net.OutputClasses(); cs != nil {
-		sh.Output, sh.Classes = "class", len(cs)-1
-	}
-	return sh
-}
-
-// benchReport is what bench measured; its JSON form is for scripts.
-type benchReport struct {
-	Model               benchShape         `json:"model"`
-	WarmupWindows       int                `json:"warmup_windows"`
-	Windows             int                `json:"windows"`
-	Tokens              int64              `json:"tokens"` // positions that added to the loss in the timed windows
-	Seconds             float64            `json:"seconds"`
-	WindowSecondsMedian float64            `json:"window_seconds_median"`
-	TokensPerSecond     float64            `json:"tokens_per_second"`
-	FLOPPerToken        float64            `json:"flop_per_token"`
-	FLOPFormula         string             `json:"flop_formula"`
-	GFLOPsPerSecond     float64            `json:"gflops_per_second"`
-	PhaseSeconds        map[string]float64 `json:"phase_seconds"`
-	FinalLoss           float64            `json:"final_loss_nats"`
-	PeakRSSBytes        int64              `json:"peak_rss_bytes"` // 0 where the system does not say
-	HeapInUseBytes      uint64             `json:"heap_in_use_bytes"`
-	HeapSysBytes        uint64             `json:"heap_sys_bytes"`
-	AllocBytesPerWindow float64            `json:"alloc_bytes_per_window"`
-	AllocsPerWindow     float64            `json:"allocs_per_window"`
-}
-
 func runBench(opts *benchOptions) error {
 	switch {
 	case opts.Vocab < 1:
@@ -187,7 +129,7 @@ func runBench(opts *benchOptions) error {
 	if opts.Score != "" {
 		return runBenchScore(opts, r)
 	}
-	rep, err := bench(opts, r)
+	rep, err := measure(opts, r)
 	if err != nil {
 		return err
 	}
@@ -200,7 +142,7 @@ func runBench(opts *benchOptions) error {
 
 // referenceSpeed times the sizing rule's reference model (the defaults:
 // lstm 1×256, embedding 64, over 84 synthetic entries) on threads threads,
-// as weft bench does: 3 untimed windows, then 30 timed ones (about a
+// as weft bench does (rnn/bench): 3 untimed windows, then 30 timed ones (about a
 // second on one core of a current machine).
 func referenceSpeed(ctx context.Context, threads int) (float64, error) {
 	r, err := benchRun("", nil)
@@ -208,7 +150,7 @@ func referenceSpeed(ctx context.Context, threads int) (float64, error) {
 		return 0, err
 	}
 	r.Training.Threads = threads
-	rep, err := bench(&benchOptions{cmdContext: cmdContext{ctx: ctx}, Vocab: 84, Warmup: 3, Windows: 30}, r)
+	rep, err := bench.Train(ctx, r.Model, r.Training.TrainConfig, bench.Options{Vocab: 84, Warmup: 3, Windows: 30})
 	if err != nil {
 		return 0, err
 	}
@@ -224,83 +166,12 @@ func benchRun(path string, sets []string) (*configs.Run, error) {
 	return configs.Parse("--set", []byte("[data]\nfiles = [\"-\"]\n"), sets)
 }
 
-// benchStream is the PCG stream constant of the synthetic tokens.
-const benchStream = 0x77656674_62656e63 // "weftbenc"
-
-// bench builds the model of r and trains it on synthetic windows.
-func bench(opts *benchOptions, r *configs.Run) (*benchReport, error) {
-	tc := r.Training.TrainConfig
-	net, err := rnn.NewModel[float32](r.Model, opts.Vocab, tc.Seed)
+// measure trains the model of r on synthetic windows (rnn/bench) with
+// the options' sizes, and adds the process's peak resident memory.
+func measure(opts *benchOptions, r *configs.Run) (*bench.Report, error) {
+	rep, err := bench.Train(opts.ctx, r.Model, r.Training.TrainConfig, bench.Options{Vocab: opts.Vocab, Warmup: opts.Warmup, Windows: opts.Windows})
 	if err != nil {
 		return nil, err
-	}
-	pool := linalg.NewPool(tc.Threads)
-	defer pool.Close()
-	net.SetPool(pool)
-	tr, err := rnn.NewTrainer(net, tc, pool)
-	if err != nil {
-		return nil, err
-	}
-	B, U := tc.BatchSize, tc.UnrollSteps
-	T := U
-	if tc.BPTTAdvanceSteps > 0 {
-		T = tc.BPTTAdvanceSteps
-	}
-	n := opts.Warmup + opts.Windows
-	wins := synthWindows(opts.Vocab, B, T, n, tc.Seed)
-
-	var pt rnn.PhaseTimes
-	tr.SetPhaseTimes(&pt)
-	ctx := opts.ctx
-	var last rnn.StepInfo
-	for _, w := range wins[:opts.Warmup] {
-		if last, err = tr.Step(ctx, w); err != nil {
-			return nil, err
-		}
-	}
-	pt = rnn.PhaseTimes{}
-	times := make([]time.Duration, opts.Windows)
-	var tokens int64
-	var before, after runtime.MemStats
-	runtime.ReadMemStats(&before)
-	for i, w := range wins[opts.Warmup:] {
-		t0 := time.Now()
-		last, err = tr.Step(ctx, w)
-		times[i] = time.Since(t0)
-		if err != nil {
-			return nil, err
-		}
-		tokens += int64(last.Tokens)
-	}
-	runtime.ReadMemStats(&after)
-
-	var total time.Duration
-	for _, d := range times {
-		total += d
-	}
-	flop, formula := benchFLOPs(r, opts.Vocab, net.OutputClasses())
-	positions := benchPositions(tc, opts.Warmup, opts.Windows)
-	sec := total.Seconds()
-	rep := &benchReport{
-		Model:               newBenchShape(net, r, opts.Vocab, B, U, pool.Threads()),
-		WarmupWindows:       opts.Warmup,
-		Windows:             opts.Windows,
-		Tokens:              tokens,
-		Seconds:             sec,
-		WindowSecondsMedian: median(times).Seconds(),
-		TokensPerSecond:     float64(tokens) / sec,
-		FLOPPerToken:        flop,
-		FLOPFormula:         formula,
-		GFLOPsPerSecond:     flop * float64(positions) / sec / 1e9,
-		PhaseSeconds:        map[string]float64{},
-		FinalLoss:           last.Loss,
-		HeapInUseBytes:      after.HeapInuse,
-		HeapSysBytes:        after.HeapSys,
-		AllocBytesPerWindow: float64(after.TotalAlloc-before.TotalAlloc) / float64(opts.Windows),
-		AllocsPerWindow:     float64(after.Mallocs-before.Mallocs) / float64(opts.Windows),
-	}
-	for p := range rnn.NumPhases {
-		rep.PhaseSeconds[p.String()] = pt[p].Seconds()
 	}
 	if rss, ok := peakRSS(); ok {
 		rep.PeakRSSBytes = rss
@@ -308,94 +179,7 @@ func bench(opts *benchOptions, r *configs.Run) (*benchReport, error) {
 	return rep, nil
 }
 
-// synthWindows returns n consecutive windows of B streams and T steps over
-// uniform token ids below V: each stream is one sequence, so the target of
-// a window's last step is the first input of the next window.
-func synthWindows(V, B, T, n int, seed uint64) []rnn.Window {
-	rng := rand.New(rand.NewPCG(seed, benchStream))
-	L := n*T + 1
-	seq := make([]int, B*L) // stream b is seq[b*L : (b+1)*L]
-	for i := range seq {
-		seq[i] = rng.IntN(V)
-	}
-	wins := make([]rnn.Window, n)
-	for k := range wins {
-		in, tg := make([]int, T*B), make([]int, T*B)
-		for t := 0; t < T; t++ {
-			for b := 0; b < B; b++ {
-				in[t*B+b] = seq[b*L+k*T+t]
-				tg[t*B+b] = seq[b*L+k*T+t+1]
-			}
-		}
-		wins[k] = rnn.Window{B: B, T: T, Inputs: in, Targets: tg}
-	}
-	return wins
-}
-
-// benchFLOPs is the floating-point operations of the matrix products per
-// position of a window (rnn.Config.MatMulCost, which states the count),
-// and the formula with the numbers put in. For the class layer, with class
-// boundaries start, n̄ is the mean class size of a uniformly drawn target:
-// the synthetic tokens are uniform.
-func benchFLOPs(r *configs.Run, V int, start []int) (float64, string) {
-	flop, terms := r.Model.MatMulCost(V, start)
-	var names, nums []string
-	for _, t := range terms {
-		out := fmt.Sprint(int64(t.Out))
-		if strings.Contains(t.Name, "n̄") {
-			C := len(start) - 1
-			out = fmt.Sprintf("(%d+%.4g)", C, t.Out-float64(C))
-		}
-		if t.Count > 1 {
-			names = append(names, fmt.Sprintf("%d·%s", t.Count, t.Name))
-			nums = append(nums, fmt.Sprintf("%d·%d·%s", t.Count, t.In, out))
-		} else {
-			names = append(names, t.Name)
-			nums = append(nums, fmt.Sprintf("%d·%s", t.In, out))
-		}
-	}
-	note := ""
-	if start != nil {
-		note = ", C classes, n̄ the mean size of a uniform target's class"
-	}
-	gates := r.Model.Gates()
-	return flop, fmt.Sprintf("6 × (%s) = 6 × (%s) = %s FLOP per token, G = %d·H%s",
-		strings.Join(names, " + "), strings.Join(nums, " + "), thousands(int64(flop+0.5)), gates, note)
-}
-
-// benchPositions is the number of positions the timed windows run through
-// the model: B·T each, and with BPTT(h; h′) replay the replayed steps too.
-func benchPositions(tc rnn.TrainConfig, warmup, windows int) int64 {
-	B, U, a := tc.BatchSize, tc.UnrollSteps, tc.BPTTAdvanceSteps
-	if a == 0 || a >= U {
-		return int64(B) * int64(U) * int64(windows)
-	}
-	keep := U - a
-	var n int64
-	hist := 0
-	for i := 0; i < warmup+windows; i++ {
-		steps := hist + a
-		if i >= warmup {
-			n += int64(B) * int64(steps)
-		}
-		hist = min(keep, steps)
-	}
-	return n
-}
-
-// median is the middle of xs (the mean of the two middle ones for an even
-// count); xs is left as it is.
-func median[T ~int64 | ~float64](xs []T) T {
-	s := slices.Clone(xs)
-	slices.Sort(s)
-	m := len(s) / 2
-	if len(s)%2 == 1 {
-		return s[m]
-	}
-	return (s[m-1] + s[m]) / 2
-}
-
-func printBench(w io.Writer, r *benchReport) {
+func printBench(w io.Writer, r *bench.Report) {
 	m := r.Model
 	shape := fmt.Sprintf("%s %d×%d", m.Cell, m.Layers, m.Hidden)
 	if m.Projection > 0 {

@@ -14,6 +14,7 @@ import (
 	"weft/data"
 	"weft/eval/surprise"
 	"weft/rnn"
+	"weft/rnn/bench"
 	"weft/rnn/linalg"
 )
 
@@ -40,7 +41,7 @@ type benchScoreRound struct {
 // benchScoreReport is what bench --score measured; its JSON form is for
 // scripts.
 type benchScoreReport struct {
-	Model         benchShape        `json:"model"`
+	Model         bench.Shape       `json:"model"`
 	File          string            `json:"file"`
 	Lines         int               `json:"lines"`
 	WarmupWindows int               `json:"warmup_windows"`
@@ -89,7 +90,7 @@ func benchScore(opts *benchOptions, r *configs.Run) (*benchScoreReport, error) {
 	if tc.BPTTAdvanceSteps > 0 {
 		T = tc.BPTTAdvanceSteps
 	}
-	wins := synthWindows(V, tc.BatchSize, T, opts.Warmup+opts.Rounds*opts.Windows, tc.Seed)
+	wins := bench.Windows(V, tc.BatchSize, T, opts.Warmup+opts.Rounds*opts.Windows, tc.Seed)
 	net.SetPool(pool)
 	for _, w := range wins[:opts.Warmup] {
 		if _, err := tr.Step(ctx, w); err != nil {
@@ -99,7 +100,7 @@ func benchScore(opts *benchOptions, r *configs.Run) (*benchScoreReport, error) {
 	wins = wins[opts.Warmup:]
 
 	rep := &benchScoreReport{
-		Model: newBenchShape(net, r, V, tc.BatchSize, tc.UnrollSteps, tc.Threads),
+		Model: bench.NewShape(net, r.Model, r.Training.TrainConfig, V, tc.BatchSize, tc.UnrollSteps, tc.Threads),
 		File:  opts.Score, WarmupWindows: opts.Warmup, Windows: opts.Windows,
 		LoadStart: loadAverage(),
 	}
@@ -186,7 +187,7 @@ func benchScore(opts *benchOptions, r *configs.Run) (*benchScoreReport, error) {
 		ratios[i] = round.Ratio
 	}
 	rep.RatioMin, rep.RatioMax = slices.Min(ratios), slices.Max(ratios)
-	rep.RatioMedian = median(ratios)
+	rep.RatioMedian = bench.Median(ratios)
 	return rep, nil
 }
 

@@ -8,41 +8,10 @@ import (
 	"text/tabwriter"
 
 	"weft/configs"
-	"weft/rnn"
+	"weft/rnn/bench"
 )
 
-// benchSweepPoint is one thread count of a sweep.
-type benchSweepPoint struct {
-	Threads         int          `json:"threads"`
-	TokensPerSecond float64      `json:"tokens_per_second"`
-	SpeedUp         float64      `json:"speed_up"` // over the first count of the sweep
-	Report          *benchReport `json:"report"`
-}
-
-// benchSweep is what --threads-sweep measured; its JSON form is for
-// scripts.
-type benchSweep struct {
-	Cores          int               `json:"cores"`
-	BaseThreads    int               `json:"base_threads"`    // the count speed-ups are relative to
-	FastestThreads int               `json:"fastest_threads"` // the count with the most tokens/s
-	DefaultThreads int               `json:"default_threads"` // what training.threads = 0 picks here (rnn.ChooseThreads)
-	Points         []benchSweepPoint `json:"points"`
-}
-
-// sweepCounts is 1, 2, 4, ... up to cores, and cores itself when it is not
-// a power of two.
-func sweepCounts(cores int) []int {
-	var ns []int
-	for n := 1; n <= cores; n *= 2 {
-		ns = append(ns, n)
-	}
-	if ns[len(ns)-1] != cores {
-		ns = append(ns, cores)
-	}
-	return ns
-}
-
-// runBenchSweep runs bench at every thread count of the sweep, in
+// runBenchSweep runs the measurement at every thread count of the sweep, in
 // increasing order, each with a fresh model of the same seed and the same
 // windows.
 func runBenchSweep(opts *benchOptions, r *configs.Run) error {
@@ -50,7 +19,7 @@ func runBenchSweep(opts *benchOptions, r *configs.Run) error {
 		return usagef("--threads and --threads-sweep exclude each other: the sweep sets the threads")
 	}
 	cores := runtime.NumCPU()
-	counts := sweepCounts(cores)
+	counts := bench.SweepCounts(cores)
 	if len(opts.SweepThreads) > 0 {
 		counts = slices.Clone(opts.SweepThreads)
 		for _, n := range counts {
@@ -59,29 +28,15 @@ func runBenchSweep(opts *benchOptions, r *configs.Run) error {
 			}
 		}
 	}
-	sw := &benchSweep{
-		Cores:          cores,
-		BaseThreads:    counts[0],
-		DefaultThreads: rnn.ChooseThreads(r.Model, r.Training.BatchSize, cores),
+	sw, err := bench.ThreadSweep(opts.ctx, r.Model, r.Training.TrainConfig, bench.Options{Vocab: opts.Vocab, Warmup: opts.Warmup, Windows: opts.Windows}, counts, cores)
+	if err != nil {
+		return err
 	}
-	for _, n := range counts {
-		run := *r
-		run.Training.Threads = n
-		rep, err := bench(opts, &run)
-		if err != nil {
-			return err
-		}
-		sw.Points = append(sw.Points, benchSweepPoint{Threads: n, TokensPerSecond: rep.TokensPerSecond, Report: rep})
-	}
-	best := 0
-	for i := range sw.Points {
-		p := &sw.Points[i]
-		p.SpeedUp = p.TokensPerSecond / sw.Points[0].TokensPerSecond
-		if p.TokensPerSecond > sw.Points[best].TokensPerSecond {
-			best = i
+	if rss, ok := peakRSS(); ok {
+		for _, p := range sw.Points {
+			p.Report.PeakRSSBytes = rss // the process's peak so far: the largest count's at the latest
 		}
 	}
-	sw.FastestThreads = sw.Points[best].Threads
 	if opts.JSON {
 		return writeJSON(opts.Out, sw)
 	}
@@ -89,7 +44,7 @@ func runBenchSweep(opts *benchOptions, r *configs.Run) error {
 	return nil
 }
 
-func printBenchSweep(w io.Writer, sw *benchSweep) {
+func printBenchSweep(w io.Writer, sw *bench.Sweep) {
 	m := sw.Points[0].Report.Model
 	shape := fmt.Sprintf("%s %d×%d", m.Cell, m.Layers, m.Hidden)
 	if m.Projection > 0 {
