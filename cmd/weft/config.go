@@ -62,7 +62,7 @@ func newConfigNewCmd(d *deps, runF func(*configNewOptions) error) *cobra.Command
 			"that corpus and this machine instead: the largest LSTM that trains on at least 4\n" +
 			"tokens per parameter in the budget and has at most 4 parameters per corpus\n" +
 			"token, dropout by the expected passes over the corpus, and a cosine schedule\n" +
-			"annealing to the deadline (a constant rate under 5 M expected tokens). Each\n" +
+			"annealing to the deadline (a constant rate under 8 M expected tokens). Each\n" +
 			"value says why in a comment; tokens per parameter, expected passes and speed\n" +
 			"are printed on standard error. The speeds are scaled from the reference model\n" +
 			"(lstm 1x256), which --fit times here on --cores threads for about a second, as\n" +
@@ -165,7 +165,7 @@ func runConfigFit(opts *configNewOptions) error {
 			return fmt.Errorf("--fit: timing the reference model: %w", err)
 		}
 		fmt.Fprintf(opts.Err, "measured the reference model (lstm 1×256, as weft bench trains it) at %s tokens/s on %s; --speed skips this\n",
-			thousands(int64(speed)), threadCount(opts.Cores))
+			thousands(int64(speed)), counted(opts.Cores, "thread"))
 	}
 	fit, err := configs.Size(configs.FitInput{Budget: opts.Fit, CorpusTokens: int64(ds.Train.Tokens.Len()), VocabSize: ds.Vocab.Len(),
 		Tokenizer: opts.Tokenizer, Cores: opts.Cores, TokensPerSecond: speed})
@@ -175,8 +175,8 @@ func runConfigFit(opts *configNewOptions) error {
 	if _, err := io.WriteString(opts.Out, fit.RunFile(files, opts.Tokenizer, opts.Fit)); err != nil {
 		return err
 	}
-	fmt.Fprintf(opts.Err, "sized for %v on %d cores: lstm %d×%d, %s parameters; expected %s tokens/s, %s training tokens, %.1f tokens per parameter, %.1f passes over the %s training tokens\n",
-		opts.Fit, opts.Cores, fit.Layers, fit.Hidden, thousands(fit.Params), thousands(int64(fit.TokensPerSecond)), thousands(fit.ExpectedTokens),
+	fmt.Fprintf(opts.Err, "sized for %v on %s: lstm %d×%d, %s parameters; expected %s tokens/s, %s training tokens, %.1f tokens per parameter, %.1f passes over the %s training tokens\n",
+		opts.Fit, counted(opts.Cores, "core"), fit.Layers, fit.Hidden, thousands(fit.Params), thousands(int64(fit.TokensPerSecond)), thousands(fit.ExpectedTokens),
 		fit.TokensPerParam, fit.Epochs, thousands(int64(ds.Train.Tokens.Len())))
 	return nil
 }
@@ -219,10 +219,10 @@ func addSetFlag(cmd *cobra.Command, dst *[]string) {
 	cmd.Flags().StringArrayVar(dst, "set", nil, "override a run-file key, as section.key=value (repeatable)")
 }
 
-// threadCount writes n threads, singular for one.
-func threadCount(n int) string {
+// counted writes n and the unit, the unit in the plural but for one.
+func counted(n int, unit string) string {
 	if n == 1 {
-		return "1 thread"
+		return "1 " + unit
 	}
-	return fmt.Sprintf("%d threads", n)
+	return fmt.Sprintf("%d %ss", n, unit)
 }

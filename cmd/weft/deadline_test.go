@@ -109,7 +109,7 @@ func TestConfigNewFit(t *testing.T) {
 	// it runs about a third of the reference model's time per token, so at
 	// 100,000 tokens/s it expects about 150 M tokens in the budget less
 	// the margin (annealing), at 1,000 tokens/s about 1.5 M (a constant
-	// rate: under configs' 5 M).
+	// rate: under configs' 8 M).
 	for speed, sched := range map[string]string{"100000": "cosine", "1000": "constant"} {
 		code, out, stderr := weftIn(t, nil, "config", "new", "--fit", "10m", "--corpus", corpus, "--cores", "2", "--speed", speed)
 		r, err := configs.Parse(filepath.Join(dir, "fit.toml"), []byte(out), nil)
