@@ -135,9 +135,10 @@ func LSTMParams(layers, h, e, v int) int64 {
 // fitgrid/speeds.tsv (lstm 1×128 to 2×512 over 84 characters, 1×128 to
 // 1×512 over 10,000 words), measured on an idle machine. Scaled from the
 // measured 1×256 it is within 15% of every one of them (the furthest is
-// 1×128 over characters, 14% faster than predicted; fit_test.go checks). Pure proportion to the parameters
-// would make 2×512 9.5 times slower than 1×256 where it was 7.8 times
-// slower, and a 10,000-word 1×128 3.2 times faster than it was.
+// 1×128 over characters, 14% faster than predicted; fit_test.go checks).
+// Pure proportion to the parameters would make 2×512 9.5 times slower
+// than 1×256 where it was 7.8 times slower, and a 10,000-word 1×128 3.2
+// times faster than it was.
 func costShare(layers, h, e, v int) float64 {
 	ref := float64(refParams - 84*64)
 	p := float64(LSTMParams(layers, h, e, v) - int64(v)*int64(e))

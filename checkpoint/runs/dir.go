@@ -91,10 +91,6 @@ func unwrapPath(err error) error {
 	return err
 }
 
-// Prepare runs the corpus pipeline of r: it reads, tokenizes, splits and
-// encodes the corpus. With d non-nil the encoded tokens are cached in the
-// run directory (and reused while the inputs and settings are unchanged),
-// and the vocabulary and the split report are saved beside them. stdin is
 // DamagedCache is the one line that says a run's token cache was not
 // trusted and was encoded again from the corpus (nothing was lost: the
 // cache is derived from it).
@@ -102,6 +98,10 @@ func DamagedCache(why error) string {
 	return fmt.Sprintf("token cache was damaged and has been rebuilt: %s", oneLine(why.Error()))
 }
 
+// Prepare runs the corpus pipeline of r: it reads, tokenizes, splits and
+// encodes the corpus. With d non-nil the encoded tokens are cached in the
+// run directory (and reused while the inputs and settings are unchanged),
+// and the vocabulary and the split report are saved beside them. stdin is
 // read when the run file names "-".
 func Prepare(ctx context.Context, r *configs.Run, d *Dir, stdin io.Reader) (*data.Dataset, error) {
 	cacheDir := ""
