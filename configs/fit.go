@@ -1,10 +1,13 @@
 package configs
 
 import (
+	"context"
 	"fmt"
 	"math"
 	"strings"
 	"time"
+
+	"weft/rnn/bench"
 )
 
 // The sizing rule: which LSTM to train in a time budget on a corpus and a
@@ -18,8 +21,13 @@ const (
 	// measured: 72,162 tokens/s measured on one thread of an idle machine
 	// (fitgrid/speeds.tsv; 146,070 on two).
 	refTokensPerCore = 72000
-	// refParams is the parameter count of the reference model.
-	refParams = 355668
+	// refParams is the parameter count of the reference model: lstm
+	// refLayers×refHidden, embedding refEmbedding, over refVocab entries
+	// (the characters of Moby-Dick; the grid's and speeds.tsv's first
+	// model).
+	refParams                          = 355668
+	refLayers, refHidden, refEmbedding = 1, 256, 64
+	refVocab                           = 84
 	// fixedCostShare and vocabCostShare are the parts of the reference
 	// model's time per token that do not grow with the parameters (see
 	// costShare): a fixed part, and a part per output entry.
@@ -73,6 +81,25 @@ const (
 	// (common practice; the grid did not reach it).
 	overfitEpochs = 30
 )
+
+// ReferenceSpeed times the reference model on threads threads as weft
+// bench trains it (rnn/bench: synthetic tokens below refVocab, the
+// default batch of 32 streams × 64 steps, no dropout): 3 untimed windows,
+// then 30 timed ones, about a second on one core of a current machine.
+// Its tokens per second are FitInput.TokensPerSecond.
+func ReferenceSpeed(ctx context.Context, threads int) (float64, error) {
+	r := Default()
+	r.Model.Cell, r.Model.Layers, r.Model.HiddenSize, r.Model.EmbeddingSize, r.Model.Dropout = "lstm", refLayers, refHidden, refEmbedding, 0
+	r.Training.BatchSize, r.Training.UnrollSteps, r.Training.Threads = 32, 64, threads
+	rep, err := bench.Train(ctx, r.Model, r.Training.TrainConfig, bench.Options{Vocab: refVocab, Warmup: 3, Windows: 30})
+	if err != nil {
+		return 0, err
+	}
+	if rep.Model.Parameters != refParams {
+		return 0, fmt.Errorf("the reference model has %d parameters, want %d", rep.Model.Parameters, refParams)
+	}
+	return rep.TokensPerSecond, nil
+}
 
 // FitInput is what the sizing rule knows of the night.
 type FitInput struct {
@@ -140,9 +167,9 @@ func LSTMParams(layers, h, e, v int) int64 {
 // than 1×256 where it was 7.8 times slower, and a 10,000-word 1×128 3.2
 // times faster than it was.
 func costShare(layers, h, e, v int) float64 {
-	ref := float64(refParams - 84*64)
+	ref := float64(refParams - refVocab*refEmbedding)
 	p := float64(LSTMParams(layers, h, e, v) - int64(v)*int64(e))
-	return fixedCostShare + vocabCostShare*float64(v) + (1-fixedCostShare-vocabCostShare*84)*p/ref
+	return fixedCostShare + vocabCostShare*float64(v) + (1-fixedCostShare-vocabCostShare*refVocab)*p/ref
 }
 
 type candidate struct{ layers, hidden int }

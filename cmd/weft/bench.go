@@ -1,7 +1,6 @@
 package main
 
 import (
-	"context"
 	"fmt"
 	"io"
 	"math"
@@ -138,23 +137,6 @@ func runBench(opts *benchOptions) error {
 	}
 	printBench(opts.Out, rep)
 	return nil
-}
-
-// referenceSpeed times the sizing rule's reference model (the defaults:
-// lstm 1×256, embedding 64, over 84 synthetic entries) on threads threads,
-// as weft bench does (rnn/bench): 3 untimed windows, then 30 timed ones (about a
-// second on one core of a current machine).
-func referenceSpeed(ctx context.Context, threads int) (float64, error) {
-	r, err := benchRun("", nil)
-	if err != nil {
-		return 0, err
-	}
-	r.Training.Threads = threads
-	rep, err := bench.Train(ctx, r.Model, r.Training.TrainConfig, bench.Options{Vocab: 84, Warmup: 3, Windows: 30})
-	if err != nil {
-		return 0, err
-	}
-	return rep.TokensPerSecond, nil
 }
 
 // benchRun reads the run file, or the defaults with the overrides applied.

@@ -161,7 +161,7 @@ func runConfigFit(opts *configNewOptions) error {
 	defer ds.Close()
 	speed := opts.Speed
 	if speed == 0 {
-		if speed, err = referenceSpeed(ctx, opts.Cores); err != nil {
+		if speed, err = configs.ReferenceSpeed(ctx, opts.Cores); err != nil {
 			return fmt.Errorf("--fit: timing the reference model: %w", err)
 		}
 		fmt.Fprintf(opts.Err, "measured the reference model (lstm 1×256, as weft bench trains it) at %s tokens/s on %s; --speed skips this\n",
